@@ -1,1 +1,55 @@
-fn main() {}
+//! The `tagweave` command: parses arguments, calls the library crates, prints results.
+
+mod demo;
+mod exit;
+mod progress;
+mod scan;
+mod store_path;
+mod tags;
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+/// Learns one shared code for your pictures and their keyword tags, on your own machine.
+#[derive(Parser)]
+#[command(name = "tagweave", version, about, propagate_version = true)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Index a photo folder: pictures, their sidecar tags, and what changed since last time.
+    Scan(scan::ScanArgs),
+    /// List the collection's tags, most used first.
+    Tags(tags::TagsArgs),
+    /// Run the whole job on the bundled invented archive (demo-collection/).
+    Demo(demo::DemoArgs),
+}
+
+/// Options every command that reads a store shares.
+#[derive(clap::Args, Clone)]
+pub struct StoreArgs {
+    /// Store folder; default: the nearest .tagweave/ in the current folder or above.
+    #[arg(long, value_name = "PATH")]
+    pub store: Option<PathBuf>,
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let result = match cli.command {
+        Command::Scan(args) => scan::run(&args),
+        Command::Tags(args) => tags::run(&args),
+        Command::Demo(args) => demo::run(&args),
+    };
+    match result {
+        Ok(code) => code.into(),
+        Err(error) => {
+            eprintln!("tagweave: {error:#}");
+            exit::Outcome::Failed.into()
+        }
+    }
+}

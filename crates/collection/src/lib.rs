@@ -1,1 +1,22 @@
-//! placeholder
+//! Finds the pictures of a collection and the tags people wrote beside them.
+//!
+//! The sidecar files are the record; everything here only reads them.
+
+mod crawl;
+mod error;
+mod item;
+mod normalize;
+pub mod sidecar;
+#[cfg(test)]
+mod test_support;
+mod vocabulary;
+mod xmp;
+
+pub use crawl::{crawl, Candidate, Crawl, CrawlOptions, Note, SkipReason, Skipped};
+pub use error::{CollectionError, MAX_SIDECAR_BYTES, MAX_TEXT_LINE_BYTES};
+pub use item::{
+    is_unchanged, item_id, read_item, FileStamp, ImageFormat, ItemRecord, ReadItem, SidecarKind,
+    SidecarRef,
+};
+pub use normalize::normalize_tag;
+pub use vocabulary::Vocabulary;

@@ -1,1 +1,387 @@
-//! placeholder
+//! The embedded index beside a collection: items, tags, learned blobs and per-item vectors.
+//!
+//! The store is a cache. Everything in it can be rebuilt from the pictures and their
+//! sidecars, so a format change or a damaged store is answered with "rebuild", never with
+//! a guess. One process at a time holds a store; the lock dies with the process.
+
+mod error;
+mod lock;
+
+use std::path::{Path, PathBuf};
+
+use serde::{de::DeserializeOwned, Serialize};
+use tagweave_collection::{ItemRecord, Vocabulary};
+
+pub use error::StoreError;
+use lock::StoreLock;
+
+/// Bumped whenever the on-disk layout changes in a way older code cannot read.
+pub const FORMAT_VERSION: u32 = 1;
+
+/// Name of the store folder placed inside a collection by default.
+pub const DEFAULT_DIR_NAME: &str = ".tagweave";
+
+const META_FORMAT: &str = "format_version";
+const META_ROOT: &str = "collection_root";
+/// Root recorded as this when the store sits directly inside the collection, so the
+/// collection can be moved or renamed with its store.
+const ROOT_IS_PARENT: &str = "..";
+
+pub type Result<T> = std::result::Result<T, StoreError>;
+
+/// An open store; holds the process lock for as long as it lives.
+pub struct Store {
+    dir: PathBuf,
+    collection_root: PathBuf,
+    db: sled::Db,
+    meta: sled::Tree,
+    items: sled::Tree,
+    blobs: sled::Tree,
+    vectors: sled::Tree,
+    _lock: StoreLock,
+}
+
+impl Store {
+    /// Opens the store at `dir` for the collection at `collection_root`, creating it when
+    /// the folder does not exist yet.
+    pub fn open_or_create(dir: &Path, collection_root: &Path) -> Result<Store> {
+        let fresh = !dir.join("db").exists();
+        std::fs::create_dir_all(dir).map_err(|source| StoreError::Io {
+            path: dir.to_path_buf(),
+            source,
+        })?;
+        let mut store = Store::open_locked(dir)?;
+        if fresh {
+            let root_value = if is_default_location(dir, collection_root) {
+                ROOT_IS_PARENT.to_string()
+            } else {
+                absolute(collection_root)?.to_string_lossy().into_owned()
+            };
+            store.put_meta(META_FORMAT, &FORMAT_VERSION.to_be_bytes())?;
+            store.put_meta(META_ROOT, root_value.as_bytes())?;
+            store.flush()?;
+        }
+        store.check_format()?;
+        store.collection_root = store.read_root()?;
+        Ok(store)
+    }
+
+    /// Opens an existing store; a missing one is an error that says how to make it.
+    pub fn open(dir: &Path) -> Result<Store> {
+        if !dir.join("db").exists() {
+            return Err(StoreError::NotAStore {
+                dir: dir.to_path_buf(),
+            });
+        }
+        let mut store = Store::open_locked(dir)?;
+        store.check_format()?;
+        store.collection_root = store.read_root()?;
+        Ok(store)
+    }
+
+    /// The nearest `.tagweave` folder in `start` or any folder above it, the way git
+    /// finds `.git`.
+    pub fn locate(start: &Path) -> Option<PathBuf> {
+        start
+            .ancestors()
+            .map(|dir| dir.join(DEFAULT_DIR_NAME))
+            .find(|candidate| candidate.join("db").exists())
+    }
+
+    /// Deletes a store folder so it can be rebuilt. Refuses folders that do not look like
+    /// a store, so a mistyped path cannot wipe anything else.
+    pub fn remove(dir: &Path) -> Result<()> {
+        if !dir.exists() {
+            return Ok(());
+        }
+        if !dir.join("db").exists() {
+            return Err(StoreError::NotAStore {
+                dir: dir.to_path_buf(),
+            });
+        }
+        // Taking the lock first makes sure no other process is using it.
+        let lock = StoreLock::acquire(dir)?;
+        drop(lock);
+        std::fs::remove_dir_all(dir).map_err(|source| StoreError::Io {
+            path: dir.to_path_buf(),
+            source,
+        })
+    }
+
+    fn open_locked(dir: &Path) -> Result<Store> {
+        let lock = StoreLock::acquire(dir)?;
+        let db = sled::Config::new()
+            .path(dir.join("db"))
+            .mode(sled::Mode::LowSpace)
+            .open()
+            .map_err(|source| StoreError::Database {
+                dir: dir.to_path_buf(),
+                source,
+            })?;
+        let tree = |name: &str| {
+            db.open_tree(name).map_err(|source| StoreError::Database {
+                dir: dir.to_path_buf(),
+                source,
+            })
+        };
+        Ok(Store {
+            dir: dir.to_path_buf(),
+            collection_root: PathBuf::new(),
+            meta: tree("meta")?,
+            items: tree("items")?,
+            blobs: tree("blobs")?,
+            vectors: tree("vectors")?,
+            db,
+            _lock: lock,
+        })
+    }
+
+    fn check_format(&self) -> Result<()> {
+        let found = self
+            .meta
+            .get(META_FORMAT)
+            .map_err(|e| self.db_error(e))?
+            .and_then(|bytes| <[u8; 4]>::try_from(bytes.as_ref()).ok())
+            .map(u32::from_be_bytes);
+        match found {
+            Some(FORMAT_VERSION) => Ok(()),
+            found => Err(StoreError::FormatMismatch {
+                dir: self.dir.clone(),
+                found,
+                expected: FORMAT_VERSION,
+            }),
+        }
+    }
+
+    fn read_root(&self) -> Result<PathBuf> {
+        let raw = self
+            .meta
+            .get(META_ROOT)
+            .map_err(|e| self.db_error(e))?
+            .ok_or_else(|| self.corrupt(META_ROOT, "missing"))?;
+        let text = std::str::from_utf8(&raw).map_err(|_| self.corrupt(META_ROOT, "not UTF-8"))?;
+        if text == ROOT_IS_PARENT {
+            let parent = absolute(&self.dir)?;
+            Ok(parent.parent().map(Path::to_path_buf).unwrap_or(parent))
+        } else {
+            Ok(PathBuf::from(text))
+        }
+    }
+
+    /// The folder this store indexes.
+    pub fn collection_root(&self) -> &Path {
+        &self.collection_root
+    }
+
+    /// The store's own folder.
+    pub fn dir(&self) -> &Path {
+        &self.dir
+    }
+
+    /// Every indexed item, ordered by id.
+    pub fn items(&self) -> Result<Vec<ItemRecord>> {
+        self.items
+            .iter()
+            .map(|entry| {
+                let (key, value) = entry.map_err(|e| self.db_error(e))?;
+                self.decode(&String::from_utf8_lossy(&key), &value)
+            })
+            .collect()
+    }
+
+    /// One item by id.
+    pub fn item(&self, id: &str) -> Result<Option<ItemRecord>> {
+        self.items
+            .get(id)
+            .map_err(|e| self.db_error(e))?
+            .map(|value| self.decode(id, &value))
+            .transpose()
+    }
+
+    /// Number of indexed items.
+    pub fn item_count(&self) -> usize {
+        self.items.len()
+    }
+
+    /// Writes a batch of new or refreshed items and removes the given ids, then flushes so
+    /// a crash after this call loses nothing of it. Vectors computed from a picture whose
+    /// bytes changed, or that is gone, are dropped with it.
+    pub fn update_items(&self, upserts: &[ItemRecord], removals: &[String]) -> Result<()> {
+        let mut stale: Vec<&str> = removals.iter().map(String::as_str).collect();
+        for item in upserts {
+            if let Some(old) = self.item(&item.id)? {
+                if old.content_hash != item.content_hash {
+                    stale.push(&item.id);
+                }
+            }
+        }
+        let mut vector_batch = sled::Batch::default();
+        for id in stale {
+            for key in self.vectors.scan_prefix(vector_prefix(id)).keys() {
+                vector_batch.remove(key.map_err(|e| self.db_error(e))?);
+            }
+        }
+        // Vectors go first: a crash in between leaves an item without vectors (recomputed
+        // by the next scan), never an item with vectors of other bytes.
+        self.vectors
+            .apply_batch(vector_batch)
+            .map_err(|e| self.db_error(e))?;
+        let mut batch = sled::Batch::default();
+        for item in upserts {
+            let value =
+                serde_json::to_vec(item).map_err(|e| self.corrupt(&item.id, &e.to_string()))?;
+            batch.insert(item.id.as_bytes(), value);
+        }
+        for id in removals {
+            batch.remove(id.as_bytes());
+        }
+        self.items
+            .apply_batch(batch)
+            .map_err(|e| self.db_error(e))?;
+        self.flush()
+    }
+
+    /// Tag counts over all indexed items, most frequent first.
+    pub fn vocabulary(&self) -> Result<Vocabulary> {
+        let items = self.items()?;
+        Ok(Vocabulary::from_tag_lists(
+            items.iter().map(|item| item.tags.as_slice()),
+        ))
+    }
+
+    /// Stores a named, versioned piece of learned state (a dictionary, a model).
+    pub fn put_blob<T: Serialize>(&self, name: &str, value: &T) -> Result<()> {
+        let bytes = serde_json::to_vec(value).map_err(|e| self.corrupt(name, &e.to_string()))?;
+        self.blobs
+            .insert(name, bytes)
+            .map_err(|e| self.db_error(e))?;
+        self.flush()
+    }
+
+    /// Reads a named blob; `None` when it was never stored.
+    pub fn blob<T: DeserializeOwned>(&self, name: &str) -> Result<Option<T>> {
+        self.blobs
+            .get(name)
+            .map_err(|e| self.db_error(e))?
+            .map(|bytes| self.decode(name, &bytes))
+            .transpose()
+    }
+
+    /// Removes a named blob (for example to force relearning).
+    pub fn remove_blob(&self, name: &str) -> Result<()> {
+        self.blobs.remove(name).map_err(|e| self.db_error(e))?;
+        self.flush()
+    }
+
+    /// Stores several vectors of one kind (`"features"`, `"code"` …), keyed by item id.
+    pub fn put_vectors(&self, kind: &str, rows: &[(String, Vec<f32>)]) -> Result<()> {
+        let mut batch = sled::Batch::default();
+        for (id, values) in rows {
+            let bytes: Vec<u8> = values.iter().flat_map(|v| v.to_le_bytes()).collect();
+            batch.insert(vector_key(id, kind).as_bytes(), bytes);
+        }
+        self.vectors
+            .apply_batch(batch)
+            .map_err(|e| self.db_error(e))?;
+        self.flush()
+    }
+
+    /// One item's vector of a kind; `None` when it has none yet.
+    pub fn vector(&self, kind: &str, id: &str) -> Result<Option<Vec<f32>>> {
+        let Some(bytes) = self
+            .vectors
+            .get(vector_key(id, kind))
+            .map_err(|e| self.db_error(e))?
+        else {
+            return Ok(None);
+        };
+        if bytes.len() % 4 != 0 {
+            return Err(self.corrupt(id, "vector length is not a multiple of 4 bytes"));
+        }
+        Ok(Some(
+            bytes
+                .chunks_exact(4)
+                .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+                .collect(),
+        ))
+    }
+
+    /// Drops every vector of one kind (for example after relearning features).
+    pub fn clear_vectors(&self, kind: &str) -> Result<()> {
+        let suffix = format!("/{kind}");
+        let mut batch = sled::Batch::default();
+        for key in self.vectors.iter().keys() {
+            let key = key.map_err(|e| self.db_error(e))?;
+            if key.ends_with(suffix.as_bytes()) {
+                batch.remove(key);
+            }
+        }
+        self.vectors
+            .apply_batch(batch)
+            .map_err(|e| self.db_error(e))?;
+        self.flush()
+    }
+
+    /// Makes everything written so far durable.
+    pub fn flush(&self) -> Result<()> {
+        self.db.flush().map(|_| ()).map_err(|e| self.db_error(e))
+    }
+
+    fn put_meta(&mut self, key: &str, value: &[u8]) -> Result<()> {
+        self.meta
+            .insert(key, value)
+            .map(|_| ())
+            .map_err(|e| self.db_error(e))
+    }
+
+    fn decode<T: DeserializeOwned>(&self, key: &str, bytes: &[u8]) -> Result<T> {
+        serde_json::from_slice(bytes).map_err(|e| self.corrupt(key, &e.to_string()))
+    }
+
+    fn db_error(&self, source: sled::Error) -> StoreError {
+        StoreError::Database {
+            dir: self.dir.clone(),
+            source,
+        }
+    }
+
+    fn corrupt(&self, key: &str, detail: &str) -> StoreError {
+        StoreError::Corrupt {
+            dir: self.dir.clone(),
+            key: key.to_string(),
+            detail: detail.to_string(),
+        }
+    }
+}
+
+impl Drop for Store {
+    fn drop(&mut self) {
+        // Best effort: every writer already flushed; this covers readers' bookkeeping.
+        let _ = self.db.flush();
+    }
+}
+
+fn vector_prefix(id: &str) -> String {
+    format!("{id}/")
+}
+
+fn vector_key(id: &str, kind: &str) -> String {
+    format!("{id}/{kind}")
+}
+
+fn is_default_location(dir: &Path, collection_root: &Path) -> bool {
+    match (absolute(dir), absolute(collection_root)) {
+        (Ok(dir), Ok(root)) => dir.parent() == Some(root.as_path()),
+        _ => false,
+    }
+}
+
+fn absolute(path: &Path) -> Result<PathBuf> {
+    path.canonicalize().map_err(|source| StoreError::Io {
+        path: path.to_path_buf(),
+        source,
+    })
+}
+
+#[cfg(test)]
+mod tests;

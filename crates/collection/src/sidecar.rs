@@ -1,0 +1,157 @@
+//! Reading the tag files that sit beside pictures.
+
+use std::collections::HashSet;
+use std::io::Read;
+use std::path::Path;
+
+use crate::error::{CollectionError, MAX_SIDECAR_BYTES, MAX_TEXT_LINE_BYTES};
+use crate::item::SidecarKind;
+
+pub use crate::xmp::parse_xmp;
+
+/// Tags of a plain-text sidecar: one per line, commas also separate, `#` comments out the
+/// rest of the line. A leading byte-order mark is ignored.
+pub fn parse_text(text: &str) -> Vec<String> {
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let pieces = text.lines().flat_map(|line| {
+        let content = line.split('#').next().unwrap_or_default();
+        content.split(',')
+    });
+    dedup_normalized(pieces)
+}
+
+/// Reads and parses one sidecar, refusing files over [`MAX_SIDECAR_BYTES`] and (plain text)
+/// lines over [`MAX_TEXT_LINE_BYTES`]. Every error names the file.
+pub fn read_sidecar(path: &Path, kind: SidecarKind) -> Result<Vec<String>, CollectionError> {
+    read_limited(path)
+        .and_then(|bytes| match kind {
+            SidecarKind::Text => {
+                if let Some(line) = bytes
+                    .split(|&b| b == b'\n')
+                    .position(|line| line.len() > MAX_TEXT_LINE_BYTES)
+                {
+                    return Err(CollectionError::LineTooLong {
+                        line: line + 1,
+                        limit: MAX_TEXT_LINE_BYTES,
+                    });
+                }
+                utf8_or_line_error(&bytes).map(parse_text)
+            }
+            SidecarKind::Xmp => parse_xmp(&bytes),
+        })
+        .map_err(|problem| CollectionError::Sidecar {
+            path: path.to_path_buf(),
+            problem: Box::new(problem),
+        })
+}
+
+/// Reads at most one byte past the limit, so a file that grows while we read cannot slip by.
+fn read_limited(path: &Path) -> Result<Vec<u8>, CollectionError> {
+    let file = std::fs::File::open(path)?;
+    let mut bytes = Vec::new();
+    file.take(MAX_SIDECAR_BYTES + 1).read_to_end(&mut bytes)?;
+    let size = bytes.len() as u64;
+    if size > MAX_SIDECAR_BYTES {
+        let size = std::fs::metadata(path).map_or(size, |m| m.len());
+        return Err(CollectionError::TooLarge {
+            size,
+            limit: MAX_SIDECAR_BYTES,
+        });
+    }
+    Ok(bytes)
+}
+
+/// The bytes as text, or an error giving the 1-based line of the first invalid byte.
+pub(crate) fn utf8_or_line_error(bytes: &[u8]) -> Result<&str, CollectionError> {
+    std::str::from_utf8(bytes).map_err(|e| {
+        let before = &bytes[..e.valid_up_to()];
+        CollectionError::NotUtf8 {
+            line: 1 + before.iter().filter(|&&b| b == b'\n').count(),
+        }
+    })
+}
+
+/// Normalised tags without repeats, in order of first appearance.
+pub(crate) fn dedup_normalized<S: AsRef<str>>(raw: impl IntoIterator<Item = S>) -> Vec<String> {
+    let mut seen = HashSet::new();
+    raw.into_iter()
+        .filter_map(|r| crate::normalize::normalize_tag(r.as_ref()))
+        .filter(|tag| seen.insert(tag.clone()))
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    #[test]
+    fn text_lines_commas_comments_and_repeats() {
+        let text = "Harbour, Boats\n# a whole-line comment\nsunset # golden hour\n\n  old   town \nHARBOUR\n,,\n";
+        assert_eq!(parse_text(text), ["harbour", "boats", "sunset", "old-town"]);
+    }
+
+    #[test]
+    fn text_tolerates_bom_and_crlf() {
+        assert_eq!(parse_text("\u{feff}alpha\r\nBeta\r\n"), ["alpha", "beta"]);
+        assert!(parse_text("").is_empty());
+    }
+
+    #[test]
+    fn non_utf8_text_names_file_and_line() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("pic.txt");
+        std::fs::write(&path, b"fine\ncaf\xe9\n").unwrap();
+        let err = read_sidecar(&path, SidecarKind::Text).unwrap_err();
+        let message = err.to_string();
+        assert!(
+            message.contains("pic.txt") && message.contains("line 2"),
+            "{message}"
+        );
+        assert!(message.contains("UTF-8"), "{message}");
+    }
+
+    #[test]
+    fn oversized_sidecar_and_long_line_are_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let big = dir.path().join("big.xmp");
+        // Sparse file: costs nothing to make.
+        std::fs::File::create(&big)
+            .unwrap()
+            .set_len(MAX_SIDECAR_BYTES + 1)
+            .unwrap();
+        let err = read_sidecar(&big, SidecarKind::Xmp).unwrap_err();
+        assert!(matches!(&err, CollectionError::Sidecar { problem, .. }
+            if matches!(**problem, CollectionError::TooLarge { size, .. } if size == MAX_SIDECAR_BYTES + 1)));
+        assert!(err.to_string().contains("big.xmp"));
+
+        let long = dir.path().join("long.txt");
+        let mut text = b"ok\n".to_vec();
+        text.extend(std::iter::repeat_n(b'a', MAX_TEXT_LINE_BYTES + 1));
+        std::fs::write(&long, &text).unwrap();
+        let err = read_sidecar(&long, SidecarKind::Text)
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("long.txt") && err.contains("line 2"), "{err}");
+
+        // Exactly at the limit is still accepted.
+        std::fs::write(&long, vec![b'a'; MAX_TEXT_LINE_BYTES]).unwrap();
+        assert_eq!(read_sidecar(&long, SidecarKind::Text).unwrap().len(), 1);
+    }
+
+    #[test]
+    fn missing_sidecar_names_the_file() {
+        let dir = tempfile::tempdir().unwrap();
+        let err = read_sidecar(&dir.path().join("gone.txt"), SidecarKind::Text).unwrap_err();
+        assert!(err.to_string().contains("gone.txt"));
+    }
+
+    proptest! {
+        #[test]
+        fn parse_text_never_panics(text in any::<String>()) {
+            for tag in parse_text(&text) {
+                prop_assert!(!tag.contains(',') && !tag.contains('#') && !tag.contains('\n'));
+            }
+        }
+    }
+}

@@ -1,0 +1,185 @@
+//! The outcome of one evaluation run, serialisable for `--json` and
+//! renderable as Markdown or a plain-text table.
+
+use std::collections::BTreeMap;
+
+use serde::Serialize;
+
+/// Everything measured in one run: the split, then one entry per method.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Report {
+    pub split: SplitSummary,
+    pub methods: BTreeMap<String, MethodReport>,
+}
+
+/// How the pictures were divided and what could be measured on them.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct SplitSummary {
+    pub seed: u64,
+    /// Train pictures the methods learned from (those carrying a tag).
+    pub train: usize,
+    /// Train-side pictures without any tag: unknown, not "no tag applies", so left out.
+    pub train_untagged: usize,
+    /// Test pictures in the split.
+    pub test: usize,
+    /// Test pictures with no tag known from train: excluded from every metric.
+    pub test_without_known_tags: usize,
+    /// Tags seen on train pictures: the columns every method scores.
+    pub vocabulary: usize,
+    /// Distinct test tags that no train picture carries (dropped).
+    pub unseen_test_tags: usize,
+    /// One-tag search queries (tags on at least 2 measured test pictures).
+    pub search_tags: usize,
+    /// Two-tag search queries.
+    pub search_pairs: usize,
+    /// Test pictures given another picture's tags for the mislabel measurement.
+    pub mislabelled: usize,
+}
+
+/// One method's results on the measured test pictures (see `metrics` for definitions).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct MethodReport {
+    /// Settings the method chose while fitting (e.g. "k=10").
+    pub settings: Option<String>,
+    /// Mean label-ranking average precision per picture.
+    pub lrap: f64,
+    pub p_at_1: f64,
+    pub p_at_5: f64,
+    pub r_at_5: f64,
+    /// Mean coverage error (lower is better).
+    pub coverage: f64,
+    /// Mean per-tag precision of top-5 annotation.
+    pub tag_precision: f64,
+    /// Mean per-tag recall of top-5 annotation.
+    pub tag_recall: f64,
+    /// Tags suggested correctly at least once.
+    pub n_plus: usize,
+    /// mAP of one-tag search; absent when no tag qualifies.
+    pub search_map: Option<f64>,
+    /// mAP of two-tag search; absent when no pair qualifies.
+    pub search_map_pairs: Option<f64>,
+    /// ROC AUC of finding the swapped tag sets; absent without swaps.
+    pub mislabel_auc: Option<f64>,
+    /// Precision of the top-m disputed pictures, m = number swapped.
+    pub mislabel_precision: Option<f64>,
+    /// Wall-clock time of fit plus score.
+    pub seconds: f64,
+}
+
+const COLUMNS: [&str; 15] = [
+    "method",
+    "settings",
+    "LRAP",
+    "P@1",
+    "P@5",
+    "R@5",
+    "coverage",
+    "tag P",
+    "tag R",
+    "N+",
+    "search mAP",
+    "pair mAP",
+    "mislabel AUC",
+    "mislabel P",
+    "seconds",
+];
+
+fn number(v: f64) -> String {
+    format!("{v:.3}")
+}
+
+fn optional(v: Option<f64>) -> String {
+    v.map_or_else(|| "-".to_string(), number)
+}
+
+impl Report {
+    fn summary_line(&self) -> String {
+        let s = &self.split;
+        format!(
+            "seed {}: {} train pictures ({} untagged left out), {} test pictures ({} without a known tag, not measured); \
+             vocabulary {} tags, {} test tags unseen in train; search queries: {} tags, {} tag pairs; {} pictures mislabelled on purpose",
+            s.seed,
+            s.train,
+            s.train_untagged,
+            s.test,
+            s.test_without_known_tags,
+            s.vocabulary,
+            s.unseen_test_tags,
+            s.search_tags,
+            s.search_pairs,
+            s.mislabelled
+        )
+    }
+
+    fn rows(&self) -> Vec<Vec<String>> {
+        self.methods
+            .iter()
+            .map(|(name, m)| {
+                vec![
+                    name.clone(),
+                    m.settings.clone().unwrap_or_else(|| "-".to_string()),
+                    number(m.lrap),
+                    number(m.p_at_1),
+                    number(m.p_at_5),
+                    number(m.r_at_5),
+                    number(m.coverage),
+                    number(m.tag_precision),
+                    number(m.tag_recall),
+                    m.n_plus.to_string(),
+                    optional(m.search_map),
+                    optional(m.search_map_pairs),
+                    optional(m.mislabel_auc),
+                    optional(m.mislabel_precision),
+                    format!("{:.2}", m.seconds),
+                ]
+            })
+            .collect()
+    }
+
+    /// The split summary as a paragraph, then a Markdown table, one row per method.
+    pub fn to_markdown(&self) -> String {
+        let line = |cells: &[String]| format!("| {} |\n", cells.join(" | "));
+        let header: Vec<String> = COLUMNS.iter().map(|c| c.to_string()).collect();
+        let rule: Vec<String> = COLUMNS.iter().map(|_| "---".to_string()).collect();
+        let mut out = format!("{}\n\n", self.summary_line());
+        out += &line(&header);
+        out += &line(&rule);
+        for row in self.rows() {
+            out += &line(&row);
+        }
+        out
+    }
+
+    /// The split summary, then an aligned plain-text table for terminals.
+    pub fn to_table(&self) -> String {
+        let header: Vec<String> = COLUMNS.iter().map(|c| c.to_string()).collect();
+        let rows = self.rows();
+        let widths: Vec<usize> = (0..COLUMNS.len())
+            .map(|c| {
+                rows.iter()
+                    .chain([&header])
+                    .map(|r| r[c].chars().count())
+                    .max()
+                    .unwrap_or(0)
+            })
+            .collect();
+        let mut out = format!("{}\n", self.summary_line());
+        for row in [&header].into_iter().chain(&rows) {
+            let cells: Vec<String> = row
+                .iter()
+                .zip(&widths)
+                .enumerate()
+                .map(|(c, (cell, &w))| {
+                    if c < 2 {
+                        format!("{cell:<w$}")
+                    } else {
+                        format!("{cell:>w$}")
+                    }
+                })
+                .collect();
+            out += cells.join("  ").trim_end();
+            out.push('\n');
+        }
+        out
+    }
+}

@@ -1,0 +1,159 @@
+use super::*;
+use tagweave_collection::{FileStamp, ImageFormat};
+
+fn item(rel_path: &str, tags: &[&str]) -> ItemRecord {
+    ItemRecord {
+        id: tagweave_collection::item_id(rel_path),
+        rel_path: rel_path.to_string(),
+        format: ImageFormat::Png,
+        stamp: FileStamp {
+            size: 10,
+            mtime_ns: 1,
+        },
+        content_hash: "00".into(),
+        sidecars: vec![],
+        tags: tags.iter().map(|t| t.to_string()).collect(),
+    }
+}
+
+fn collection() -> (tempfile::TempDir, PathBuf) {
+    let temp = tempfile::tempdir().unwrap();
+    let dir = temp.path().join(DEFAULT_DIR_NAME);
+    (temp, dir)
+}
+
+#[test]
+fn items_survive_reopening_and_removal_drops_vectors() {
+    let (temp, dir) = collection();
+    {
+        let store = Store::open_or_create(&dir, temp.path()).unwrap();
+        let a = item("a.png", &["harbour", "night"]);
+        let b = item("sub/b.png", &["harbour"]);
+        store.update_items(&[a.clone(), b.clone()], &[]).unwrap();
+        store
+            .put_vectors("features", &[(a.id.clone(), vec![1.0, -2.5])])
+            .unwrap();
+        assert_eq!(store.item(&a.id).unwrap(), Some(a));
+    }
+    let store = Store::open(&dir).unwrap();
+    assert_eq!(store.item_count(), 2);
+    let a_id = tagweave_collection::item_id("a.png");
+    assert_eq!(
+        store.vector("features", &a_id).unwrap(),
+        Some(vec![1.0, -2.5])
+    );
+    let vocabulary = store.vocabulary().unwrap();
+    assert_eq!(vocabulary.entries()[0], ("harbour".to_string(), 2));
+    store.update_items(&[], &[a_id.clone()]).unwrap();
+    assert_eq!(store.item_count(), 1);
+    assert_eq!(store.vector("features", &a_id).unwrap(), None);
+}
+
+#[test]
+fn default_location_follows_the_collection_when_it_moves() {
+    let (temp, dir) = collection();
+    drop(Store::open_or_create(&dir, temp.path()).unwrap());
+    let moved = temp.path().with_extension("moved");
+    std::fs::rename(temp.path(), &moved).unwrap();
+    let store = Store::open(&moved.join(DEFAULT_DIR_NAME)).unwrap();
+    assert_eq!(store.collection_root(), moved.canonicalize().unwrap());
+    drop(store);
+    std::fs::rename(&moved, temp.path()).unwrap();
+}
+
+#[test]
+fn a_second_opener_is_told_the_store_is_in_use_with_the_pid() {
+    let (temp, dir) = collection();
+    let _first = Store::open_or_create(&dir, temp.path()).unwrap();
+    match Store::open(&dir) {
+        Err(StoreError::InUse { pid, .. }) => assert_eq!(pid, Some(std::process::id())),
+        Err(other) => panic!("expected in-use error, got {other}"),
+        Ok(_) => panic!("expected in-use error, got a second store"),
+    }
+}
+
+#[test]
+fn another_format_version_asks_for_a_rebuild() {
+    let (temp, dir) = collection();
+    {
+        let store = Store::open_or_create(&dir, temp.path()).unwrap();
+        store.meta.insert(META_FORMAT, &0u32.to_be_bytes()).unwrap();
+        store.flush().unwrap();
+    }
+    let message = match Store::open(&dir) {
+        Err(error @ StoreError::FormatMismatch { .. }) => error.to_string(),
+        Err(other) => panic!("expected a format mismatch, got {other}"),
+        Ok(_) => panic!("expected a format mismatch"),
+    };
+    assert!(message.contains("--rebuild"), "{message}");
+}
+
+#[test]
+fn locate_finds_the_nearest_store_above() {
+    let (temp, dir) = collection();
+    drop(Store::open_or_create(&dir, temp.path()).unwrap());
+    let deep = temp.path().join("a/b/c");
+    std::fs::create_dir_all(&deep).unwrap();
+    assert_eq!(Store::locate(&deep), Some(dir.clone()));
+    let elsewhere = tempfile::tempdir().unwrap();
+    assert_eq!(Store::locate(elsewhere.path()), None);
+}
+
+#[test]
+fn opening_a_missing_store_says_how_to_make_one() {
+    let (_temp, dir) = collection();
+    let error = Store::open(&dir).err().expect("no store there");
+    assert!(error.to_string().contains("tagweave scan"), "{error}");
+}
+
+#[test]
+fn remove_refuses_folders_that_are_not_stores() {
+    let temp = tempfile::tempdir().unwrap();
+    std::fs::write(temp.path().join("precious.txt"), "keep").unwrap();
+    assert!(Store::remove(temp.path()).is_err());
+    assert!(temp.path().join("precious.txt").exists());
+}
+
+#[test]
+fn blobs_round_trip_and_clear() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    store.put_blob("dictionary", &vec![1u8, 2, 3]).unwrap();
+    assert_eq!(
+        store.blob::<Vec<u8>>("dictionary").unwrap(),
+        Some(vec![1, 2, 3])
+    );
+    store.remove_blob("dictionary").unwrap();
+    assert_eq!(store.blob::<Vec<u8>>("dictionary").unwrap(), None);
+    store
+        .put_vectors("features", &[("x".into(), vec![0.5])])
+        .unwrap();
+    store.clear_vectors("features").unwrap();
+    assert_eq!(store.vector("features", "x").unwrap(), None);
+}
+
+#[test]
+fn vectors_of_a_picture_whose_bytes_changed_are_dropped() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let mut a = item("a.png", &["x"]);
+    let b = item("b.png", &["y"]);
+    store.update_items(&[a.clone(), b.clone()], &[]).unwrap();
+    store
+        .put_vectors(
+            "features",
+            &[(a.id.clone(), vec![1.0]), (b.id.clone(), vec![2.0])],
+        )
+        .unwrap();
+    a.tags.push("z".into());
+    store.update_items(&[a.clone(), b.clone()], &[]).unwrap();
+    assert_eq!(
+        store.vector("features", &a.id).unwrap(),
+        Some(vec![1.0]),
+        "same bytes keep features"
+    );
+    a.content_hash = "11".into();
+    store.update_items(&[a.clone()], &[]).unwrap();
+    assert_eq!(store.vector("features", &a.id).unwrap(), None);
+    assert_eq!(store.vector("features", &b.id).unwrap(), Some(vec![2.0]));
+}

@@ -1,0 +1,507 @@
+//! Decoding straight to the small "working image" features are computed on.
+//!
+//! JPEGs are shrunk inside the decoder (DCT scaling by 1/2, 1/4 or 1/8), so a 24-megapixel
+//! photo never exists at full size in memory; the remaining factor, and every other format,
+//! goes through fast_image_resize. Dimensions are checked from the header before any pixel
+//! buffer is allocated.
+
+use std::io::Cursor;
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::path::Path;
+
+use fast_image_resize as fr;
+use image::metadata::Orientation;
+use image::{DynamicImage, ImageDecoder, ImageError, ImageReader, Limits, RgbImage};
+use serde::{Deserialize, Serialize};
+
+use crate::VisionError;
+
+/// How pictures are brought to working size, and what is refused as too large.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct DecodeOptions {
+    /// Long side of the working image. Smaller pictures are enlarged to it too, so a patch
+    /// covers the same share of every picture whatever its file size.
+    pub long_side: u32,
+    /// Refuse pictures with more pixels than this (decompression-bomb guard).
+    pub max_pixels: u64,
+    /// Refuse pictures with a side longer than this.
+    pub max_side: u32,
+}
+
+impl Default for DecodeOptions {
+    fn default() -> Self {
+        Self {
+            long_side: 160,
+            max_pixels: 100_000_000,
+            max_side: 30_000,
+        }
+    }
+}
+
+/// A picture at working size: 8-bit sRGB, interleaved RGB rows, EXIF orientation applied,
+/// transparency flattened onto white.
+#[derive(Clone, Debug, PartialEq)]
+pub struct WorkingImage {
+    width: u32,
+    height: u32,
+    rgb: Vec<u8>,
+}
+
+impl WorkingImage {
+    /// Wraps pixels the caller already has; `None` when the buffer length is not
+    /// `width * height * 3` or a side is zero.
+    pub fn from_rgb8(width: u32, height: u32, rgb: Vec<u8>) -> Option<Self> {
+        let expected = (width as usize)
+            .checked_mul(height as usize)?
+            .checked_mul(3)?;
+        (width > 0 && height > 0 && rgb.len() == expected).then_some(Self { width, height, rgb })
+    }
+
+    pub fn width(&self) -> u32 {
+        self.width
+    }
+
+    pub fn height(&self) -> u32 {
+        self.height
+    }
+
+    /// Interleaved 8-bit sRGB, row by row.
+    pub fn rgb(&self) -> &[u8] {
+        &self.rgb
+    }
+}
+
+/// Reads and decodes one picture at working size; the format is sniffed from the bytes.
+pub fn load_working_image(path: &Path, opts: &DecodeOptions) -> Result<WorkingImage, VisionError> {
+    let bytes = std::fs::read(path).map_err(|source| VisionError::Io {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    decode_bytes(&bytes, path, opts)
+}
+
+/// Decodes bytes already in memory; `path` only names the picture in errors.
+pub(crate) fn decode_bytes(
+    bytes: &[u8],
+    path: &Path,
+    opts: &DecodeOptions,
+) -> Result<WorkingImage, VisionError> {
+    if opts.long_side == 0 || opts.long_side > u32::from(u16::MAX) {
+        return Err(VisionError::InvalidOptions(format!(
+            "working-image long side must be 1..=65535 pixels, got {}",
+            opts.long_side
+        )));
+    }
+    // Third-party decoders meet hostile files here: a panic inside one must become a
+    // per-file error, not end the whole run.
+    catch_unwind(AssertUnwindSafe(|| {
+        if bytes.starts_with(&[0xFF, 0xD8, 0xFF]) {
+            decode_jpeg(bytes, path, opts)
+        } else {
+            decode_other(bytes, path, opts)
+        }
+    }))
+    .unwrap_or_else(|_| Err(corrupt(path, "the decoder stopped on malformed data")))
+}
+
+fn corrupt(path: &Path, detail: impl ToString) -> VisionError {
+    VisionError::Corrupt {
+        path: path.to_path_buf(),
+        detail: detail.to_string(),
+    }
+}
+
+fn check_size(path: &Path, width: u64, height: u64, opts: &DecodeOptions) -> Result<(), VisionError> {
+    if width == 0 || height == 0 {
+        return Err(corrupt(path, format!("the header declares {width}x{height} pixels")));
+    }
+    let too_large = |limit: String| VisionError::TooLarge {
+        path: path.to_path_buf(),
+        detail: format!("{width}x{height} pixels, limit {limit}"),
+    };
+    if width > u64::from(opts.max_side) || height > u64::from(opts.max_side) {
+        return Err(too_large(format!("{} per side", opts.max_side)));
+    }
+    if width * height > opts.max_pixels {
+        return Err(too_large(format!("{} in all", opts.max_pixels)));
+    }
+    Ok(())
+}
+
+/// Working size for a `width`×`height` picture: long side scaled to `long_side`.
+fn target_dims(width: u32, height: u32, long_side: u32) -> (u32, u32) {
+    let scale = f64::from(long_side) / f64::from(width.max(height));
+    let side = |v: u32| ((f64::from(v) * scale).round() as u32).max(1);
+    (side(width), side(height))
+}
+
+fn decode_jpeg(bytes: &[u8], path: &Path, opts: &DecodeOptions) -> Result<WorkingImage, VisionError> {
+    let mut decoder = jpeg_decoder::Decoder::new(bytes);
+    decoder.read_info().map_err(|e| corrupt(path, e))?;
+    let info = decoder
+        .info()
+        .ok_or_else(|| corrupt(path, "no frame header"))?;
+    check_size(path, info.width.into(), info.height.into(), opts)?;
+    let (tw, th) = target_dims(info.width.into(), info.height.into(), opts.long_side);
+    // Both fit in u16: they are at most the long side, checked to be <= 65535 above.
+    let (sw, sh) = decoder
+        .scale(tw as u16, th as u16)
+        .map_err(|e| corrupt(path, e))?;
+    let pixels = decoder.decode().map_err(|e| corrupt(path, e))?;
+    let rgb: Vec<u8> = match info.pixel_format {
+        jpeg_decoder::PixelFormat::RGB24 => pixels,
+        jpeg_decoder::PixelFormat::L8 => pixels.iter().flat_map(|&v| [v, v, v]).collect(),
+        // 16-bit (lossless) greyscale comes out big-endian; the high byte is plenty here.
+        jpeg_decoder::PixelFormat::L16 => pixels
+            .chunks_exact(2)
+            .flat_map(|v| [v[0], v[0], v[0]])
+            .collect(),
+        // The decoder hands back ink amounts (255 = full ink; it undoes the inverted storage
+        // of Adobe CMYK JPEGs). Naive conversion, no ICC profile: R = (1 − C)(1 − K)…
+        jpeg_decoder::PixelFormat::CMYK32 => pixels
+            .chunks_exact(4)
+            .flat_map(|p| {
+                let k = 255 - u32::from(p[3]);
+                let ch = |v: u8| (((255 - u32::from(v)) * k + 127) / 255) as u8;
+                [ch(p[0]), ch(p[1]), ch(p[2])]
+            })
+            .collect(),
+    };
+    if rgb.len() != usize::from(sw) * usize::from(sh) * 3 {
+        return Err(corrupt(path, "decoded pixel count does not match the header"));
+    }
+    let orientation = decoder
+        .exif_data()
+        .and_then(Orientation::from_exif_chunk)
+        .unwrap_or(Orientation::NoTransforms);
+    finish(path, rgb, sw.into(), sh.into(), orientation, opts)
+}
+
+fn image_error(path: &Path, error: ImageError) -> VisionError {
+    match error {
+        ImageError::Limits(e) => VisionError::TooLarge {
+            path: path.to_path_buf(),
+            detail: e.to_string(),
+        },
+        ImageError::Unsupported(_) => VisionError::UnknownFormat {
+            path: path.to_path_buf(),
+        },
+        other => corrupt(path, other),
+    }
+}
+
+fn decode_other(bytes: &[u8], path: &Path, opts: &DecodeOptions) -> Result<WorkingImage, VisionError> {
+    let mut reader = ImageReader::new(Cursor::new(bytes))
+        .with_guessed_format()
+        .map_err(|e| corrupt(path, e))?;
+    if reader.format().is_none() {
+        return Err(VisionError::UnknownFormat {
+            path: path.to_path_buf(),
+        });
+    }
+    let mut limits = Limits::default();
+    limits.max_image_width = Some(opts.max_side);
+    limits.max_image_height = Some(opts.max_side);
+    // Room for the decoded picture at 16 bits per channel with alpha, plus decoder state.
+    limits.max_alloc = Some(opts.max_pixels.saturating_mul(8).saturating_add(64 << 20));
+    reader.limits(limits);
+    let mut decoder = reader.into_decoder().map_err(|e| image_error(path, e))?;
+    let (width, height) = decoder.dimensions();
+    check_size(path, width.into(), height.into(), opts)?;
+    let orientation = decoder.orientation().unwrap_or(Orientation::NoTransforms);
+    let picture = DynamicImage::from_decoder(decoder).map_err(|e| image_error(path, e))?;
+    let rgb = flatten_on_white(picture);
+    finish(path, rgb, width, height, orientation, opts)
+}
+
+/// Composites transparency onto white (in encoded sRGB, as viewers show it) and converts
+/// grey, palette and 16-bit pictures to 8-bit RGB.
+fn flatten_on_white(picture: DynamicImage) -> Vec<u8> {
+    if !picture.color().has_alpha() {
+        return picture.into_rgb8().into_raw();
+    }
+    picture
+        .into_rgba8()
+        .into_raw()
+        .chunks_exact(4)
+        .flat_map(|p| {
+            let a = u32::from(p[3]);
+            let over = |c: u8| ((u32::from(c) * a + 255 * (255 - a) + 127) / 255) as u8;
+            [over(p[0]), over(p[1]), over(p[2])]
+        })
+        .collect()
+}
+
+/// Resizes to working size, then applies the EXIF orientation (cheap at this size).
+fn finish(
+    path: &Path,
+    rgb: Vec<u8>,
+    width: u32,
+    height: u32,
+    orientation: Orientation,
+    opts: &DecodeOptions,
+) -> Result<WorkingImage, VisionError> {
+    let (tw, th) = target_dims(width, height, opts.long_side);
+    let resized = if (tw, th) == (width, height) {
+        rgb
+    } else {
+        let src = fr::images::Image::from_vec_u8(width, height, rgb, fr::PixelType::U8x3)
+            .map_err(|e| corrupt(path, e))?;
+        let mut dst = fr::images::Image::new(tw, th, fr::PixelType::U8x3);
+        let options = fr::ResizeOptions::new()
+            .resize_alg(fr::ResizeAlg::Convolution(fr::FilterType::Bilinear));
+        fr::Resizer::new()
+            .resize(&src, &mut dst, &options)
+            .map_err(|e| corrupt(path, e))?;
+        dst.into_vec()
+    };
+    let oriented = if orientation == Orientation::NoTransforms {
+        (tw, th, resized)
+    } else {
+        let buffer = RgbImage::from_raw(tw, th, resized)
+            .ok_or_else(|| corrupt(path, "resized buffer has the wrong length"))?;
+        let mut picture = DynamicImage::ImageRgb8(buffer);
+        picture.apply_orientation(orientation);
+        let turned = picture.into_rgb8();
+        (turned.width(), turned.height(), turned.into_raw())
+    };
+    let (w, h, px) = oriented;
+    WorkingImage::from_rgb8(w, h, px).ok_or_else(|| corrupt(path, "empty picture"))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use image::{ImageEncoder, Rgb, Rgba};
+    use std::time::Instant;
+
+    fn opts() -> DecodeOptions {
+        DecodeOptions::default()
+    }
+
+    fn png_bytes(picture: &DynamicImage) -> Vec<u8> {
+        let mut out = Cursor::new(Vec::new());
+        picture.write_to(&mut out, image::ImageFormat::Png).unwrap();
+        out.into_inner()
+    }
+
+    fn jpeg_bytes(picture: &RgbImage) -> Vec<u8> {
+        let mut out = Vec::new();
+        image::codecs::jpeg::JpegEncoder::new_with_quality(&mut out, 90)
+            .write_image(
+                picture.as_raw(),
+                picture.width(),
+                picture.height(),
+                image::ExtendedColorType::Rgb8,
+            )
+            .unwrap();
+        out
+    }
+
+    fn gradient(w: u32, h: u32) -> RgbImage {
+        RgbImage::from_fn(w, h, |x, y| Rgb([(x * 255 / w) as u8, (y * 255 / h) as u8, 128]))
+    }
+
+    #[test]
+    fn large_jpeg_comes_out_at_working_size() {
+        let bytes = jpeg_bytes(&gradient(1200, 800));
+        let img = decode_bytes(&bytes, Path::new("g.jpg"), &opts()).unwrap();
+        assert_eq!((img.width(), img.height()), (160, 107));
+        // Left edge dark in red, right edge bright: the gradient survived scaling.
+        let red_at = |x: u32| img.rgb()[(50 * img.width() + x) as usize * 3];
+        assert!(red_at(2) < 20 && red_at(157) > 235, "{} {}", red_at(2), red_at(157));
+    }
+
+    #[test]
+    fn small_png_is_enlarged_to_working_size() {
+        let img = decode_bytes(
+            &png_bytes(&DynamicImage::ImageRgb8(gradient(64, 32))),
+            Path::new("s.png"),
+            &opts(),
+        )
+        .unwrap();
+        assert_eq!((img.width(), img.height()), (160, 80));
+    }
+
+    #[test]
+    fn exif_orientation_is_applied() {
+        // A JPEG with an APP1 Exif block holding Orientation = 6 (rotate 90° clockwise),
+        // built by hand: TIFF header "II*\0", one IFD entry, tag 0x0112, SHORT, count 1.
+        // source: Exif 2.32 (CIPA DC-008-2019) §4.6.4, tag 274 Orientation.
+        let plain = jpeg_bytes(&gradient(300, 100));
+        let tiff: [u8; 26] = [
+            b'I', b'I', 42, 0, 8, 0, 0, 0, // header, IFD at 8
+            1, 0, // one entry
+            0x12, 0x01, 3, 0, 1, 0, 0, 0, 6, 0, 0, 0, // Orientation = 6
+            0, 0, 0, 0, // no next IFD
+        ];
+        let mut app1 = vec![0xFF, 0xE1];
+        let len = (2 + 6 + tiff.len()) as u16;
+        app1.extend_from_slice(&len.to_be_bytes());
+        app1.extend_from_slice(b"Exif\0\0");
+        app1.extend_from_slice(&tiff);
+        let mut bytes = plain[..2].to_vec();
+        bytes.extend_from_slice(&app1);
+        bytes.extend_from_slice(&plain[2..]);
+        let img = decode_bytes(&bytes, Path::new("r.jpg"), &opts()).unwrap();
+        assert_eq!((img.width(), img.height()), (53, 160));
+    }
+
+    #[test]
+    fn alpha_is_flattened_on_white() {
+        let rgba = image::RgbaImage::from_fn(40, 40, |x, _| {
+            if x < 20 {
+                Rgba([0, 0, 0, 0]) // fully transparent black → white
+            } else {
+                Rgba([255, 0, 0, 255]) // opaque red stays red
+            }
+        });
+        let img = decode_bytes(
+            &png_bytes(&DynamicImage::ImageRgba8(rgba)),
+            Path::new("a.png"),
+            &opts(),
+        )
+        .unwrap();
+        let px = |x: u32, y: u32| {
+            let i = ((y * img.width() + x) * 3) as usize;
+            [img.rgb()[i], img.rgb()[i + 1], img.rgb()[i + 2]]
+        };
+        assert_eq!(px(5, 80), [255, 255, 255]);
+        assert_eq!(px(150, 80), [255, 0, 0]);
+    }
+
+    #[test]
+    fn sixteen_bit_grey_png_decodes() {
+        let grey = image::ImageBuffer::<image::Luma<u16>, _>::from_fn(30, 20, |x, _| {
+            image::Luma([(x as u16) * 2000])
+        });
+        let img = decode_bytes(
+            &png_bytes(&DynamicImage::ImageLuma16(grey)),
+            Path::new("g16.png"),
+            &opts(),
+        )
+        .unwrap();
+        assert_eq!((img.width(), img.height()), (160, 107));
+        let row = &img.rgb()[..img.width() as usize * 3];
+        assert!(row.chunks_exact(3).all(|p| p[0] == p[1] && p[1] == p[2]));
+        assert!(row[0] < row[row.len() - 3]);
+    }
+
+    #[test]
+    fn one_pixel_picture_decodes() {
+        let one = RgbImage::from_pixel(1, 1, Rgb([10, 200, 30]));
+        let img = decode_bytes(
+            &png_bytes(&DynamicImage::ImageRgb8(one)),
+            Path::new("1.png"),
+            &opts(),
+        )
+        .unwrap();
+        assert_eq!((img.width(), img.height()), (160, 160));
+        assert_eq!(&img.rgb()[..3], &[10, 200, 30]);
+    }
+
+    #[test]
+    fn cmyk_jpeg_is_converted() {
+        // 16×16 Adobe CMYK JPEG, left half pure cyan ink (C=255), right half no ink, made
+        // with Pillow 13.0.0: Image.new("CMYK", (16, 16)); paste((255, 0, 0, 0), (0, 0, 8, 16));
+        // save(q=95). Pillow writes the Adobe APP14 marker and inverted CMYK like Photoshop.
+        let bytes = include_bytes!("../testdata/cmyk-cyan-white.jpg");
+        let img = decode_bytes(bytes, Path::new("cmyk.jpg"), &opts()).unwrap();
+        let px = |x: u32| {
+            let i = ((80 * img.width() + x) * 3) as usize;
+            [img.rgb()[i], img.rgb()[i + 1], img.rgb()[i + 2]]
+        };
+        let [r, g, b] = px(10);
+        assert!(r < 30 && g > 225 && b > 225, "cyan side: {r} {g} {b}");
+        let [r, g, b] = px(150);
+        assert!(r > 225 && g > 225 && b > 225, "white side: {r} {g} {b}");
+    }
+
+    #[test]
+    fn truncated_jpeg_gives_error_naming_file_or_a_picture() {
+        let bytes = jpeg_bytes(&gradient(400, 300));
+        for cut in [10, 200, bytes.len() / 2] {
+            match decode_bytes(&bytes[..cut], Path::new("cut.jpg"), &opts()) {
+                Ok(img) => assert_eq!(img.width(), 160),
+                Err(e) => assert!(e.to_string().contains("cut.jpg"), "{e}"),
+            }
+        }
+        // Cut inside the header the data cannot be a picture.
+        let err = decode_bytes(&bytes[..10], Path::new("cut.jpg"), &opts()).unwrap_err();
+        assert!(matches!(err, VisionError::Corrupt { .. }), "{err}");
+    }
+
+    #[test]
+    fn garbage_is_unknown_format() {
+        let err = decode_bytes(b"hello, not a picture", Path::new("notes.jpg"), &opts())
+            .unwrap_err();
+        assert!(matches!(err, VisionError::UnknownFormat { .. }), "{err}");
+        assert!(err.to_string().contains("notes.jpg"));
+    }
+
+    #[test]
+    fn png_with_bad_crc_gives_picture_or_clear_error() {
+        let mut bytes = png_bytes(&DynamicImage::ImageRgb8(gradient(50, 50)));
+        // Flip a byte inside the IDAT data so its CRC no longer matches.
+        let idat = bytes.windows(4).position(|w| w == b"IDAT").unwrap();
+        bytes[idat + 10] ^= 0x55;
+        match decode_bytes(&bytes, Path::new("crc.png"), &opts()) {
+            Ok(img) => assert_eq!(img.width(), 160),
+            Err(e) => assert!(e.to_string().contains("crc.png"), "{e}"),
+        }
+    }
+
+    /// A PNG chunk: length, type, data, CRC-32 (ISO 3309, as the PNG spec annex D gives it).
+    fn png_chunk(kind: &[u8; 4], data: &[u8]) -> Vec<u8> {
+        let mut body = kind.to_vec();
+        body.extend_from_slice(data);
+        let mut crc = 0xFFFF_FFFFu32;
+        for &byte in &body {
+            crc ^= u32::from(byte);
+            for _ in 0..8 {
+                crc = if crc & 1 == 1 { 0xEDB8_8320 ^ (crc >> 1) } else { crc >> 1 };
+            }
+        }
+        let mut out = (data.len() as u32).to_be_bytes().to_vec();
+        out.extend_from_slice(&body);
+        out.extend_from_slice(&(!crc).to_be_bytes());
+        out
+    }
+
+    /// PNG signature, an IHDR declaring `w`×`h` 8-bit RGB, and an empty IDAT: all a
+    /// decoder needs to believe in a huge picture.
+    fn png_header(w: u32, h: u32) -> Vec<u8> {
+        let mut ihdr = w.to_be_bytes().to_vec();
+        ihdr.extend_from_slice(&h.to_be_bytes());
+        ihdr.extend_from_slice(&[8, 2, 0, 0, 0]);
+        let mut out = vec![0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A];
+        out.extend(png_chunk(b"IHDR", &ihdr));
+        out.extend(png_chunk(b"IDAT", &[]));
+        out
+    }
+
+    #[test]
+    fn decompression_bomb_header_is_refused_quickly() {
+        let started = Instant::now();
+        let err = decode_bytes(&png_header(60_000, 60_000), Path::new("bomb.png"), &opts())
+            .unwrap_err();
+        assert!(matches!(err, VisionError::TooLarge { .. }), "{err}");
+        assert!(err.to_string().contains("bomb.png"));
+        // Under the side limit but over the pixel limit: our own check names the sizes.
+        let err = decode_bytes(&png_header(20_000, 20_000), Path::new("wide.png"), &opts())
+            .unwrap_err();
+        assert!(err.to_string().contains("20000x20000"), "{err}");
+        assert!(started.elapsed().as_millis() < 500);
+    }
+
+    #[test]
+    fn jpeg_bomb_header_is_refused_before_decoding() {
+        // A real JPEG whose SOF0 frame header is patched to declare 65000×65000.
+        let mut bytes = jpeg_bytes(&gradient(16, 16));
+        let sof = bytes.windows(2).position(|w| w == [0xFF, 0xC0]).unwrap();
+        bytes[sof + 5..sof + 7].copy_from_slice(&65000u16.to_be_bytes());
+        bytes[sof + 7..sof + 9].copy_from_slice(&65000u16.to_be_bytes());
+        let err = decode_bytes(&bytes, Path::new("bomb.jpg"), &opts()).unwrap_err();
+        assert!(matches!(err, VisionError::TooLarge { .. }), "{err}");
+    }
+}

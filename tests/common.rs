@@ -1,0 +1,93 @@
+//! Helpers shared by the end-to-end tests: run the real binary on real folders.
+
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+pub fn tagweave(cwd: &Path, args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_tagweave"))
+        .args(args)
+        .current_dir(cwd)
+        .output()
+        .expect("the tagweave binary runs")
+}
+
+pub fn json(output: &Output) -> serde_json::Value {
+    serde_json::from_slice(&output.stdout).unwrap_or_else(|e| {
+        panic!(
+            "stdout is not JSON ({e}):\n{}\nstderr:\n{}",
+            String::from_utf8_lossy(&output.stdout),
+            String::from_utf8_lossy(&output.stderr)
+        )
+    })
+}
+
+pub fn repo_root() -> PathBuf {
+    PathBuf::from(concat!(env!("CARGO_MANIFEST_DIR"), "/../.."))
+}
+
+/// The shared evaluation sets, or `None` (with a clear line) where this clone has none.
+pub fn shared_eval(name: &str) -> Option<PathBuf> {
+    let dir = repo_root().join("../shared/eval").join(name);
+    if dir.is_dir() {
+        Some(dir)
+    } else {
+        eprintln!("skipped: {} is absent in this clone", dir.display());
+        None
+    }
+}
+
+/// Copies a folder tree (files and folders only) so tests never write beside shared data.
+pub fn copy_tree(from: &Path, to: &Path) {
+    std::fs::create_dir_all(to).unwrap();
+    for entry in std::fs::read_dir(from).unwrap() {
+        let entry = entry.unwrap();
+        let target = to.join(entry.file_name());
+        let kind = entry.file_type().unwrap();
+        if kind.is_dir() {
+            if entry.file_name() != ".tagweave" {
+                copy_tree(&entry.path(), &target);
+            }
+        } else if kind.is_file() {
+            std::fs::copy(entry.path(), &target).unwrap();
+        }
+    }
+}
+
+/// One row of demo-collection/TRUTH.csv (its list fields are `;`-separated).
+pub struct TruthRow {
+    pub file: String,
+    pub sidecar: String,
+    pub true_tags: Vec<String>,
+    pub written_tags: Vec<String>,
+    pub removed_tags: Vec<String>,
+    pub false_tags: Vec<String>,
+}
+
+pub fn demo_truth() -> Vec<TruthRow> {
+    let text = std::fs::read_to_string(repo_root().join("demo-collection/TRUTH.csv")).unwrap();
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let col = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let list = |s: &str| -> Vec<String> {
+        s.split(';')
+            .filter(|t| !t.is_empty())
+            .map(str::to_string)
+            .collect()
+    };
+    lines
+        .filter(|l| !l.is_empty())
+        .map(|line| {
+            let f: Vec<&str> = line.split(',').collect();
+            TruthRow {
+                file: f[col("file")].to_string(),
+                sidecar: f[col("sidecar")].to_string(),
+                true_tags: list(f[col("true_tags")]),
+                written_tags: list(f[col("written_tags")]),
+                removed_tags: list(f[col("removed_tags")]),
+                false_tags: list(f[col("false_tags")]),
+            }
+        })
+        .collect()
+}

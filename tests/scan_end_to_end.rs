@@ -1,0 +1,127 @@
+//! `tagweave scan` and `tagweave tags` run as a user would run them, on real folders.
+
+mod common;
+
+use std::collections::BTreeSet;
+use std::time::{Duration, SystemTime};
+
+use common::*;
+
+fn demo_copy() -> (tempfile::TempDir, std::path::PathBuf) {
+    let temp = tempfile::tempdir().unwrap();
+    let folder = temp.path().join("archive");
+    copy_tree(&repo_root().join("demo-collection"), &folder);
+    (temp, folder)
+}
+
+#[test]
+fn scanning_the_demo_archive_counts_what_truth_csv_says() {
+    let (_temp, folder) = demo_copy();
+    let truth = demo_truth();
+    let out = tagweave(&folder, &["scan", ".", "--json"]);
+    let report = json(&out);
+    let expected_untagged = truth.iter().filter(|r| r.written_tags.is_empty()).count();
+    let distinct: BTreeSet<&String> = truth.iter().flat_map(|r| &r.written_tags).collect();
+    assert_eq!(report["items"], truth.len(), "{report}");
+    assert_eq!(report["untagged"], expected_untagged, "{report}");
+    assert_eq!(
+        report["tagged"],
+        truth.len() - expected_untagged,
+        "{report}"
+    );
+    assert_eq!(report["tags"], distinct.len(), "{report}");
+    assert_eq!(report["added"], truth.len(), "{report}");
+    assert!(
+        truth.iter().any(|r| r.sidecar == "xmp") && truth.iter().any(|r| r.sidecar == "none"),
+        "the demo archive exercises XMP sidecars and untagged pictures"
+    );
+    assert_eq!(out.status.code(), Some(0), "{report}");
+
+    // The tag list agrees with the truth file's written tags.
+    let tags = json(&tagweave(&folder, &["tags", "--json"]));
+    let top = &tags["tags"][0];
+    let top_count = truth
+        .iter()
+        .filter(|r| r.written_tags.iter().any(|t| top["tag"] == t.as_str()))
+        .count();
+    assert_eq!(top["pictures"], top_count, "{tags}");
+}
+
+#[test]
+fn a_second_scan_reads_only_what_changed() {
+    let (_temp, folder) = demo_copy();
+    let truth = demo_truth();
+    let first = json(&tagweave(&folder, &["scan", ".", "--json"]));
+    assert_eq!(first["added"], truth.len());
+
+    let with_text = truth.iter().find(|r| r.sidecar == "txt").unwrap();
+    let stem = with_text.file.rsplit_once('.').unwrap().0;
+    let sidecar = folder.join(format!("{stem}.txt"));
+    let mut text = std::fs::read_to_string(&sidecar).unwrap();
+    text.push_str("\nfreshly-added-tag\n");
+    std::fs::write(&sidecar, text).unwrap();
+
+    let touched = truth.iter().rev().find(|r| r.sidecar == "none").unwrap();
+    let picture = std::fs::File::options()
+        .write(true)
+        .open(folder.join(&touched.file))
+        .unwrap();
+    picture
+        .set_modified(SystemTime::now() + Duration::from_secs(5))
+        .unwrap();
+
+    let deleted = &truth[truth.len() / 2];
+    std::fs::remove_file(folder.join(&deleted.file)).unwrap();
+
+    let second = json(&tagweave(&folder, &["scan", ".", "--json"]));
+    assert_eq!(second["refreshed"], 2, "{second}");
+    assert_eq!(second["removed"], 1, "{second}");
+    assert_eq!(second["added"], 0, "{second}");
+    assert_eq!(second["unchanged"], truth.len() - 3, "{second}");
+    assert_eq!(second["items"], truth.len() - 1, "{second}");
+    let tags = json(&tagweave(&folder, &["tags", "--json"]));
+    assert!(tags["tags"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|t| t["tag"] == "freshly-added-tag" && t["pictures"] == 1));
+}
+
+#[test]
+fn a_store_held_by_another_process_is_refused_with_a_clear_message() {
+    let (_temp, folder) = demo_copy();
+    let _held = tagweave_store::Store::open_or_create(&folder.join(".tagweave"), &folder).unwrap();
+    let out = tagweave(&folder, &["scan", "."]);
+    assert_eq!(out.status.code(), Some(1));
+    let message = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        message.contains("in use") && message.contains(&std::process::id().to_string()),
+        "{message}"
+    );
+}
+
+#[test]
+fn commands_outside_any_collection_say_how_to_start() {
+    let temp = tempfile::tempdir().unwrap();
+    let out = tagweave(temp.path(), &["tags"]);
+    assert_eq!(out.status.code(), Some(1));
+    let message = String::from_utf8_lossy(&out.stderr);
+    assert!(message.contains("tagweave scan"), "{message}");
+}
+
+#[test]
+fn scanning_the_shared_evaluation_sets_counts_every_picture() {
+    // source: ../shared/eval/*/STATS.md (749 emoji pictures, 316 stamp pictures, all tagged)
+    for (name, pictures, distinct) in [("emoji-twemoji", 749, 2088), ("tuxpaint-stamps", 316, 503)]
+    {
+        let Some(shared) = shared_eval(name) else {
+            continue;
+        };
+        let temp = tempfile::tempdir().unwrap();
+        copy_tree(&shared, temp.path());
+        let report = json(&tagweave(temp.path(), &["scan", ".", "--json"]));
+        assert_eq!(report["items"], pictures, "{name}: {report}");
+        assert_eq!(report["tagged"], pictures, "{name}: {report}");
+        assert_eq!(report["tags"], distinct, "{name}: {report}");
+    }
+}
