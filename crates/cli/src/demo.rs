@@ -4,7 +4,6 @@ use anyhow::bail;
 
 use crate::exit::Outcome;
 use crate::scan::{open_for_scan, print_summary, scan_with_progress, ScanArgs};
-use crate::StoreArgs;
 
 #[derive(clap::Args)]
 pub struct DemoArgs {
@@ -33,16 +32,9 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
             folder.display()
         );
     }
-    let scan_args = ScanArgs {
-        folder,
-        store: StoreArgs { store: None },
-        json: false,
-        verbose: false,
-        follow_symlinks: false,
-        rebuild: false,
-    };
+    let scan_args = ScanArgs::plain(folder);
     let store = open_for_scan(&scan_args)?;
-    let report = scan_with_progress(&store, false)?;
+    let report = scan_with_progress(&store, &scan_args.options())?;
     println!("== Step 1: index the invented Saltmarrow archive");
     print_summary(&store, &report, false);
     println!();

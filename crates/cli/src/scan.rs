@@ -25,11 +25,17 @@ pub struct ScanArgs {
     /// Throw the store away and build it again from the pictures and sidecars.
     #[arg(long)]
     pub rebuild: bool,
+    /// Learn the picture features again (patch dictionary, standardisation) and redo them.
+    #[arg(long)]
+    pub relearn: bool,
+    /// Seed for every random choice made while learning features.
+    #[arg(long, default_value_t = 7)]
+    pub seed: u64,
 }
 
 pub fn run(args: &ScanArgs) -> anyhow::Result<Outcome> {
     let store = open_for_scan(args)?;
-    let report = scan_with_progress(&store, args.follow_symlinks)?;
+    let report = scan_with_progress(&store, &args.options())?;
     if args.json {
         println!("{}", serde_json::to_string(&report)?);
     } else {
@@ -40,6 +46,31 @@ pub fn run(args: &ScanArgs) -> anyhow::Result<Outcome> {
     } else {
         Outcome::DoneWithSkips
     })
+}
+
+impl ScanArgs {
+    /// The arguments a plain `tagweave scan FOLDER` would have.
+    pub fn plain(folder: PathBuf) -> ScanArgs {
+        ScanArgs {
+            folder,
+            store: StoreArgs { store: None },
+            json: false,
+            verbose: false,
+            follow_symlinks: false,
+            rebuild: false,
+            relearn: false,
+            seed: 7,
+        }
+    }
+
+    pub fn options(&self) -> ScanOptions {
+        ScanOptions {
+            follow_symlinks: self.follow_symlinks,
+            relearn: self.relearn,
+            seed: self.seed,
+            ..ScanOptions::default()
+        }
+    }
 }
 
 pub fn open_for_scan(args: &ScanArgs) -> anyhow::Result<Store> {
@@ -56,17 +87,19 @@ pub fn open_for_scan(args: &ScanArgs) -> anyhow::Result<Store> {
     Ok(Store::open_or_create(&dir, &args.folder)?)
 }
 
-pub fn scan_with_progress(store: &Store, follow_symlinks: bool) -> anyhow::Result<ScanReport> {
+pub fn scan_with_progress(store: &Store, options: &ScanOptions) -> anyhow::Result<ScanReport> {
     let bar = progress::bar("reading pictures");
-    let report =
-        tagweave_indexer::scan(
-            store,
-            &ScanOptions { follow_symlinks },
-            &|event| match event {
-                ScanProgress::Crawled { to_read, .. } => bar.set_length(to_read as u64),
-                ScanProgress::Read { done, .. } => bar.set_position(done as u64),
-            },
-        )?;
+    let report = tagweave_indexer::scan(store, options, &|event| {
+        let (message, done, total) = match event {
+            ScanProgress::Crawled { to_read, .. } => ("reading pictures", 0, to_read),
+            ScanProgress::Read { done, total } => ("reading pictures", done, total),
+            ScanProgress::Learning { done, total } => ("learning patch dictionary", done, total),
+            ScanProgress::Encoding { done, total } => ("describing pictures", done, total),
+        };
+        bar.set_message(message);
+        bar.set_length(total as u64);
+        bar.set_position(done as u64);
+    })?;
     bar.finish_and_clear();
     Ok(report)
 }
@@ -95,6 +128,17 @@ pub fn print_summary(store: &Store, report: &ScanReport, verbose: bool) {
             report.other_files
         );
     }
+    let features = &report.features;
+    println!(
+        "  features  {:>6}  pictures described ({} values each{})",
+        features.encoded,
+        features.dimension,
+        if features.learned {
+            ", extractor learned now"
+        } else {
+            ""
+        }
+    );
     let skipped: usize = report.skipped.values().sum();
     if skipped > 0 {
         let groups: Vec<String> = report

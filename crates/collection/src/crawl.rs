@@ -66,6 +66,9 @@ pub enum SkipReason {
     Vanished,
     /// The path is not valid UTF-8, so it cannot be stored or shown faithfully.
     BadName,
+    /// Looks like a picture but its pixels cannot be decoded; the text says why and what
+    /// to do (it comes from the decoder, which names the file).
+    BadPicture(String),
 }
 
 impl SkipReason {
@@ -80,6 +83,7 @@ impl SkipReason {
             SkipReason::BadSidecar { .. } => "bad sidecar",
             SkipReason::Vanished => "vanished",
             SkipReason::BadName => "bad file name",
+            SkipReason::BadPicture(_) => "damaged picture",
         }
     }
 }
@@ -121,6 +125,7 @@ impl fmt::Display for Skipped {
                 f,
                 "{path}: skipped, its name is not valid UTF-8; rename it"
             ),
+            SkipReason::BadPicture(why) => write!(f, "skipped: {why}"),
         }
     }
 }

@@ -1,6 +1,7 @@
 //! Keeps a store in step with its folder: crawl, read what changed, drop what is gone.
 //!
-//! Work is written in batches, each flushed before the next starts, so a run stopped at
+//! A scan has two stages: items (pictures and their sidecar tags) and features (learned
+//! once per collection, then one vector per picture). Work is written in batches, each flushed before the next starts, so a run stopped at
 //! any moment leaves a store that a rerun simply completes.
 
 use std::collections::{BTreeMap, HashMap, HashSet};
@@ -12,6 +13,10 @@ use tagweave_collection::{
     crawl, is_unchanged, read_item, CrawlOptions, ItemRecord, Note, Skipped, Vocabulary,
 };
 use tagweave_store::{Store, StoreError};
+use tagweave_vision::{FeatureOptions, VisionError};
+
+mod features;
+pub use features::{FeatureSummary, FeatureTable, EXTRACTOR_BLOB, FEATURES, STANDARDISER_BLOB};
 
 /// How many pictures are read between two flushes of the store.
 const BATCH: usize = 64;
@@ -22,11 +27,32 @@ pub enum IndexError {
     Collection(#[from] tagweave_collection::CollectionError),
     #[error(transparent)]
     Store(#[from] StoreError),
+    #[error(transparent)]
+    Vision(#[from] VisionError),
+    #[error("the store disagrees with itself: {0}")]
+    Inconsistent(String),
 }
 
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone)]
 pub struct ScanOptions {
     pub follow_symlinks: bool,
+    /// Learn the feature extractor again even when the store has one.
+    pub relearn: bool,
+    /// Used only when the extractor is (re)learned; a stored one keeps its own.
+    pub features: FeatureOptions,
+    /// Seeds every random choice of learning.
+    pub seed: u64,
+}
+
+impl Default for ScanOptions {
+    fn default() -> Self {
+        ScanOptions {
+            follow_symlinks: false,
+            relearn: false,
+            features: FeatureOptions::default(),
+            seed: 7,
+        }
+    }
 }
 
 /// Where a scan is, for the caller to render.
@@ -36,6 +62,10 @@ pub enum ScanProgress {
     Crawled { pictures: usize, to_read: usize },
     /// Pictures read so far out of those that needed reading.
     Read { done: usize, total: usize },
+    /// Learning the feature extractor: pictures decoded, then k-means rounds.
+    Learning { done: usize, total: usize },
+    /// Pictures described so far out of those without features.
+    Encoding { done: usize, total: usize },
 }
 
 /// What a scan did and what the collection now holds.
@@ -54,6 +84,7 @@ pub struct ScanReport {
     pub other_files: usize,
     /// Files passed over, grouped by reason.
     pub skipped: BTreeMap<&'static str, usize>,
+    pub features: FeatureSummary,
     pub seconds: f64,
     /// Every skipped file with its reason, for the detailed listing.
     #[serde(skip)]
@@ -84,32 +115,31 @@ pub fn scan(
         .into_iter()
         .map(|item| (item.rel_path.clone(), item))
         .collect();
-    let (unchanged, to_read): (Vec<_>, Vec<_>) = found.candidates.iter().partition(|c| {
-        previous
-            .get(&c.rel_path)
-            .is_some_and(|p| is_unchanged(p, c))
-    });
+    let to_read: Vec<_> = found
+        .candidates
+        .iter()
+        .filter(|c| {
+            !previous
+                .get(&c.rel_path)
+                .is_some_and(|p| is_unchanged(p, c))
+        })
+        .collect();
     progress(ScanProgress::Crawled {
         pictures: found.candidates.len(),
         to_read: to_read.len(),
     });
 
-    let mut kept: HashSet<String> = unchanged.iter().map(|c| c.rel_path.clone()).collect();
-    let (mut added, mut refreshed, mut done) = (0, 0, 0);
+    let mut read: HashSet<String> = HashSet::new();
+    let mut done = 0;
     for chunk in to_read.chunks(BATCH) {
         let results: Vec<_> = chunk.par_iter().map(|c| read_item(&root, c)).collect();
         let mut batch = Vec::with_capacity(results.len());
         for result in results {
             match result {
-                Ok(read) => {
-                    if previous.contains_key(&read.item.rel_path) {
-                        refreshed += 1;
-                    } else {
-                        added += 1;
-                    }
-                    kept.insert(read.item.rel_path.clone());
-                    notes.extend(read.notes);
-                    batch.push(read.item);
+                Ok(item) => {
+                    read.insert(item.item.rel_path.clone());
+                    notes.extend(item.notes);
+                    batch.push(item.item);
                 }
                 Err(skip) => skipped_files.push(skip),
             }
@@ -122,14 +152,42 @@ pub fn scan(
         });
     }
 
-    let removals: Vec<String> = previous
+    // A known picture that needed reading but could not be read this time (its sidecar
+    // broke, say) leaves the store too: stale tags must not outlive their sidecar.
+    let needed_reading: HashSet<&str> = to_read.iter().map(|c| c.rel_path.as_str()).collect();
+    let present: HashSet<&str> = found
+        .candidates
+        .iter()
+        .map(|c| c.rel_path.as_str())
+        .collect();
+    let gone: Vec<String> = previous
         .values()
-        .filter(|item| !kept.contains(&item.rel_path))
+        .filter(|item| {
+            !present.contains(item.rel_path.as_str())
+                || (needed_reading.contains(item.rel_path.as_str())
+                    && !read.contains(&item.rel_path))
+        })
         .map(|item| item.id.clone())
         .collect();
-    store.update_items(&[], &removals)?;
+    store.update_items(&[], &gone)?;
 
     let items = store.items()?;
+    let (feature_summary, failures) = features::update(store, &items, options, progress)?;
+    // A picture that cannot be decoded is not kept: the next scan tries it again.
+    let undecodable: Vec<String> = failures.iter().map(|(id, _)| id.clone()).collect();
+    store.update_items(&[], &undecodable)?;
+    skipped_files.extend(failures.into_iter().map(|(_, skip)| skip));
+    if feature_summary.learned
+        || feature_summary.encoded > 0
+        || !gone.is_empty()
+        || !undecodable.is_empty()
+    {
+        features::refit_standardiser(store)?;
+    }
+
+    let items = store.items()?;
+    let now: HashSet<&str> = items.iter().map(|i| i.rel_path.as_str()).collect();
+    let was = |rel: &str| previous.contains_key(rel);
     let tagged = items.iter().filter(|item| !item.tags.is_empty()).count();
     let mut skipped = BTreeMap::new();
     for skip in &skipped_files {
@@ -140,12 +198,22 @@ pub fn scan(
         tagged,
         untagged: items.len() - tagged,
         tags: Vocabulary::from_tag_lists(items.iter().map(|item| item.tags.as_slice())).len(),
-        added,
-        refreshed,
-        unchanged: unchanged.len(),
-        removed: removals.len(),
+        added: now.iter().filter(|rel| !was(rel)).count(),
+        refreshed: now
+            .iter()
+            .filter(|rel| was(rel) && read.contains(**rel))
+            .count(),
+        unchanged: now
+            .iter()
+            .filter(|rel| was(rel) && !read.contains(**rel))
+            .count(),
+        removed: previous
+            .keys()
+            .filter(|rel| !now.contains(rel.as_str()))
+            .count(),
         other_files: found.other_files.len(),
         skipped,
+        features: feature_summary,
         seconds: started.elapsed().as_secs_f64(),
         skipped_files,
         notes,

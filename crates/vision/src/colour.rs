@@ -135,7 +135,13 @@ impl ColourOptions {
         let lab: Vec<[f32; 3]> = img
             .rgb()
             .chunks_exact(3)
-            .map(|p| linear_to_lab([table[p[0] as usize], table[p[1] as usize], table[p[2] as usize]]))
+            .map(|p| {
+                linear_to_lab([
+                    table[p[0] as usize],
+                    table[p[1] as usize],
+                    table[p[2] as usize],
+                ])
+            })
             .collect();
         self.histograms(&lab, w, h, out);
         self.moments(&lab, w, h, out);
@@ -192,7 +198,9 @@ impl ColourOptions {
                 let n = n.max(1) as f64;
                 let mean = [s[0] / n, s[1] / n, s[2] / n];
                 out.extend(mean.iter().map(|&m| m as f32));
-                out.extend((0..3).map(|c| (s[3 + c] / n - mean[c] * mean[c]).max(0.0).sqrt() as f32));
+                out.extend(
+                    (0..3).map(|c| (s[3 + c] / n - mean[c] * mean[c]).max(0.0).sqrt() as f32),
+                );
             }
         }
     }
@@ -286,7 +294,10 @@ mod tests {
             let ours = srgb_to_lab(c);
             let theirs: Lab<D65, f32> = Srgb::new(c[0], c[1], c[2]).into_color();
             let diff = [ours[0] - theirs.l, ours[1] - theirs.a, ours[2] - theirs.b];
-            assert!(diff.iter().all(|d| d.abs() < 1e-3), "{c:?}: ours {ours:?} palette {theirs:?}");
+            assert!(
+                diff.iter().all(|d| d.abs() < 1e-3),
+                "{c:?}: ours {ours:?} palette {theirs:?}"
+            );
         }
     }
 
@@ -314,7 +325,9 @@ mod tests {
             moment_grids: vec![1, 2],
             ..ColourOptions::default()
         };
-        let rgb: Vec<u8> = (0..40 * 30).flat_map(|i| [(i % 256) as u8, 90, 200]).collect();
+        let rgb: Vec<u8> = (0..40 * 30)
+            .flat_map(|i| [(i % 256) as u8, 90, 200])
+            .collect();
         let img = WorkingImage::from_rgb8(40, 30, rgb).unwrap();
         let mut out = Vec::new();
         opts.features(&img, &mut out);

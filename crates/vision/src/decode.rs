@@ -111,9 +111,17 @@ fn corrupt(path: &Path, detail: impl ToString) -> VisionError {
     }
 }
 
-fn check_size(path: &Path, width: u64, height: u64, opts: &DecodeOptions) -> Result<(), VisionError> {
+fn check_size(
+    path: &Path,
+    width: u64,
+    height: u64,
+    opts: &DecodeOptions,
+) -> Result<(), VisionError> {
     if width == 0 || height == 0 {
-        return Err(corrupt(path, format!("the header declares {width}x{height} pixels")));
+        return Err(corrupt(
+            path,
+            format!("the header declares {width}x{height} pixels"),
+        ));
     }
     let too_large = |limit: String| VisionError::TooLarge {
         path: path.to_path_buf(),
@@ -135,7 +143,11 @@ fn target_dims(width: u32, height: u32, long_side: u32) -> (u32, u32) {
     (side(width), side(height))
 }
 
-fn decode_jpeg(bytes: &[u8], path: &Path, opts: &DecodeOptions) -> Result<WorkingImage, VisionError> {
+fn decode_jpeg(
+    bytes: &[u8],
+    path: &Path,
+    opts: &DecodeOptions,
+) -> Result<WorkingImage, VisionError> {
     let mut decoder = jpeg_decoder::Decoder::new(bytes);
     decoder.read_info().map_err(|e| corrupt(path, e))?;
     let info = decoder
@@ -168,7 +180,10 @@ fn decode_jpeg(bytes: &[u8], path: &Path, opts: &DecodeOptions) -> Result<Workin
             .collect(),
     };
     if rgb.len() != usize::from(sw) * usize::from(sh) * 3 {
-        return Err(corrupt(path, "decoded pixel count does not match the header"));
+        return Err(corrupt(
+            path,
+            "decoded pixel count does not match the header",
+        ));
     }
     let orientation = decoder
         .exif_data()
@@ -190,7 +205,11 @@ fn image_error(path: &Path, error: ImageError) -> VisionError {
     }
 }
 
-fn decode_other(bytes: &[u8], path: &Path, opts: &DecodeOptions) -> Result<WorkingImage, VisionError> {
+fn decode_other(
+    bytes: &[u8],
+    path: &Path,
+    opts: &DecodeOptions,
+) -> Result<WorkingImage, VisionError> {
     let mut reader = ImageReader::new(Cursor::new(bytes))
         .with_guessed_format()
         .map_err(|e| corrupt(path, e))?;
@@ -299,7 +318,9 @@ mod tests {
     }
 
     fn gradient(w: u32, h: u32) -> RgbImage {
-        RgbImage::from_fn(w, h, |x, y| Rgb([(x * 255 / w) as u8, (y * 255 / h) as u8, 128]))
+        RgbImage::from_fn(w, h, |x, y| {
+            Rgb([(x * 255 / w) as u8, (y * 255 / h) as u8, 128])
+        })
     }
 
     #[test]
@@ -309,7 +330,12 @@ mod tests {
         assert_eq!((img.width(), img.height()), (160, 107));
         // Left edge dark in red, right edge bright: the gradient survived scaling.
         let red_at = |x: u32| img.rgb()[(50 * img.width() + x) as usize * 3];
-        assert!(red_at(2) < 20 && red_at(157) > 235, "{} {}", red_at(2), red_at(157));
+        assert!(
+            red_at(2) < 20 && red_at(157) > 235,
+            "{} {}",
+            red_at(2),
+            red_at(157)
+        );
     }
 
     #[test]
@@ -433,8 +459,8 @@ mod tests {
 
     #[test]
     fn garbage_is_unknown_format() {
-        let err = decode_bytes(b"hello, not a picture", Path::new("notes.jpg"), &opts())
-            .unwrap_err();
+        let err =
+            decode_bytes(b"hello, not a picture", Path::new("notes.jpg"), &opts()).unwrap_err();
         assert!(matches!(err, VisionError::UnknownFormat { .. }), "{err}");
         assert!(err.to_string().contains("notes.jpg"));
     }
@@ -459,7 +485,11 @@ mod tests {
         for &byte in &body {
             crc ^= u32::from(byte);
             for _ in 0..8 {
-                crc = if crc & 1 == 1 { 0xEDB8_8320 ^ (crc >> 1) } else { crc >> 1 };
+                crc = if crc & 1 == 1 {
+                    0xEDB8_8320 ^ (crc >> 1)
+                } else {
+                    crc >> 1
+                };
             }
         }
         let mut out = (data.len() as u32).to_be_bytes().to_vec();
@@ -483,13 +513,13 @@ mod tests {
     #[test]
     fn decompression_bomb_header_is_refused_quickly() {
         let started = Instant::now();
-        let err = decode_bytes(&png_header(60_000, 60_000), Path::new("bomb.png"), &opts())
-            .unwrap_err();
+        let err =
+            decode_bytes(&png_header(60_000, 60_000), Path::new("bomb.png"), &opts()).unwrap_err();
         assert!(matches!(err, VisionError::TooLarge { .. }), "{err}");
         assert!(err.to_string().contains("bomb.png"));
         // Under the side limit but over the pixel limit: our own check names the sizes.
-        let err = decode_bytes(&png_header(20_000, 20_000), Path::new("wide.png"), &opts())
-            .unwrap_err();
+        let err =
+            decode_bytes(&png_header(20_000, 20_000), Path::new("wide.png"), &opts()).unwrap_err();
         assert!(err.to_string().contains("20000x20000"), "{err}");
         assert!(started.elapsed().as_millis() < 500);
     }

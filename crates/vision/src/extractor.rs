@@ -83,7 +83,10 @@ impl FeatureExtractor {
         }
         if samples.is_empty() {
             return Err(VisionError::NotEnoughData(match first_error {
-                Some(e) => format!("none of the {} pictures tried could be read; first: {e}", chosen.len()),
+                Some(e) => format!(
+                    "none of the {} pictures tried could be read; first: {e}",
+                    chosen.len()
+                ),
                 None => "no pictures given".to_string(),
             }));
         }
@@ -98,7 +101,9 @@ impl FeatureExtractor {
         seed: u64,
         progress: Progress,
     ) -> Result<Self, VisionError> {
-        opts.colour.validate().map_err(VisionError::InvalidOptions)?;
+        opts.colour
+            .validate()
+            .map_err(VisionError::InvalidOptions)?;
         let dictionary = PatchDictionary::learn(samples, &opts.patches, seed, progress)?;
         Ok(Self {
             decode: opts.decode.clone(),
@@ -168,7 +173,11 @@ impl Standardiser {
             .zip(&mean)
             .map(|(q, m)| {
                 let sd = (q / n - m * m).max(0.0).sqrt();
-                if sd < MIN_STD { 1.0 } else { sd as f32 }
+                if sd < MIN_STD {
+                    1.0
+                } else {
+                    sd as f32
+                }
             })
             .collect();
         Self {
@@ -230,12 +239,17 @@ mod tests {
     }
 
     fn all_feature_bytes(paths: &[PathBuf], seed: u64, threads: usize) -> Vec<u8> {
-        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
         pool.install(|| {
             let fx = FeatureExtractor::learn(paths, &opts(), seed, &|_, _| {}).unwrap();
-            let rows: Vec<Vec<f32>> =
-                paths.par_iter().map(|p| fx.features(p).unwrap()).collect();
-            rows.iter().flatten().flat_map(|v| v.to_le_bytes()).collect()
+            let rows: Vec<Vec<f32>> = paths.par_iter().map(|p| fx.features(p).unwrap()).collect();
+            rows.iter()
+                .flatten()
+                .flat_map(|v| v.to_le_bytes())
+                .collect()
         })
     }
 
@@ -247,7 +261,11 @@ mod tests {
         let two = all_feature_bytes(&paths, 11, 2);
         assert_eq!(one, two);
         assert_eq!(one, all_feature_bytes(&paths, 11, 2));
-        assert_ne!(one, all_feature_bytes(&paths, 12, 2), "the seed should matter");
+        assert_ne!(
+            one,
+            all_feature_bytes(&paths, 12, 2),
+            "the seed should matter"
+        );
     }
 
     #[test]

@@ -51,12 +51,17 @@ fn assign_block(block: ArrayView2<f32>, centres: &Array2<f32>, metric: Metric) -
         let best = row
             .iter()
             .enumerate()
-            .fold((0, f32::NEG_INFINITY), |acc, (j, &s)| if s > acc.1 { (j, s) } else { acc })
+            .fold(
+                (0, f32::NEG_INFINITY),
+                |acc, (j, &s)| if s > acc.1 { (j, s) } else { acc },
+            )
             .0;
         stats.labels.push(best);
         stats.counts[best] += 1;
         let mut sum = stats.sums.row_mut(best);
-        sum.iter_mut().zip(x.iter()).for_each(|(s, &v)| *s += f64::from(v));
+        sum.iter_mut()
+            .zip(x.iter())
+            .for_each(|(s, &v)| *s += f64::from(v));
     }
     stats
 }
@@ -78,7 +83,11 @@ fn assign(data: ArrayView2<f32>, centres: &Array2<f32>, metric: Metric) -> Block
     for b in blocks {
         total.labels.extend(b.labels);
         total.sums += &b.sums;
-        total.counts.iter_mut().zip(b.counts).for_each(|(t, c)| *t += c);
+        total
+            .counts
+            .iter_mut()
+            .zip(b.counts)
+            .for_each(|(t, c)| *t += c);
     }
     total
 }
@@ -187,7 +196,14 @@ mod tests {
         let data = iris();
         let init = ndarray::stack![Axis(0), data.row(0), data.row(50), data.row(100)];
         let mut rng = ChaCha8Rng::seed_from_u64(0);
-        let fit = lloyd(data.view(), init, Metric::Euclidean, 300, &mut rng, &|_, _| {});
+        let fit = lloyd(
+            data.view(),
+            init,
+            Metric::Euclidean,
+            300,
+            &mut rng,
+            &|_, _| {},
+        );
         // source: scikit-learn 1.9.1 (numpy 2.4.6), run for this test:
         //   X = load_iris().data
         //   KMeans(n_clusters=3, init=X[[0, 50, 100]], n_init=1, algorithm="lloyd",
@@ -196,19 +212,33 @@ mod tests {
         //     cluster_centers_ below.
         let expected = array![
             [5.006, 3.428, 1.462, 0.246],
-            [5.901_612_903_2, 2.748_387_096_8, 4.393_548_387_1, 1.433_870_967_7],
+            [
+                5.901_612_903_2,
+                2.748_387_096_8,
+                4.393_548_387_1,
+                1.433_870_967_7
+            ],
             [6.85, 3.073_684_210_5, 5.742_105_263_2, 2.071_052_631_6],
         ];
-        let err = (&fit.centres - &expected).iter().fold(0f32, |m, x| m.max(x.abs()));
+        let err = (&fit.centres - &expected)
+            .iter()
+            .fold(0f32, |m, x| m.max(x.abs()));
         assert!(err < 1e-4, "centres differ by {err}: {}", fit.centres);
         let inertia: f64 = data
             .rows()
             .into_iter()
             .map(|x| {
                 let dist = |c: ndarray::ArrayView1<f32>| {
-                    x.iter().zip(c).map(|(a, b)| f64::from(a - b).powi(2)).sum::<f64>()
+                    x.iter()
+                        .zip(c)
+                        .map(|(a, b)| f64::from(a - b).powi(2))
+                        .sum::<f64>()
                 };
-                fit.centres.rows().into_iter().map(dist).fold(f64::INFINITY, f64::min)
+                fit.centres
+                    .rows()
+                    .into_iter()
+                    .map(dist)
+                    .fold(f64::INFINITY, f64::min)
             })
             .sum();
         assert!((inertia - 78.851_441_426_146).abs() < 1e-3, "{inertia}");
@@ -227,11 +257,22 @@ mod tests {
             len * if main { 1.0 } else { rng.random::<f32>() * 0.2 }
         });
         let init = ndarray::stack![Axis(0), data.row(198), data.row(201)];
-        let fit = lloyd(data.view(), init, Metric::Spherical, 50, &mut rng, &|_, _| {});
+        let fit = lloyd(
+            data.view(),
+            init,
+            Metric::Spherical,
+            50,
+            &mut rng,
+            &|_, _| {},
+        );
         for c in fit.centres.rows() {
             assert!((c.dot(&c) - 1.0).abs() < 1e-5);
         }
         let (a, b) = (fit.centres.row(0), fit.centres.row(1));
-        assert!(a[0].max(b[0]) > 0.97 && a[1].max(b[1]) > 0.97, "{}", fit.centres);
+        assert!(
+            a[0].max(b[0]) > 0.97 && a[1].max(b[1]) > 0.97,
+            "{}",
+            fit.centres
+        );
     }
 }

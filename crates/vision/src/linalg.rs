@@ -113,7 +113,9 @@ mod tests {
         let err = (&rebuilt - &sym).iter().fold(0f64, |m, x| m.max(x.abs()));
         assert!(err < 1e-10, "reconstruction error {err}");
         let gram = vectors.t().dot(&vectors);
-        let err = (&gram - &Array2::<f64>::eye(30)).iter().fold(0f64, |m, x| m.max(x.abs()));
+        let err = (&gram - &Array2::<f64>::eye(30))
+            .iter()
+            .fold(0f64, |m, x| m.max(x.abs()));
         assert!(err < 1e-10, "orthonormality error {err}");
     }
 
@@ -136,7 +138,9 @@ mod tests {
         let whitened = (&data - &mean).dot(&w);
         let (m2, cov) = mean_and_covariance(whitened.view());
         assert!(m2.iter().all(|m| m.abs() < 1e-3), "{m2}");
-        let err = (&cov - &Array2::<f64>::eye(12)).iter().fold(0f64, |m, x| m.max(x.abs()));
+        let err = (&cov - &Array2::<f64>::eye(12))
+            .iter()
+            .fold(0f64, |m, x| m.max(x.abs()));
         assert!(err < 1e-3, "max deviation from identity {err}");
         // ZCA (unlike PCA whitening) gives a symmetric matrix.
         let asym = (&w - &w.t()).iter().fold(0f32, |m, x| m.max(x.abs()));

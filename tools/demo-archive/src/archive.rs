@@ -110,8 +110,7 @@ fn make_item(
     };
     let sidecar = [Sidecar::Text, Sidecar::Xmp, Sidecar::Missing][pick(rng, &[80, 10, 10])];
     let true_tags = scene.true_tags();
-    let mut removed = None;
-    let mut false_tag = None;
+    let (mut removed, mut false_tag, mut written) = (None, None, Vec::new());
     if sidecar != Sidecar::Missing {
         if rng.random_bool(0.08) {
             removed = true_tags.choose(rng).copied();
@@ -119,14 +118,14 @@ fn make_item(
         if rng.random_bool(0.04) {
             false_tag = Some(wrong_tag(&true_tags, rng));
         }
+        written = true_tags
+            .iter()
+            .copied()
+            .filter(|t| Some(*t) != removed)
+            .chain(false_tag)
+            .collect();
+        written.shuffle(rng);
     }
-    let mut written: Vec<&'static str> = true_tags
-        .iter()
-        .copied()
-        .filter(|t| Some(*t) != removed)
-        .chain(false_tag)
-        .collect();
-    written.shuffle(rng);
 
     let finish = Finish {
         noise: if png { 0.6 } else { rng.random_range(2.0..4.5) },
@@ -450,6 +449,7 @@ mod tests {
     fn rerun_with_a_smaller_count_removes_its_own_strays_only() {
         let dir = tempfile::tempdir().unwrap();
         generate(dir.path(), 3, 10).unwrap();
+        fs::create_dir_all(dir.path().join("1970s")).unwrap();
         let keep = dir.path().join("1970s/notes.txt");
         fs::write(&keep, "mine").unwrap();
         generate(dir.path(), 3, 4).unwrap();
@@ -530,6 +530,10 @@ mod tests {
             (summary.removed, summary.false_tags)
         );
         assert_eq!(kinds.len(), 3, "all three sidecar kinds appear: {kinds:?}");
+        assert!(
+            removed_total > 0 && false_total > 0,
+            "both kinds of noise appear"
+        );
     }
 
     #[test]

@@ -118,7 +118,10 @@ fn parse_grids(text: &str) -> anyhow::Result<Vec<usize>> {
     text.split(',')
         .map(str::trim)
         .filter(|t| !t.is_empty())
-        .map(|t| t.parse().map_err(|e| anyhow::anyhow!("grid size {t:?}: {e}")))
+        .map(|t| {
+            t.parse()
+                .map_err(|e| anyhow::anyhow!("grid size {t:?}: {e}"))
+        })
         .collect()
 }
 

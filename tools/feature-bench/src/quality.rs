@@ -20,7 +20,11 @@ pub struct QualityArgs {
     #[arg(long, default_value = concat!(env!("CARGO_MANIFEST_DIR"), "/../../../shared/eval"))]
     eval: PathBuf,
     /// Sets (sub-folders) to evaluate.
-    #[arg(long, default_value = "emoji-twemoji,tuxpaint-stamps", value_delimiter = ',')]
+    #[arg(
+        long,
+        default_value = "emoji-twemoji,tuxpaint-stamps",
+        value_delimiter = ','
+    )]
     sets: Vec<String>,
     /// Neighbours per picture.
     #[arg(long, default_value_t = 10)]
@@ -37,9 +41,15 @@ pub struct QualityArgs {
 /// Pictures that have a `NAME.txt` sidecar, with their tags (trimmed, lower-case lines).
 fn tagged_pictures(folder: &Path) -> anyhow::Result<Vec<(PathBuf, Vec<String>)>> {
     let mut out = Vec::new();
-    for entry in std::fs::read_dir(folder).with_context(|| format!("reading {}", folder.display()))? {
+    for entry in
+        std::fs::read_dir(folder).with_context(|| format!("reading {}", folder.display()))?
+    {
         let path = entry?.path();
-        let ext = path.extension().and_then(|e| e.to_str()).unwrap_or("").to_lowercase();
+        let ext = path
+            .extension()
+            .and_then(|e| e.to_str())
+            .unwrap_or("")
+            .to_lowercase();
         let sidecar = path.with_extension("txt");
         if matches!(ext.as_str(), "png" | "jpg" | "jpeg") && sidecar.exists() {
             let text = std::fs::read_to_string(&sidecar)?;
@@ -90,14 +100,21 @@ fn lrap(
         .map(|i| {
             let scores = score_of(i);
             let all = lrap_one(&scores, &truth[i]);
-            let rel: Vec<usize> = truth[i].iter().map(|&t| new_index[t]).filter(|&t| t != usize::MAX).collect();
+            let rel: Vec<usize> = truth[i]
+                .iter()
+                .map(|&t| new_index[t])
+                .filter(|&t| t != usize::MAX)
+                .collect();
             let kept_scores: Vec<f32> = kept.iter().map(|&t| scores[t]).collect();
             (all, (!rel.is_empty()).then(|| lrap_one(&kept_scores, &rel)))
         })
         .collect();
     let all = per_picture.iter().map(|p| p.0).sum::<f64>() / truth.len() as f64;
     let restricted: Vec<f64> = per_picture.iter().filter_map(|p| p.1).collect();
-    (all, restricted.iter().sum::<f64>() / restricted.len().max(1) as f64)
+    (
+        all,
+        restricted.iter().sum::<f64>() / restricted.len().max(1) as f64,
+    )
 }
 
 /// Leave-one-out kNN scores: for picture i, Σ over its k most cosine-similar others of
@@ -128,7 +145,9 @@ fn knn_scorer<'a>(
 }
 
 pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
-    let pool = rayon::ThreadPoolBuilder::new().num_threads(args.threads).build()?;
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(args.threads)
+        .build()?;
     let opts = args.features.options()?;
     println!(
         "long side {}, patch {}, stride {}, K {}, {:?}, pool {:?}; colour L{}×ab{} range ±{} hist {:?} moments {:?}",
@@ -159,18 +178,24 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
                 vocab.entry(t.clone()).or_insert(next);
             }
         }
-        let truth: Vec<Vec<usize>> =
-            pictures.iter().map(|(_, tags)| tags.iter().map(|t| vocab[t]).collect()).collect();
+        let truth: Vec<Vec<usize>> = pictures
+            .iter()
+            .map(|(_, tags)| tags.iter().map(|t| vocab[t]).collect())
+            .collect();
         let mut counts = vec![0usize; vocab.len()];
         truth.iter().flatten().for_each(|&t| counts[t] += 1);
 
         let start = Instant::now();
-        let fx = pool.install(|| FeatureExtractor::learn(&paths, &opts, args.features.seed, &|_, _| {}))?;
+        let fx = pool
+            .install(|| FeatureExtractor::learn(&paths, &opts, args.features.seed, &|_, _| {}))?;
         let learned = start.elapsed().as_secs_f64();
         let iterations = fx.dictionary().kmeans_iterations();
         let start = Instant::now();
         let rows: Vec<Vec<f32>> = pool.install(|| {
-            paths.par_iter().map(|p| fx.features(p)).collect::<Result<_, _>>()
+            paths
+                .par_iter()
+                .map(|p| fx.features(p))
+                .collect::<Result<_, _>>()
         })?;
         let featured = start.elapsed().as_secs_f64();
         let (n, d, cd) = (rows.len(), fx.dimension(), fx.colour_dimension());
@@ -188,15 +213,25 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
             truth[i].iter().for_each(|&t| s[t] -= 1.0);
             s
         };
-        let report = |name: &str, (all, frequent): (f64, f64)| println!("{name:<22} {all:>10.3} {frequent:>14.3}");
+        let report = |name: &str, (all, frequent): (f64, f64)| {
+            println!("{name:<22} {all:>10.3} {frequent:>14.3}")
+        };
         pool.install(|| {
             report("tag-frequency prior", lrap(&truth, &counts, prior));
             let colour = x.slice(s![.., ..cd]).to_owned();
             let patches = x.slice(s![.., cd..]).to_owned();
             let mut both = x.clone();
-            both.slice_mut(s![.., ..cd]).mapv_inplace(|v| v * args.colour_weight);
-            for (name, m) in [("kNN colour", &colour), ("kNN patches", &patches), ("kNN colour+patches", &both)] {
-                report(name, lrap(&truth, &counts, knn_scorer(m, &truth, vocab.len(), args.k)));
+            both.slice_mut(s![.., ..cd])
+                .mapv_inplace(|v| v * args.colour_weight);
+            for (name, m) in [
+                ("kNN colour", &colour),
+                ("kNN patches", &patches),
+                ("kNN colour+patches", &both),
+            ] {
+                report(
+                    name,
+                    lrap(&truth, &counts, knn_scorer(m, &truth, vocab.len(), args.k)),
+                );
             }
         });
     }

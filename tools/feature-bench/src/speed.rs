@@ -46,14 +46,20 @@ fn synthetic_photo(seed: u64) -> image::RgbImage {
     let bottom: [f32; 3] = std::array::from_fn(|_| rng.random_range(20.0..200.0));
     let cell = 48usize;
     let (gw, gh) = (WIDTH as usize / cell + 2, HEIGHT as usize / cell + 2);
-    let texture: Vec<f32> = (0..gw * gh).map(|_| rng.random_range(-30.0..30.0)).collect();
+    let texture: Vec<f32> = (0..gw * gh)
+        .map(|_| rng.random_range(-30.0..30.0))
+        .collect();
     let shapes: Vec<([f32; 4], [f32; 3], bool)> = (0..40)
         .map(|_| {
             let cx = rng.random_range(0.0..WIDTH as f32);
             let cy = rng.random_range(0.0..HEIGHT as f32);
             let r = rng.random_range(60.0..600.0);
             let colour = std::array::from_fn(|_| rng.random_range(0.0..255.0));
-            ([cx, cy, r, rng.random_range(4.0..40.0)], colour, rng.random_bool(0.5))
+            (
+                [cx, cy, r, rng.random_range(4.0..40.0)],
+                colour,
+                rng.random_bool(0.5),
+            )
         })
         .collect();
     let mut pixels = vec![0u8; (WIDTH * HEIGHT * 3) as usize];
@@ -69,12 +75,21 @@ fn synthetic_photo(seed: u64) -> image::RgbImage {
                 let at = |i: usize, j: usize| texture[j * gw + i];
                 let tex = (at(gx, gy) * (1.0 - fx) + at(gx + 1, gy) * fx) * (1.0 - fy)
                     + (at(gx, gy + 1) * (1.0 - fx) + at(gx + 1, gy + 1) * fx) * fy;
-                let mut px: [f32; 3] = std::array::from_fn(|c| top[c] * (1.0 - t) + bottom[c] * t + tex);
+                let mut px: [f32; 3] =
+                    std::array::from_fn(|c| top[c] * (1.0 - t) + bottom[c] * t + tex);
                 for ([cx, cy, r, stripe], colour, round) in &shapes {
                     let (dx, dy) = (x as f32 - cx, y as f32 - cy);
-                    let inside = if *round { dx * dx + dy * dy < r * r } else { dx.abs() < *r && dy.abs() < r * 0.6 };
+                    let inside = if *round {
+                        dx * dx + dy * dy < r * r
+                    } else {
+                        dx.abs() < *r && dy.abs() < r * 0.6
+                    };
                     if inside {
-                        let band = if ((dx + dy) / stripe) as i32 % 2 == 0 { 1.0 } else { 0.8 };
+                        let band = if ((dx + dy) / stripe) as i32 % 2 == 0 {
+                            1.0
+                        } else {
+                            0.8
+                        };
                         px = colour.map(|c| c * band);
                     }
                 }
@@ -95,7 +110,10 @@ fn bench_jpegs(count: usize) -> anyhow::Result<Vec<PathBuf>> {
         .collect();
     let missing: Vec<&PathBuf> = paths.iter().filter(|p| !p.exists()).collect();
     if !missing.is_empty() {
-        println!("generating {} JPEGs of {WIDTH}x{HEIGHT} in {CACHE} ...", missing.len());
+        println!(
+            "generating {} JPEGs of {WIDTH}x{HEIGHT} in {CACHE} ...",
+            missing.len()
+        );
         for (i, path) in paths.iter().enumerate().filter(|(_, p)| !p.exists()) {
             let photo = synthetic_photo(i as u64);
             let mut bytes = Vec::new();
@@ -103,7 +121,8 @@ fn bench_jpegs(count: usize) -> anyhow::Result<Vec<PathBuf>> {
                 .write_with_encoder(JpegEncoder::new_with_quality(&mut bytes, 85))
                 .context("encoding a benchmark JPEG")?;
             let partial = path.with_extension("part");
-            std::fs::write(&partial, &bytes).with_context(|| format!("writing {}", partial.display()))?;
+            std::fs::write(&partial, &bytes)
+                .with_context(|| format!("writing {}", partial.display()))?;
             std::fs::rename(&partial, path)?;
         }
     }
@@ -115,13 +134,21 @@ fn folder_pictures(folder: &Path, count: usize) -> anyhow::Result<Vec<PathBuf>> 
         .with_context(|| format!("reading {}", folder.display()))?
         .filter_map(|e| e.ok().map(|e| e.path()))
         .filter(|p| {
-            let ext = p.extension().and_then(|e| e.to_str()).unwrap_or("").to_lowercase();
+            let ext = p
+                .extension()
+                .and_then(|e| e.to_str())
+                .unwrap_or("")
+                .to_lowercase();
             matches!(ext.as_str(), "jpg" | "jpeg" | "png")
         })
         .collect();
     paths.sort();
     paths.truncate(count);
-    anyhow::ensure!(!paths.is_empty(), "no JPEG or PNG pictures in {}", folder.display());
+    anyhow::ensure!(
+        !paths.is_empty(),
+        "no JPEG or PNG pictures in {}",
+        folder.display()
+    );
     Ok(paths)
 }
 
@@ -146,7 +173,9 @@ pub fn run(args: &SpeedArgs) -> anyhow::Result<()> {
         .map(|p| std::fs::read(p).map(|b| b.len() as u64))
         .sum::<std::io::Result<u64>>()?; // also warms the page cache
     let n = paths.len() as f64;
-    let pool = rayon::ThreadPoolBuilder::new().num_threads(args.threads).build()?;
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(args.threads)
+        .build()?;
     let opts = args.features.options()?;
     println!(
         "{} pictures, {:.1} MB, {} rayon threads; long side {}, K {}, stride {}, patch {}",
@@ -159,8 +188,13 @@ pub fn run(args: &SpeedArgs) -> anyhow::Result<()> {
         opts.patches.size
     );
     let start = Instant::now();
-    let fx = pool.install(|| FeatureExtractor::learn(&paths, &opts, args.features.seed, &|_, _| {}))?;
-    println!("learning (decode {} + dictionary): {:.2} s", paths.len(), start.elapsed().as_secs_f64());
+    let fx =
+        pool.install(|| FeatureExtractor::learn(&paths, &opts, args.features.seed, &|_, _| {}))?;
+    println!(
+        "learning (decode {} + dictionary): {:.2} s",
+        paths.len(),
+        start.elapsed().as_secs_f64()
+    );
 
     let bare = best_time(args.repeats, || {
         pool.install(|| {
@@ -188,7 +222,11 @@ pub fn run(args: &SpeedArgs) -> anyhow::Result<()> {
         })
     })?;
     println!("{:<44} {:>10}", "", "pictures/s");
-    println!("{:<44} {:>10.2}", "bare full-size decode (image::open + to_rgb8)", n / bare);
+    println!(
+        "{:<44} {:>10.2}",
+        "bare full-size decode (image::open + to_rgb8)",
+        n / bare
+    );
     println!("{:<44} {:>10.2}", "tagweave decode only", n / decode);
     println!("{:<44} {:>10.2}", "tagweave decode + features", n / full);
     println!(
@@ -203,7 +241,12 @@ pub fn run(args: &SpeedArgs) -> anyhow::Result<()> {
 }
 
 /// Decode rate per working size, features rate per (K, stride), and the combined rate.
-fn table(args: &SpeedArgs, paths: &[PathBuf], pool: &rayon::ThreadPool, bare_rate: f64) -> anyhow::Result<()> {
+fn table(
+    args: &SpeedArgs,
+    paths: &[PathBuf],
+    pool: &rayon::ThreadPool,
+    bare_rate: f64,
+) -> anyhow::Result<()> {
     let n = paths.len() as f64;
     println!("\nlong  K    stride  dims   decode/s  features/s  both/s  both/bare");
     for long_side in [128u32, 160, 192, 256] {
@@ -224,12 +267,19 @@ fn table(args: &SpeedArgs, paths: &[PathBuf], pool: &rayon::ThreadPool, bare_rat
                 opts.patches.atoms = atoms;
                 opts.patches.stride = stride;
                 let fx = pool.install(|| {
-                    FeatureExtractor::learn_from_images(&images, &opts, args.features.seed, &|_, _| {})
+                    FeatureExtractor::learn_from_images(
+                        &images,
+                        &opts,
+                        args.features.seed,
+                        &|_, _| {},
+                    )
                 })?;
                 let features = best_time(args.repeats, || {
-                    pool.install(|| images.par_iter().for_each(|img| {
-                        std::hint::black_box(fx.features_of(img));
-                    }));
+                    pool.install(|| {
+                        images.par_iter().for_each(|img| {
+                            std::hint::black_box(fx.features_of(img));
+                        })
+                    });
                     Ok(())
                 })?;
                 let both = n / (decode + features);

@@ -1,0 +1,173 @@
+//! The feature stage of a scan: learn the extractor once per collection, then describe
+//! every picture that has no feature vector yet, in flushed batches.
+
+use std::path::Path;
+
+use ndarray::Array2;
+use rayon::prelude::*;
+use serde::Serialize;
+use tagweave_collection::{ItemRecord, SkipReason, Skipped};
+use tagweave_store::Store;
+use tagweave_vision::{FeatureExtractor, Standardiser};
+
+use crate::{IndexError, ScanOptions, ScanProgress, BATCH};
+
+/// Store blob holding the learned [`FeatureExtractor`].
+pub const EXTRACTOR_BLOB: &str = "feature_extractor";
+/// Store blob holding the [`Standardiser`] fitted on every picture's features.
+pub const STANDARDISER_BLOB: &str = "feature_standardiser";
+/// Vector kind under which each item's raw feature vector is kept.
+pub const FEATURES: &str = "features";
+
+/// What the feature stage did.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct FeatureSummary {
+    /// Whether the extractor was learned (or relearned) in this run.
+    pub learned: bool,
+    /// Pictures described in this run.
+    pub encoded: usize,
+    /// Length of every feature vector.
+    pub dimension: usize,
+}
+
+/// Pictures that could not be decoded, by id, with the reason for the summary.
+pub(crate) type Failures = Vec<(String, Skipped)>;
+
+pub(crate) fn update(
+    store: &Store,
+    items: &[ItemRecord],
+    options: &ScanOptions,
+    progress: &(dyn Fn(ScanProgress) + Sync),
+) -> Result<(FeatureSummary, Failures), IndexError> {
+    let root = store.collection_root().to_path_buf();
+    if items.is_empty() {
+        return Ok((FeatureSummary::default(), Vec::new()));
+    }
+    let stored: Option<FeatureExtractor> = if options.relearn {
+        None
+    } else {
+        store.blob(EXTRACTOR_BLOB)?
+    };
+    let learned = stored.is_none();
+    let extractor = match stored {
+        Some(extractor) => extractor,
+        None => {
+            let mut by_path: Vec<&ItemRecord> = items.iter().collect();
+            by_path.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+            let paths: Vec<_> = by_path.iter().map(|i| root.join(&i.rel_path)).collect();
+            let extractor = FeatureExtractor::learn(
+                &paths,
+                &options.features,
+                options.seed,
+                &|done, total| progress(ScanProgress::Learning { done, total }),
+            )?;
+            // Old vectors were made by another extractor: drop them before the new one is
+            // stored, so a crash in between never pairs vectors with the wrong extractor.
+            store.clear_vectors(FEATURES)?;
+            store.put_blob(EXTRACTOR_BLOB, &extractor)?;
+            extractor
+        }
+    };
+
+    let mut missing = Vec::new();
+    for item in items {
+        if store.vector(FEATURES, &item.id)?.is_none() {
+            missing.push(item);
+        }
+    }
+    let mut failures = Vec::new();
+    let mut done = 0;
+    for chunk in missing.chunks(BATCH) {
+        let results: Vec<_> = chunk
+            .par_iter()
+            .map(|item| describe(&extractor, &root, item))
+            .collect();
+        let mut rows = Vec::with_capacity(results.len());
+        for result in results {
+            match result {
+                Ok(row) => rows.push(row),
+                Err(failure) => failures.push(failure),
+            }
+        }
+        store.put_vectors(FEATURES, &rows)?;
+        done += chunk.len();
+        progress(ScanProgress::Encoding {
+            done,
+            total: missing.len(),
+        });
+    }
+    Ok((
+        FeatureSummary {
+            learned,
+            encoded: missing.len() - failures.len(),
+            dimension: extractor.dimension(),
+        },
+        failures,
+    ))
+}
+
+fn describe(
+    extractor: &FeatureExtractor,
+    root: &Path,
+    item: &ItemRecord,
+) -> Result<(String, Vec<f32>), (String, Skipped)> {
+    let path = root.join(&item.rel_path);
+    extractor
+        .features(&path)
+        .map(|row| (item.id.clone(), row))
+        .map_err(|error| {
+            let skipped = Skipped {
+                path,
+                reason: SkipReason::BadPicture(error.to_string()),
+            };
+            (item.id.clone(), skipped)
+        })
+}
+
+/// Refits the standardiser on every stored feature vector and keeps it in the store.
+pub(crate) fn refit_standardiser(store: &Store) -> Result<(), IndexError> {
+    let table = FeatureTable::load(store)?;
+    if table.items.is_empty() {
+        return Ok(());
+    }
+    store.put_blob(STANDARDISER_BLOB, &Standardiser::fit(table.features.view()))?;
+    Ok(())
+}
+
+/// Every item that has a feature vector, with those vectors as the rows of one matrix
+/// (raw, not standardised), ordered by relative path.
+pub struct FeatureTable {
+    pub items: Vec<ItemRecord>,
+    pub features: Array2<f32>,
+}
+
+impl FeatureTable {
+    pub fn load(store: &Store) -> Result<FeatureTable, IndexError> {
+        let mut items = store.items()?;
+        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+        let mut kept = Vec::with_capacity(items.len());
+        let mut values = Vec::new();
+        let mut dimension = None;
+        for item in items {
+            let Some(row) = store.vector(FEATURES, &item.id)? else {
+                continue;
+            };
+            if *dimension.get_or_insert(row.len()) != row.len() {
+                return Err(IndexError::Inconsistent(format!(
+                    "feature vectors of different lengths ({} has {}); rebuild features with \
+                     `tagweave scan FOLDER --relearn`",
+                    item.rel_path,
+                    row.len()
+                )));
+            }
+            values.extend_from_slice(&row);
+            kept.push(item);
+        }
+        let features = Array2::from_shape_vec((kept.len(), dimension.unwrap_or(0)), values)
+            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
+        Ok(FeatureTable {
+            items: kept,
+            features,
+        })
+    }
+}
