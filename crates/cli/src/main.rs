@@ -1,6 +1,7 @@
 //! The `tagweave` command: parses arguments, calls the library crates, prints results.
 
 mod demo;
+mod eval;
 mod exit;
 mod progress;
 mod scan;
@@ -26,6 +27,9 @@ enum Command {
     Scan(scan::ScanArgs),
     /// List the collection's tags, most used first.
     Tags(tags::TagsArgs),
+    /// Measure how well tags are predicted on a tagged folder: hold some back, score them
+    /// blind, compare with simple baselines.
+    Eval(eval::EvalArgs),
     /// Run the whole job on the bundled invented archive (demo-collection/).
     Demo(demo::DemoArgs),
 }
@@ -43,6 +47,7 @@ fn main() -> ExitCode {
     let result = match cli.command {
         Command::Scan(args) => scan::run(&args),
         Command::Tags(args) => tags::run(&args),
+        Command::Eval(args) => eval::run(&args),
         Command::Demo(args) => demo::run(&args),
     };
     match result {

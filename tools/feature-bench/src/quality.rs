@@ -9,6 +9,9 @@ use std::time::Instant;
 use anyhow::Context;
 use clap::Args;
 use ndarray::{s, Array2, Axis};
+use rand::seq::SliceRandom;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use tagweave_vision::{FeatureExtractor, Standardiser};
 
@@ -34,6 +37,9 @@ pub struct QualityArgs {
     /// Weight of the colour block against the patch block in "both" (after standardising).
     #[arg(long, default_value_t = 1.0)]
     colour_weight: f32,
+    /// Skip per-dimension standardisation (for comparison only).
+    #[arg(long)]
+    raw: bool,
     #[command(flatten)]
     features: FeatureArgs,
 }
@@ -85,45 +91,47 @@ fn lrap_one(scores: &[f32], relevant: &[usize]) -> f64 {
     sum / relevant.len() as f64
 }
 
-/// LRAP over all tags, and over tags on ≥ 2 pictures only (pictures left without such a
-/// tag are skipped there). `score_of(i)` gives picture i's score per tag.
+/// Mean LRAP over the pictures `eval`, ranking only the tags in `universe`; pictures with
+/// no relevant tag in the universe are left out. `score_of(i)` scores every tag.
 fn lrap(
+    eval: &[usize],
     truth: &[Vec<usize>],
-    counts: &[usize],
+    universe: &[usize],
+    n_tags: usize,
     score_of: impl Fn(usize) -> Vec<f32> + Sync,
-) -> (f64, f64) {
-    let kept: Vec<usize> = (0..counts.len()).filter(|&t| counts[t] >= 2).collect();
-    let mut new_index = vec![usize::MAX; counts.len()];
-    kept.iter().enumerate().for_each(|(i, &t)| new_index[t] = i);
-    let per_picture: Vec<(f64, Option<f64>)> = (0..truth.len())
-        .into_par_iter()
-        .map(|i| {
-            let scores = score_of(i);
-            let all = lrap_one(&scores, &truth[i]);
-            let rel: Vec<usize> = truth[i]
+) -> f64 {
+    let mut position = vec![usize::MAX; n_tags];
+    universe
+        .iter()
+        .enumerate()
+        .for_each(|(i, &t)| position[t] = i);
+    let per_picture: Vec<f64> = eval
+        .par_iter()
+        .filter_map(|&i| {
+            let relevant: Vec<usize> = truth[i]
                 .iter()
-                .map(|&t| new_index[t])
+                .map(|&t| position[t])
                 .filter(|&t| t != usize::MAX)
                 .collect();
-            let kept_scores: Vec<f32> = kept.iter().map(|&t| scores[t]).collect();
-            (all, (!rel.is_empty()).then(|| lrap_one(&kept_scores, &rel)))
+            if relevant.is_empty() {
+                return None;
+            }
+            let scores = score_of(i);
+            let kept: Vec<f32> = universe.iter().map(|&t| scores[t]).collect();
+            Some(lrap_one(&kept, &relevant))
         })
         .collect();
-    let all = per_picture.iter().map(|p| p.0).sum::<f64>() / truth.len() as f64;
-    let restricted: Vec<f64> = per_picture.iter().filter_map(|p| p.1).collect();
-    (
-        all,
-        restricted.iter().sum::<f64>() / restricted.len().max(1) as f64,
-    )
+    per_picture.iter().sum::<f64>() / per_picture.len().max(1) as f64
 }
 
-/// Leave-one-out kNN scores: for picture i, Σ over its k most cosine-similar others of
-/// sim · has_tag.
+/// kNN scores for picture i from its k most cosine-similar `candidates` (never itself):
+/// Σ sim · has_tag.
 fn knn_scorer<'a>(
     rows: &Array2<f32>,
     truth: &'a [Vec<usize>],
     n_tags: usize,
     k: usize,
+    candidates: &'a [usize],
 ) -> impl Fn(usize) -> Vec<f32> + Sync + 'a {
     let mut unit = rows.clone();
     for mut row in unit.axis_iter_mut(Axis(0)) {
@@ -134,7 +142,7 @@ fn knn_scorer<'a>(
     }
     let sims = unit.dot(&unit.t());
     move |i| {
-        let mut order: Vec<usize> = (0..truth.len()).filter(|&j| j != i).collect();
+        let mut order: Vec<usize> = candidates.iter().copied().filter(|&j| j != i).collect();
         order.sort_by(|&a, &b| sims[[i, b]].total_cmp(&sims[[i, a]]).then(a.cmp(&b)));
         let mut scores = vec![0f32; n_tags];
         for &j in order.iter().take(k) {
@@ -142,6 +150,17 @@ fn knn_scorer<'a>(
         }
         scores
     }
+}
+
+/// Standardised copy of `x`, fitted on the rows `fit_on`.
+fn standardised(x: &Array2<f32>, fit_on: &[usize], raw: bool) -> anyhow::Result<Array2<f32>> {
+    if raw {
+        return Ok(x.clone());
+    }
+    let st = Standardiser::fit(x.select(Axis(0), fit_on).view());
+    let mut out = x.clone();
+    st.apply(out.view_mut())?;
+    Ok(out)
 }
 
 pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
@@ -199,41 +218,83 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
         })?;
         let featured = start.elapsed().as_secs_f64();
         let (n, d, cd) = (rows.len(), fx.dimension(), fx.colour_dimension());
-        let mut x = Array2::from_shape_vec((n, d), rows.concat())?;
-        Standardiser::fit(x.view()).apply(x.view_mut())?;
+        let x = Array2::from_shape_vec((n, d), rows.concat())?;
         println!(
             "\n{set}: {n} pictures, {} tags ({} on >= 2 pictures); {d} features ({cd} colour + {} patch); learn {learned:.1} s ({iterations} k-means updates), features {featured:.1} s",
             vocab.len(),
             counts.iter().filter(|&&c| c >= 2).count(),
             d - cd
         );
-        println!("{:<22} {:>10} {:>14}", "method", "LRAP", "LRAP tags>=2");
-        let prior = |i: usize| -> Vec<f32> {
+        // Leave-one-out over everything, and a seeded 75/25 split like the reference figures.
+        let everyone: Vec<usize> = (0..n).collect();
+        let all_tags: Vec<usize> = (0..vocab.len()).collect();
+        let frequent: Vec<usize> = all_tags
+            .iter()
+            .copied()
+            .filter(|&t| counts[t] >= 2)
+            .collect();
+        let mut shuffled = everyone.clone();
+        shuffled.shuffle(&mut ChaCha8Rng::seed_from_u64(7));
+        let (train, test) = shuffled.split_at(n * 3 / 4);
+        let mut train_counts = vec![0usize; vocab.len()];
+        train
+            .iter()
+            .flat_map(|&i| &truth[i])
+            .for_each(|&t| train_counts[t] += 1);
+        let train_tags: Vec<usize> = all_tags
+            .iter()
+            .copied()
+            .filter(|&t| train_counts[t] > 0)
+            .collect();
+        let loo_x = standardised(&x, &everyone, args.raw)?;
+        let split_x = standardised(&x, train, args.raw)?;
+
+        println!(
+            "{:<22} {:>9} {:>13} {:>10}",
+            "method", "LOO LRAP", "LOO tags>=2", "split LRAP"
+        );
+        let loo_prior = |i: usize| -> Vec<f32> {
             let mut s: Vec<f32> = counts.iter().map(|&c| c as f32).collect();
             truth[i].iter().for_each(|&t| s[t] -= 1.0);
             s
         };
-        let report = |name: &str, (all, frequent): (f64, f64)| {
-            println!("{name:<22} {all:>10.3} {frequent:>14.3}")
-        };
-        pool.install(|| {
-            report("tag-frequency prior", lrap(&truth, &counts, prior));
-            let colour = x.slice(s![.., ..cd]).to_owned();
-            let patches = x.slice(s![.., cd..]).to_owned();
-            let mut both = x.clone();
-            both.slice_mut(s![.., ..cd])
-                .mapv_inplace(|v| v * args.colour_weight);
-            for (name, m) in [
-                ("kNN colour", &colour),
-                ("kNN patches", &patches),
-                ("kNN colour+patches", &both),
-            ] {
-                report(
-                    name,
-                    lrap(&truth, &counts, knn_scorer(m, &truth, vocab.len(), args.k)),
+        let split_prior =
+            |_: usize| -> Vec<f32> { train_counts.iter().map(|&c| c as f32).collect() };
+        let nt = vocab.len();
+        pool.install(|| -> anyhow::Result<()> {
+            println!(
+                "{:<22} {:>9.3} {:>13.3} {:>10.3}",
+                "tag-frequency prior",
+                lrap(&everyone, &truth, &all_tags, nt, loo_prior),
+                lrap(&everyone, &truth, &frequent, nt, loo_prior),
+                lrap(test, &truth, &train_tags, nt, split_prior),
+            );
+            let blocks: [(&str, std::ops::Range<usize>); 3] = [
+                ("kNN colour", 0..cd),
+                ("kNN patches", cd..d),
+                ("kNN colour+patches", 0..d),
+            ];
+            for (name, cols) in blocks {
+                let pick = |m: &Array2<f32>| {
+                    let mut b = m.slice(s![.., cols.clone()]).to_owned();
+                    if cols.start == 0 && cols.end == d {
+                        b.slice_mut(s![.., ..cd])
+                            .mapv_inplace(|v| v * args.colour_weight);
+                    }
+                    b
+                };
+                let (loo_m, split_m) = (pick(&loo_x), pick(&split_x));
+                let loo = knn_scorer(&loo_m, &truth, nt, args.k, &everyone);
+                let split = knn_scorer(&split_m, &truth, nt, args.k, train);
+                println!(
+                    "{name:<22} {:>9.3} {:>13.3} {:>10.3}",
+                    lrap(&everyone, &truth, &all_tags, nt, &loo),
+                    lrap(&everyone, &truth, &frequent, nt, &loo),
+                    lrap(test, &truth, &train_tags, nt, &split),
                 );
             }
-        });
+            Ok(())
+        })?;
     }
     Ok(())
 }
@@ -252,25 +313,27 @@ mod tests {
     }
 
     #[test]
-    fn ties_count_against_and_restriction_drops_rare_tags() {
-        // Worked by hand: all scores equal → each relevant label is at rank 3 with 1 of
-        // them relevant at or above… both relevant tie: 2/3 each.
+    fn ties_count_against_and_universe_restricts() {
+        // Worked by hand: all scores equal, two relevant of three → 2/3 each.
         assert!((lrap_one(&[0.0, 0.0, 0.0], &[0, 1]) - 2.0 / 3.0).abs() < 1e-12);
         let truth = vec![vec![0, 2], vec![0, 1], vec![1]];
-        let counts = vec![2, 2, 1];
         let scores = |_: usize| vec![3.0, 2.0, 1.0];
-        let (all, frequent) = lrap(&truth, &counts, scores);
-        // all: picture 0 → (1/1 + 2/3)/2, picture 1 → 1, picture 2 → 1/2
+        let all = lrap(&[0, 1, 2], &truth, &[0, 1, 2], 3, scores);
+        // picture 0 → (1/1 + 2/3)/2, picture 1 → 1, picture 2 → 1/2
         assert!((all - ((1.0 + 2.0 / 3.0) / 2.0 + 1.0 + 0.5) / 3.0).abs() < 1e-12);
-        // tags ≥ 2 only (tag 2 dropped): picture 0 → 1, picture 1 → all relevant → 1, 2 → 1/2
-        assert!((frequent - (1.0 + 1.0 + 0.5) / 3.0).abs() < 1e-12);
+        // Tag 2 dropped: picture 0 → 1, picture 1 → every label relevant → 1, picture 2 → 1/2.
+        let kept = lrap(&[0, 1, 2], &truth, &[0, 1], 3, scores);
+        assert!((kept - (1.0 + 1.0 + 0.5) / 3.0).abs() < 1e-12);
+        // A picture with no tag in the universe is left out.
+        assert!((lrap(&[2], &truth, &[0], 3, scores) - 0.0).abs() < 1e-12);
     }
 
     #[test]
     fn knn_leaves_the_picture_itself_out() {
         let rows = ndarray::array![[1.0f32, 0.0], [0.9, 0.1], [0.0, 1.0]];
         let truth = vec![vec![0], vec![1], vec![2]];
-        let score = knn_scorer(&rows, &truth, 3, 1);
+        let everyone = [0, 1, 2];
+        let score = knn_scorer(&rows, &truth, 3, 1, &everyone);
         let s0 = score(0);
         assert_eq!(s0[0], 0.0, "own tags must not leak");
         assert!(s0[1] > 0.9 && s0[2] == 0.0);
