@@ -125,3 +125,42 @@ fn scanning_the_shared_evaluation_sets_counts_every_picture() {
         assert_eq!(report["tags"], distinct, "{name}: {report}");
     }
 }
+
+#[test]
+fn bad_files_are_named_counted_and_passed_over() {
+    let temp = tempfile::tempdir().unwrap();
+    let folder = temp.path();
+    let truth = demo_truth();
+    let demo = repo_root().join("demo-collection");
+    let jpegs: Vec<&TruthRow> = truth.iter().filter(|r| r.file.ends_with(".jpg")).take(6).collect();
+    for (i, row) in jpegs.iter().enumerate() {
+        std::fs::copy(demo.join(&row.file), folder.join(format!("good-{i}.jpg"))).unwrap();
+        std::fs::write(folder.join(format!("good-{i}.txt")), "harbour\n").unwrap();
+    }
+    let whole = std::fs::read(demo.join(&jpegs[0].file)).unwrap();
+    std::fs::write(folder.join("cut-short.jpg"), &whole[..whole.len() / 3]).unwrap();
+    std::fs::write(folder.join("empty.jpg"), b"").unwrap();
+    std::fs::write(folder.join("letter.jpg"), b"Dear keeper of the archive,\n").unwrap();
+    std::fs::copy(demo.join(&jpegs[1].file), folder.join("latin1.jpg")).unwrap();
+    std::fs::write(folder.join("latin1.txt"), b"caf\xe9\n").unwrap();
+    std::fs::write(folder.join("lonely.txt"), "night\n").unwrap();
+    std::fs::write(folder.join("notes.md"), "about this folder\n").unwrap();
+
+    let out = tagweave(folder, &["scan", ".", "--json"]);
+    assert_eq!(out.status.code(), Some(3), "3 = done with skipped files");
+    let report = json(&out);
+    assert_eq!(report["items"], 6, "{report}");
+    assert_eq!(report["other_files"], 1, "{report}");
+    let skipped = &report["skipped"];
+    assert_eq!(skipped["empty file"], 1, "{report}");
+    assert_eq!(skipped["not an image"], 1, "{report}");
+    assert_eq!(skipped["bad sidecar"], 1, "{report}");
+    assert_eq!(skipped["sidecar without picture"], 1, "{report}");
+    assert_eq!(skipped["damaged picture"], 1, "{report}");
+
+    let table = tagweave(folder, &["scan", ".", "--verbose"]);
+    let text = String::from_utf8_lossy(&table.stdout);
+    for name in ["cut-short.jpg", "empty.jpg", "letter.jpg", "latin1.txt", "lonely.txt"] {
+        assert!(text.contains(name), "{name} is named in the summary:\n{text}");
+    }
+}
