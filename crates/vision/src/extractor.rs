@@ -215,6 +215,7 @@ mod tests {
         FeatureOptions {
             patches: PatchOptions {
                 atoms: 16,
+                pool_grids: vec![1, 2],
                 samples_per_image: 100,
                 iterations: 8,
                 ..PatchOptions::default()

@@ -210,7 +210,7 @@ mod tests {
         //          max_iter=300, tol=0.0).fit(X)
         //   → inertia_ 78.851441426146, n_iter_ 4, cluster sizes 50 / 62 / 38,
         //     cluster_centers_ below.
-        let expected = array![
+        let expected: Array2<f64> = array![
             [5.006, 3.428, 1.462, 0.246],
             [
                 5.901_612_903_2,
@@ -220,9 +220,9 @@ mod tests {
             ],
             [6.85, 3.073_684_210_5, 5.742_105_263_2, 2.071_052_631_6],
         ];
-        let err = (&fit.centres - &expected)
+        let err = (&fit.centres.mapv(f64::from) - &expected)
             .iter()
-            .fold(0f32, |m, x| m.max(x.abs()));
+            .fold(0f64, |m, x| m.max(x.abs()));
         assert!(err < 1e-4, "centres differ by {err}: {}", fit.centres);
         let inertia: f64 = data
             .rows()

@@ -1,7 +1,12 @@
 //! A dictionary of small colour patches learned from the collection itself, after Coates,
 //! Lee & Ng (2011) and Coates & Ng (2012): patches are brightness/contrast normalised,
 //! ZCA-whitened, clustered with spherical k-means; every patch on a dense grid is then
-//! encoded against the atoms and the codes are averaged over a spatial pyramid.
+//! encoded against the atoms, and the codes are summed over the cells of a spatial pyramid,
+//! each cell scaled to unit length.
+//!
+//! Defaults (K = 32 atoms, 6-px patches, stride 2, pyramid 1+2×2+4×4+8×8) were chosen by
+//! leave-one-out kNN tag transfer on the shared evaluation sets: a small dictionary over a
+//! fine grid beat large dictionaries over coarse grids (see tools/feature-bench).
 
 use ndarray::{s, Array1, Array2, ArrayView2, Axis};
 use rand::{Rng, SeedableRng};
@@ -44,7 +49,7 @@ pub struct PatchOptions {
     /// Upper bound on spherical k-means iterations.
     pub iterations: usize,
     pub activation: Activation,
-    /// Grid sizes codes are averaged over: 1 = whole picture, 2 = quadrants…
+    /// Grid sizes codes are pooled over: 1 = whole picture, 2 = quadrants…
     pub pool_grids: Vec<usize>,
 }
 
@@ -53,13 +58,15 @@ impl Default for PatchOptions {
         Self {
             size: 6,
             stride: 2,
-            atoms: 256,
+            atoms: 32,
             samples_per_image: 200,
             contrast_eps: 0.01,
             zca_eps: 0.1,
             iterations: 30,
+            // Measured level with Triangle (within ±0.005 LRAP) and cheaper: no
+            // whitened-patch norms, so whitening folds into the atom product.
             activation: Activation::SoftThreshold { alpha: 0.25 },
-            pool_grids: vec![1, 2],
+            pool_grids: vec![1, 2, 4, 8],
         }
     }
 }
@@ -83,7 +90,11 @@ impl PatchOptions {
         if self.pool_grids.iter().any(|g| !(1..=16).contains(g)) {
             return fail("pooling grid sizes must be 1..=16");
         }
-        if !(self.contrast_eps >= 0.0 && self.zca_eps > 0.0) {
+        if self.contrast_eps.is_nan()
+            || self.contrast_eps < 0.0
+            || self.zca_eps.is_nan()
+            || self.zca_eps <= 0.0
+        {
             return fail("contrast eps must be >= 0 and ZCA eps > 0");
         }
         Ok(())
@@ -107,8 +118,10 @@ pub struct PatchDictionary {
     kmeans_iterations: usize,
 }
 
-/// Copies the patch at (x, y) into `out` (row-major, RGB interleaved, values in [0, 1])
-/// and normalises it to zero mean and unit variance.
+/// Copies the patch at (x, y) into `out` (row-major, RGB interleaved, values in [0, 1]),
+/// removes its mean colour (each channel's own mean: the colour features describe colour
+/// already, so the patch code keeps only edges and colour contrasts — measured better than
+/// removing one grey level) and scales it to unit variance.
 fn read_patch(img: &WorkingImage, x: usize, y: usize, size: usize, eps: f32, out: &mut [f32]) {
     let width = img.width() as usize;
     let rgb = img.rgb();
@@ -119,11 +132,18 @@ fn read_patch(img: &WorkingImage, x: usize, y: usize, size: usize, eps: f32, out
             *o = f32::from(v) / 255.0;
         }
     }
-    let n = out.len() as f32;
-    let mean = out.iter().sum::<f32>() / n;
-    let var = out.iter().map(|v| (v - mean) * (v - mean)).sum::<f32>() / n;
+    let mut mean = [0f32; 3];
+    for px in out.chunks_exact(3) {
+        mean.iter_mut().zip(px).for_each(|(m, v)| *m += v);
+    }
+    let pixels = (out.len() / 3) as f32;
+    mean.iter_mut().for_each(|m| *m /= pixels);
+    for px in out.chunks_exact_mut(3) {
+        px.iter_mut().zip(&mean).for_each(|(v, m)| *v -= m);
+    }
+    let var = out.iter().map(|v| v * v).sum::<f32>() / out.len() as f32;
     let inv = 1.0 / (var + eps).sqrt();
-    out.iter_mut().for_each(|v| *v = (*v - mean) * inv);
+    out.iter_mut().for_each(|v| *v *= inv);
 }
 
 /// Random normalised patches from one picture, from its own seeded stream.
@@ -147,6 +167,9 @@ fn sample_patches(img: &WorkingImage, opts: &PatchOptions, seed: u64) -> Vec<f32
 fn picture_seed(seed: u64, index: usize) -> u64 {
     seed ^ (index as u64 + 1).wrapping_mul(0x9E37_79B9_7F4A_7C15)
 }
+
+/// Keeps cells with almost no response (flat regions) from being blown up to unit length.
+const CELL_NORM_EPS: f32 = 1e-3;
 
 fn pool_cells(grids: &[usize]) -> usize {
     grids.iter().map(|g| g * g).sum()
@@ -235,9 +258,12 @@ impl PatchDictionary {
             return;
         }
         let d = p * p * 3;
+        // Responses d·z with z = (x − mean)·W fold into one product: x·(W·Dᵀ) − mean·(W·Dᵀ)
+        // (W is symmetric), a quarter of the work of whitening first at d = 108, K = 32.
+        let projection = self.whitening.dot(&self.atoms.t());
+        let offset = self.mean.dot(&projection);
         let nx = (w - p) / self.stride + 1;
         let ny = (h - p) / self.stride + 1;
-        let mut counts = vec![0usize; pool_cells(&self.pool_grids)];
         // Bands of patch rows keep the matrices a cache-friendly few hundred patches tall.
         let band = (512 / nx).max(1);
         let mut patches = Array2::<f32>::zeros((band * nx, d));
@@ -250,35 +276,40 @@ impl PatchDictionary {
                     read_patch(img, px, py, p, self.contrast_eps, slice);
                 }
             }
-            let z = whiten(patches.slice(s![..n, ..]), &self.mean, &self.whitening);
-            let mut codes = z.dot(&self.atoms.t());
-            self.activate(&z, &mut codes);
+            let band_patches = patches.slice(s![..n, ..]);
+            let mut codes = band_patches.dot(&projection) - &offset;
+            self.activate(band_patches, &mut codes);
             for (i, code) in codes.rows().into_iter().enumerate() {
                 let cx = (i % nx) * self.stride + p / 2;
                 let cy = (y0 + i / nx) * self.stride + p / 2;
                 let mut offset = 0;
                 for &g in &self.pool_grids {
                     let cell = offset + (cy * g / h) * g + cx * g / w;
-                    counts[cell] += 1;
                     let dst = &mut pooled[cell * k..(cell + 1) * k];
                     dst.iter_mut().zip(code.iter()).for_each(|(a, &c)| *a += c);
                     offset += g * g;
                 }
             }
         }
-        // Average pooling: pictures of different aspect (so patch count) stay comparable.
-        for (cell, chunk) in pooled.chunks_exact_mut(k).enumerate() {
-            let n = counts[cell].max(1) as f32;
-            chunk.iter_mut().for_each(|v| *v /= n);
+        // Sum pooling, then each cell scaled to unit length (as HOG normalises its blocks,
+        // Dalal & Triggs 2005): every region weighs the same whatever its contrast or patch
+        // count. Measured: +0.01–0.03 LRAP over plain averages on both evaluation sets.
+        for chunk in pooled.chunks_exact_mut(k) {
+            let norm = chunk.iter().map(|v| v * v).sum::<f32>().sqrt();
+            if norm > 0.0 {
+                let scale = 1.0 / (norm + CELL_NORM_EPS);
+                chunk.iter_mut().for_each(|v| *v *= scale);
+            }
         }
         out.extend(pooled);
     }
 
-    /// Turns atom responses `codes` (n × K, d·z) of whitened patches `z` into activations.
-    fn activate(&self, z: &Array2<f32>, codes: &mut Array2<f32>) {
+    /// Turns atom responses `codes` (n × K, d·z) of the normalised `patches` into activations.
+    fn activate(&self, patches: ArrayView2<f32>, codes: &mut Array2<f32>) {
         match self.activation {
             Activation::SoftThreshold { alpha } => codes.mapv_inplace(|v| (v - alpha).max(0.0)),
             Activation::Triangle => {
+                let z = whiten(patches, &self.mean, &self.whitening);
                 for (zrow, mut row) in z.rows().into_iter().zip(codes.rows_mut()) {
                     // Atoms are unit length: ‖z − d‖² = ‖z‖² − 2 d·z + 1.
                     let zz = zrow.dot(&zrow);
@@ -326,6 +357,7 @@ pub(crate) mod tests {
     fn small_opts() -> PatchOptions {
         PatchOptions {
             atoms: 16,
+            pool_grids: vec![1, 2],
             samples_per_image: 100,
             iterations: 10,
             ..PatchOptions::default()
@@ -344,6 +376,20 @@ pub(crate) mod tests {
         assert_eq!(out.len(), 5 * 16);
         assert!(out.iter().all(|v| v.is_finite() && *v >= 0.0));
         assert!(out.iter().any(|v| *v > 0.0));
+    }
+
+    #[test]
+    fn folded_projection_equals_whitening_first() {
+        let pictures = synthetic_pictures(12, 1);
+        let dict = PatchDictionary::learn(&pictures, &small_opts(), 7, &|_, _| {}).unwrap();
+        let x = ndarray::Array2::from_shape_fn((20, 108), |(i, j)| {
+            ((i * 31 + j * 7) % 17) as f32 / 17.0
+        });
+        let direct = whiten(x.view(), &dict.mean, &dict.whitening).dot(&dict.atoms.t());
+        let projection = dict.whitening.dot(&dict.atoms.t());
+        let folded = x.dot(&projection) - &dict.mean.dot(&projection);
+        let err = (&direct - &folded).iter().fold(0f32, |m, v| m.max(v.abs()));
+        assert!(err < 1e-3, "{err}");
     }
 
     #[test]

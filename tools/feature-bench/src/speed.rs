@@ -262,7 +262,7 @@ fn table(
             })?;
             Ok(())
         })?;
-        for atoms in [128usize, 256, 512] {
+        for atoms in [32usize, 128, 256, 512] {
             for stride in [1usize, 2, 3] {
                 opts.patches.atoms = atoms;
                 opts.patches.stride = stride;
