@@ -132,7 +132,11 @@ fn bad_files_are_named_counted_and_passed_over() {
     let folder = temp.path();
     let truth = demo_truth();
     let demo = repo_root().join("demo-collection");
-    let jpegs: Vec<&TruthRow> = truth.iter().filter(|r| r.file.ends_with(".jpg")).take(6).collect();
+    let jpegs: Vec<&TruthRow> = truth
+        .iter()
+        .filter(|r| r.file.ends_with(".jpg"))
+        .take(6)
+        .collect();
     for (i, row) in jpegs.iter().enumerate() {
         std::fs::copy(demo.join(&row.file), folder.join(format!("good-{i}.jpg"))).unwrap();
         std::fs::write(folder.join(format!("good-{i}.txt")), "harbour\n").unwrap();
@@ -160,7 +164,44 @@ fn bad_files_are_named_counted_and_passed_over() {
 
     let table = tagweave(folder, &["scan", ".", "--verbose"]);
     let text = String::from_utf8_lossy(&table.stdout);
-    for name in ["cut-short.jpg", "empty.jpg", "letter.jpg", "latin1.txt", "lonely.txt"] {
-        assert!(text.contains(name), "{name} is named in the summary:\n{text}");
+    for name in [
+        "cut-short.jpg",
+        "empty.jpg",
+        "letter.jpg",
+        "latin1.txt",
+        "lonely.txt",
+    ] {
+        assert!(
+            text.contains(name),
+            "{name} is named in the summary:\n{text}"
+        );
+    }
+}
+
+#[test]
+fn the_same_folder_and_seed_give_identical_features() {
+    let (_a, first) = demo_copy();
+    let (_b, second) = demo_copy();
+    for folder in [&first, &second] {
+        let report = json(&tagweave(folder, &["scan", ".", "--json"]));
+        assert_eq!(report["features"]["encoded"], 400, "{report}");
+    }
+    // A relearn with the same seed must reproduce the same extractor and vectors too.
+    let again = json(&tagweave(&second, &["scan", ".", "--json", "--relearn"]));
+    assert_eq!(again["features"]["learned"], true, "{again}");
+    assert_eq!(again["unchanged"], 400, "{again}");
+
+    let open =
+        |folder: &std::path::Path| tagweave_store::Store::open(&folder.join(".tagweave")).unwrap();
+    let (a, b) = (open(&first), open(&second));
+    let items = a.items().unwrap();
+    assert_eq!(items.len(), 400);
+    for item in &items {
+        let va = a.vector(tagweave_indexer::FEATURES, &item.id).unwrap();
+        let vb = b.vector(tagweave_indexer::FEATURES, &item.id).unwrap();
+        assert!(va.is_some(), "{} has features", item.rel_path);
+        let bits =
+            |v: Option<Vec<f32>>| v.map(|v| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>());
+        assert_eq!(bits(va), bits(vb), "{}", item.rel_path);
     }
 }
