@@ -1,19 +1,21 @@
-//! Tag transfer quality on the shared evaluation folders: leave-one-out kNN (cosine, k=10,
-//! score(tag) = Σ sim · has_tag) and label-ranking average precision (LRAP), beside the
-//! tag-frequency prior. Small and private to this tool on purpose.
+//! Tag transfer quality of the image features on the shared evaluation folders: label-ranking
+//! average precision (LRAP) of kNN tag transfer (the eval crate's baseline, k fixed) on
+//! each feature block, beside the tag-frequency prior, leave-one-out and on a 75/25 split.
 
-use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use anyhow::Context;
 use clap::Args;
-use ndarray::{s, Array2, Axis};
-use rand::seq::SliceRandom;
-use rand::SeedableRng;
-use rand_chacha::ChaCha8Rng;
+use ndarray::{s, Array2, ArrayView2};
 use rayon::prelude::*;
-use tagweave_vision::{FeatureExtractor, Standardiser};
+use tagweave_collection::{crawl, read_item, CrawlOptions};
+use tagweave_eval::metrics::label_ranking_average_precision;
+use tagweave_eval::{
+    evaluate, knn_leave_one_out_scores, EvalOptions, KnnScorer, PriorScorer, Standardiser,
+    TagScorer, Vocabulary,
+};
+use tagweave_vision::FeatureExtractor;
 
 use crate::FeatureArgs;
 
@@ -34,134 +36,101 @@ pub struct QualityArgs {
     k: usize,
     #[arg(long, default_value_t = 2)]
     threads: usize,
-    /// Weight of the colour block against the patch block in "both" (after standardising).
-    #[arg(long, default_value_t = 1.0)]
-    colour_weight: f32,
-    /// Skip per-dimension standardisation (for comparison only).
-    #[arg(long)]
-    raw: bool,
     #[command(flatten)]
     features: FeatureArgs,
 }
 
-/// Pictures that have a `NAME.txt` sidecar, with their tags (trimmed, lower-case lines).
-fn tagged_pictures(folder: &Path) -> anyhow::Result<Vec<(PathBuf, Vec<String>)>> {
-    let mut out = Vec::new();
-    for entry in
-        std::fs::read_dir(folder).with_context(|| format!("reading {}", folder.display()))?
-    {
-        let path = entry?.path();
-        let ext = path
-            .extension()
-            .and_then(|e| e.to_str())
-            .unwrap_or("")
-            .to_lowercase();
-        let sidecar = path.with_extension("txt");
-        if matches!(ext.as_str(), "png" | "jpg" | "jpeg") && sidecar.exists() {
-            let text = std::fs::read_to_string(&sidecar)?;
-            let mut tags: Vec<String> = text
-                .lines()
-                .map(|l| l.trim().to_lowercase())
-                .filter(|l| !l.is_empty())
-                .collect();
-            tags.sort();
-            tags.dedup();
-            out.push((path, tags));
+/// The tagged pictures of a folder exactly as `tagweave scan` finds them (every picture
+/// format, text and XMP sidecars, normalised tags), in path order.
+struct Tagged {
+    paths: Vec<PathBuf>,
+    tags: Vec<Vec<String>>,
+    /// BLAKE3 of each picture's bytes: duplicates stay on one side of the split.
+    hashes: Vec<String>,
+    /// Pictures without any tag (nothing to transfer or measure) and files the scan skips.
+    left_out: usize,
+}
+
+fn tagged_pictures(folder: &Path) -> anyhow::Result<Tagged> {
+    let found = crawl(folder, &CrawlOptions::default())
+        .with_context(|| format!("listing the pictures of {}", folder.display()))?;
+    let mut out = Tagged {
+        paths: Vec::new(),
+        tags: Vec::new(),
+        hashes: Vec::new(),
+        left_out: found.skipped.len(),
+    };
+    for candidate in &found.candidates {
+        match read_item(folder, candidate) {
+            Ok(read) if !read.item.tags.is_empty() => {
+                out.paths.push(candidate.path.clone());
+                out.tags.push(read.item.tags);
+                out.hashes.push(read.item.content_hash);
+            }
+            _ => out.left_out += 1,
         }
     }
-    out.sort();
     Ok(out)
 }
 
-/// scikit-learn's label_ranking_average_precision_score for one sample: mean over the
-/// relevant labels of (relevant labels ranked at or above it) / (labels ranked at or
-/// above it); ties count against. A sample whose relevant set is empty or everything is 1.
-fn lrap_one(scores: &[f32], relevant: &[usize]) -> f64 {
-    if relevant.is_empty() || relevant.len() == scores.len() {
-        return 1.0;
-    }
-    let sum: f64 = relevant
-        .iter()
-        .map(|&j| {
-            let at_or_above = scores.iter().filter(|&&s| s >= scores[j]).count();
-            let relevant_above = relevant.iter().filter(|&&r| scores[r] >= scores[j]).count();
-            relevant_above as f64 / at_or_above as f64
-        })
-        .sum();
-    sum / relevant.len() as f64
-}
-
-/// Mean LRAP over the pictures `eval`, ranking only the tags in `universe`; pictures with
-/// no relevant tag in the universe are left out. `score_of(i)` scores every tag.
-fn lrap(
-    eval: &[usize],
-    truth: &[Vec<usize>],
-    universe: &[usize],
-    n_tags: usize,
-    score_of: impl Fn(usize) -> Vec<f32> + Sync,
-) -> f64 {
-    let mut position = vec![usize::MAX; n_tags];
-    universe
-        .iter()
-        .enumerate()
-        .for_each(|(i, &t)| position[t] = i);
-    let per_picture: Vec<f64> = eval
-        .par_iter()
-        .filter_map(|&i| {
-            let relevant: Vec<usize> = truth[i]
+/// Mean LRAP over the rows of `scores`, ranking only the tags marked in `keep`; pictures
+/// with no relevant tag among them are left out (the eval crate measures whole rows only).
+fn mean_lrap(scores: ArrayView2<f32>, truth: &[Vec<usize>], keep: &[bool]) -> f64 {
+    let per_picture: Vec<f64> = scores
+        .outer_iter()
+        .zip(truth)
+        .filter_map(|(row, tags)| {
+            let mut relevant = vec![false; keep.len()];
+            tags.iter().for_each(|&t| relevant[t] = true);
+            let (kept, relevant): (Vec<f32>, Vec<bool>) = row
                 .iter()
-                .map(|&t| position[t])
-                .filter(|&t| t != usize::MAX)
-                .collect();
-            if relevant.is_empty() {
-                return None;
-            }
-            let scores = score_of(i);
-            let kept: Vec<f32> = universe.iter().map(|&t| scores[t]).collect();
-            Some(lrap_one(&kept, &relevant))
+                .zip(relevant)
+                .zip(keep)
+                .filter(|(_, &k)| k)
+                .map(|((&s, r), _)| (s, r))
+                .unzip();
+            relevant
+                .contains(&true)
+                .then(|| label_ranking_average_precision(&kept, &relevant))
         })
         .collect();
     per_picture.iter().sum::<f64>() / per_picture.len().max(1) as f64
 }
 
-/// kNN scores for picture i from its k most cosine-similar `candidates` (never itself):
-/// Σ sim · has_tag.
-fn knn_scorer<'a>(
-    rows: &Array2<f32>,
-    truth: &'a [Vec<usize>],
-    n_tags: usize,
-    k: usize,
-    candidates: &'a [usize],
-) -> impl Fn(usize) -> Vec<f32> + Sync + 'a {
-    let mut unit = rows.clone();
-    for mut row in unit.axis_iter_mut(Axis(0)) {
-        let norm = row.dot(&row).sqrt();
-        if norm > 0.0 {
-            row /= norm;
-        }
+/// Tag-frequency prior with each picture's own tags left out of the counts: the eval
+/// crate's prior is fitted on a train part, this is its leave-one-out counterpart.
+fn loo_prior(truth: &[Vec<usize>], n_tags: usize) -> Array2<f32> {
+    let mut counts = vec![0f32; n_tags];
+    truth.iter().flatten().for_each(|&t| counts[t] += 1.0);
+    let mut scores = Array2::from_shape_fn((truth.len(), n_tags), |(_, t)| counts[t]);
+    for (mut row, tags) in scores.outer_iter_mut().zip(truth) {
+        tags.iter().for_each(|&t| row[t] -= 1.0);
     }
-    let sims = unit.dot(&unit.t());
-    move |i| {
-        let mut order: Vec<usize> = candidates.iter().copied().filter(|&j| j != i).collect();
-        order.sort_by(|&a, &b| sims[[i, b]].total_cmp(&sims[[i, a]]).then(a.cmp(&b)));
-        let mut scores = vec![0f32; n_tags];
-        for &j in order.iter().take(k) {
-            truth[j].iter().for_each(|&t| scores[t] += sims[[i, j]]);
-        }
-        scores
-    }
+    scores
 }
 
-/// Standardised copy of `x`, fitted on the rows `fit_on`.
-fn standardised(x: &Array2<f32>, fit_on: &[usize], raw: bool) -> anyhow::Result<Array2<f32>> {
-    if raw {
-        return Ok(x.clone());
-    }
-    let st = Standardiser::fit(x.select(Axis(0), fit_on).view());
-    let mut out = x.clone();
-    st.apply(out.view_mut())?;
-    Ok(out)
+/// LRAP of one method on the seeded 75/25 split (grouped by content), through the eval
+/// crate's runner: standardised and fitted on train pictures only.
+fn split_lrap(
+    x: ArrayView2<f32>,
+    tags: &[Vec<String>],
+    hashes: &[String],
+    method: Box<dyn TagScorer>,
+) -> anyhow::Result<f64> {
+    let options = EvalOptions {
+        seed: SPLIT_SEED,
+        ..EvalOptions::default()
+    };
+    let name = method.name().to_string();
+    let report = evaluate(x, tags, hashes, &options, &mut [method], &mut |_| {})?;
+    report
+        .methods
+        .get(&name)
+        .map(|m| m.lrap)
+        .with_context(|| format!("the evaluation report lacks method {name}"))
 }
+
+const SPLIT_SEED: u64 = 7;
 
 pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
     let pool = rayon::ThreadPoolBuilder::new()
@@ -188,19 +157,14 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
             println!("{set}: skipped, {} absent", folder.display());
             continue;
         }
-        let pictures = tagged_pictures(&folder)?;
-        let paths: Vec<PathBuf> = pictures.iter().map(|p| p.0.clone()).collect();
-        let mut vocab = BTreeMap::new();
-        for (_, tags) in &pictures {
-            for t in tags {
-                let next = vocab.len();
-                vocab.entry(t.clone()).or_insert(next);
-            }
-        }
-        let truth: Vec<Vec<usize>> = pictures
-            .iter()
-            .map(|(_, tags)| tags.iter().map(|t| vocab[t]).collect())
-            .collect();
+        let Tagged {
+            paths,
+            tags,
+            hashes,
+            left_out,
+        } = tagged_pictures(&folder)?;
+        let vocab = Vocabulary::from_items(tags.iter().map(Vec::as_slice));
+        let truth: Vec<Vec<usize>> = tags.iter().map(|t| vocab.encode(t)).collect();
         let mut counts = vec![0usize; vocab.len()];
         truth.iter().flatten().for_each(|&t| counts[t] += 1);
 
@@ -220,54 +184,27 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
         let (n, d, cd) = (rows.len(), fx.dimension(), fx.colour_dimension());
         let x = Array2::from_shape_vec((n, d), rows.concat())?;
         println!(
-            "\n{set}: {n} pictures, {} tags ({} on >= 2 pictures); {d} features ({cd} colour + {} patch); learn {learned:.1} s ({iterations} k-means updates), features {featured:.1} s",
+            "\n{set}: {n} pictures ({left_out} files left out), {} tags ({} on >= 2 pictures); {d} features ({cd} colour + {} patch); learn {learned:.1} s ({iterations} k-means updates), features {featured:.1} s",
             vocab.len(),
             counts.iter().filter(|&&c| c >= 2).count(),
             d - cd
         );
-        // Leave-one-out over everything, and a seeded 75/25 split like the reference figures.
-        let everyone: Vec<usize> = (0..n).collect();
-        let all_tags: Vec<usize> = (0..vocab.len()).collect();
-        let frequent: Vec<usize> = all_tags
-            .iter()
-            .copied()
-            .filter(|&t| counts[t] >= 2)
-            .collect();
-        let mut shuffled = everyone.clone();
-        shuffled.shuffle(&mut ChaCha8Rng::seed_from_u64(7));
-        let (train, test) = shuffled.split_at(n * 3 / 4);
-        let mut train_counts = vec![0usize; vocab.len()];
-        train
-            .iter()
-            .flat_map(|&i| &truth[i])
-            .for_each(|&t| train_counts[t] += 1);
-        let train_tags: Vec<usize> = all_tags
-            .iter()
-            .copied()
-            .filter(|&t| train_counts[t] > 0)
-            .collect();
-        let loo_x = standardised(&x, &everyone, args.raw)?;
-        let split_x = standardised(&x, train, args.raw)?;
+        let every_tag = vec![true; vocab.len()];
+        let frequent: Vec<bool> = counts.iter().map(|&c| c >= 2).collect();
+        let loo_x = Standardiser::fit(x.view()).apply(x.view());
 
         println!(
             "{:<22} {:>9} {:>13} {:>10}",
             "method", "LOO LRAP", "LOO tags>=2", "split LRAP"
         );
-        let loo_prior = |i: usize| -> Vec<f32> {
-            let mut s: Vec<f32> = counts.iter().map(|&c| c as f32).collect();
-            truth[i].iter().for_each(|&t| s[t] -= 1.0);
-            s
-        };
-        let split_prior =
-            |_: usize| -> Vec<f32> { train_counts.iter().map(|&c| c as f32).collect() };
-        let nt = vocab.len();
         pool.install(|| -> anyhow::Result<()> {
+            let prior = loo_prior(&truth, vocab.len());
             println!(
                 "{:<22} {:>9.3} {:>13.3} {:>10.3}",
                 "tag-frequency prior",
-                lrap(&everyone, &truth, &all_tags, nt, loo_prior),
-                lrap(&everyone, &truth, &frequent, nt, loo_prior),
-                lrap(test, &truth, &train_tags, nt, split_prior),
+                mean_lrap(prior.view(), &truth, &every_tag),
+                mean_lrap(prior.view(), &truth, &frequent),
+                split_lrap(x.view(), &tags, &hashes, Box::new(PriorScorer::default()))?,
             );
             let blocks: [(&str, std::ops::Range<usize>); 3] = [
                 ("kNN colour", 0..cd),
@@ -275,22 +212,18 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
                 ("kNN colour+patches", 0..d),
             ];
             for (name, cols) in blocks {
-                let pick = |m: &Array2<f32>| {
-                    let mut b = m.slice(s![.., cols.clone()]).to_owned();
-                    if cols.start == 0 && cols.end == d {
-                        b.slice_mut(s![.., ..cd])
-                            .mapv_inplace(|v| v * args.colour_weight);
-                    }
-                    b
-                };
-                let (loo_m, split_m) = (pick(&loo_x), pick(&split_x));
-                let loo = knn_scorer(&loo_m, &truth, nt, args.k, &everyone);
-                let split = knn_scorer(&split_m, &truth, nt, args.k, train);
+                let loo = knn_leave_one_out_scores(
+                    loo_x.slice(s![.., cols.clone()]),
+                    &truth,
+                    vocab.len(),
+                    args.k,
+                );
+                let knn = KnnScorer::with_k_candidates(vec![args.k]);
                 println!(
                     "{name:<22} {:>9.3} {:>13.3} {:>10.3}",
-                    lrap(&everyone, &truth, &all_tags, nt, &loo),
-                    lrap(&everyone, &truth, &frequent, nt, &loo),
-                    lrap(test, &truth, &train_tags, nt, &split),
+                    mean_lrap(loo.view(), &truth, &every_tag),
+                    mean_lrap(loo.view(), &truth, &frequent),
+                    split_lrap(x.slice(s![.., cols]), &tags, &hashes, Box::new(knn))?,
                 );
             }
             Ok(())
@@ -302,40 +235,54 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use ndarray::array;
 
     #[test]
-    fn lrap_matches_scikit_learn_docs_example() {
-        // source: scikit-learn docs, label_ranking_average_precision_score example:
-        // y_true [[1,0,0],[0,0,1]], y_score [[0.75,0.5,1],[1,0.2,0.1]] → 0.416…
-        let a = lrap_one(&[0.75, 0.5, 1.0], &[0]);
-        let b = lrap_one(&[1.0, 0.2, 0.1], &[2]);
-        assert!(((a + b) / 2.0 - 0.416_666_666).abs() < 1e-6);
-    }
-
-    #[test]
-    fn ties_count_against_and_universe_restricts() {
-        // Worked by hand: all scores equal, two relevant of three → 2/3 each.
-        assert!((lrap_one(&[0.0, 0.0, 0.0], &[0, 1]) - 2.0 / 3.0).abs() < 1e-12);
+    fn mean_lrap_restricts_to_kept_tags_and_skips_pictures_without_one() {
+        // Worked by hand with scikit-learn's LRAP definition (ties count against).
         let truth = vec![vec![0, 2], vec![0, 1], vec![1]];
-        let scores = |_: usize| vec![3.0, 2.0, 1.0];
-        let all = lrap(&[0, 1, 2], &truth, &[0, 1, 2], 3, scores);
+        let scores = array![[3.0f32, 2.0, 1.0], [3.0, 2.0, 1.0], [3.0, 2.0, 1.0]];
+        let all = mean_lrap(scores.view(), &truth, &[true; 3]);
         // picture 0 → (1/1 + 2/3)/2, picture 1 → 1, picture 2 → 1/2
         assert!((all - ((1.0 + 2.0 / 3.0) / 2.0 + 1.0 + 0.5) / 3.0).abs() < 1e-12);
-        // Tag 2 dropped: picture 0 → 1, picture 1 → every label relevant → 1, picture 2 → 1/2.
-        let kept = lrap(&[0, 1, 2], &truth, &[0, 1], 3, scores);
+        // tag 2 dropped: picture 0 → 1, picture 1 → every kept tag relevant → 1, picture 2 → 1/2
+        let kept = mean_lrap(scores.view(), &truth, &[true, true, false]);
         assert!((kept - (1.0 + 1.0 + 0.5) / 3.0).abs() < 1e-12);
-        // A picture with no tag in the universe is left out.
-        assert!((lrap(&[2], &truth, &[0], 3, scores) - 0.0).abs() < 1e-12);
+        // only tag 0 kept: picture 2 has none of it and is left out, the others score 1
+        let only = mean_lrap(scores.view(), &truth, &[true, false, false]);
+        assert!((only - 1.0).abs() < 1e-12);
     }
 
     #[test]
-    fn knn_leaves_the_picture_itself_out() {
-        let rows = ndarray::array![[1.0f32, 0.0], [0.9, 0.1], [0.0, 1.0]];
-        let truth = vec![vec![0], vec![1], vec![2]];
-        let everyone = [0, 1, 2];
-        let score = knn_scorer(&rows, &truth, 3, 1, &everyone);
-        let s0 = score(0);
-        assert_eq!(s0[0], 0.0, "own tags must not leak");
-        assert!(s0[1] > 0.9 && s0[2] == 0.0);
+    fn loo_prior_leaves_each_pictures_own_tags_out() {
+        let truth = vec![vec![0, 1], vec![0], vec![2]];
+        let p = loo_prior(&truth, 3);
+        assert_eq!(
+            p,
+            array![[1.0f32, 0.0, 1.0], [1.0, 1.0, 1.0], [2.0, 1.0, 0.0]]
+        );
+    }
+
+    #[test]
+    fn pictures_and_tags_are_found_as_the_scan_finds_them() {
+        let dir = tempfile::tempdir().unwrap();
+        let png = |name: &str, shade: u8| {
+            image::RgbImage::from_pixel(4, 4, image::Rgb([shade, 0, 0]))
+                .save(dir.path().join(name))
+                .unwrap();
+        };
+        png("b.png", 1);
+        png("a.png", 2);
+        png("untagged.png", 3);
+        std::fs::write(dir.path().join("b.txt"), "Red  Apple\nfruit, red apple\n").unwrap();
+        std::fs::write(dir.path().join("a.txt"), "# a comment\nSky\n").unwrap();
+        std::fs::write(dir.path().join("notes.md"), "not a picture").unwrap();
+        let t = tagged_pictures(dir.path()).unwrap();
+        let names: Vec<_> = t.paths.iter().map(|p| p.file_name().unwrap()).collect();
+        assert_eq!(names, ["a.png", "b.png"]);
+        assert_eq!(t.tags, [vec!["sky"], vec!["red-apple", "fruit"]]);
+        assert_eq!(t.hashes.len(), 2);
+        assert_ne!(t.hashes[0], t.hashes[1]);
+        assert_eq!(t.left_out, 1);
     }
 }
