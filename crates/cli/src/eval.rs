@@ -1,12 +1,22 @@
-use std::path::PathBuf;
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
 
-use anyhow::bail;
-use tagweave_eval::{baselines, evaluate, EvalOptions, Progress};
+use anyhow::{bail, Context};
+use tagweave_eval::{audit_out_of_fold, baselines, evaluate, EvalOptions, Progress};
 use tagweave_indexer::FeatureTable;
 
 use crate::exit::Outcome;
 use crate::progress;
 use crate::scan::{open_for_scan, scan_with_progress, ScanArgs};
+
+/// Fewest tagged pictures worth splitting into a train and a test part.
+const MIN_TAGGED: usize = 8;
+/// Folds of the out-of-fold audit behind `--known-mislabels`.
+const AUDIT_FOLDS: usize = 5;
+/// Keeps the audit's folds independent of the split drawn from the same seed.
+const AUDIT_SEED: u64 = 0x6175_6469;
+/// The column of the known-mislabels file that marks a wrong tag.
+const FALSE_TAGS: &str = "false_tags";
 
 #[derive(clap::Args)]
 pub struct EvalArgs {
@@ -18,6 +28,13 @@ pub struct EvalArgs {
     /// Share of tagged pictures the methods learn from; the rest are scored blind.
     #[arg(long, default_value_t = 0.75)]
     pub train_fraction: f64,
+    /// Also measure how well real wrong tags are found. FILE is a CSV whose first column is
+    /// the picture's path inside FOLDER and whose `false_tags` column is non-empty for
+    /// pictures known to carry a wrong tag (pictures not listed count as correctly tagged).
+    /// Every tagged picture is judged by methods fitted on the other 4 of 5 folds, so its
+    /// own tags are never seen when it is judged.
+    #[arg(long, value_name = "FILE")]
+    pub known_mislabels: Option<PathBuf>,
     /// Print one JSON object instead of a table.
     #[arg(long, conflicts_with = "markdown")]
     pub json: bool,
@@ -31,12 +48,25 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
     let store = open_for_scan(&scan_args)?;
     scan_with_progress(&store, &scan_args.options())?;
     let table = FeatureTable::load(&store)?;
-    if table.items.iter().filter(|i| !i.tags.is_empty()).count() < 8 {
+    let tagged = table.items.iter().filter(|i| !i.tags.is_empty()).count();
+    if tagged < MIN_TAGGED {
         bail!(
-            "{} has too few tagged pictures to hold some back and measure; tag at least 8",
+            "{} has only {tagged} tagged pictures, too few to hold some back and measure; \
+             tag at least {MIN_TAGGED}",
             args.folder.display()
         );
     }
+    // Read before the long work so a wrong file fails at once.
+    let known = match &args.known_mislabels {
+        Some(file) => {
+            let text = std::fs::read_to_string(file).with_context(|| {
+                format!("cannot read the known-mislabels file {}", file.display())
+            })?;
+            let paths: Vec<&str> = table.items.iter().map(|i| i.rel_path.as_str()).collect();
+            Some(known_mislabels(&text, file, &args.folder, &paths)?)
+        }
+        None => None,
+    };
     let tags: Vec<Vec<String>> = table.items.iter().map(|i| i.tags.clone()).collect();
     let keys: Vec<String> = table.items.iter().map(|i| i.content_hash.clone()).collect();
     let options = EvalOptions {
@@ -46,21 +76,45 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
     };
     let mut methods = baselines();
     let bar = progress::bar("evaluating");
-    let report = evaluate(
+    let mut on_progress = |event: Progress| {
+        let (done, total) = match event {
+            Progress::Fitting { index, total, .. } => (2 * index, 2 * total),
+            Progress::Measuring { index, total, .. } => (2 * index + 1, 2 * total),
+            Progress::Auditing { fold, folds } => (fold, folds),
+        };
+        bar.set_length(total as u64);
+        bar.set_position(done as u64);
+    };
+    let mut report = evaluate(
         table.features.view(),
         &tags,
         &keys,
         &options,
         &mut methods,
-        &mut |event| {
-            let (step, index, total) = match event {
-                Progress::Fitting { index, total, .. } => (0, index, total),
-                Progress::Measuring { index, total, .. } => (1, index, total),
-            };
-            bar.set_length(2 * total as u64);
-            bar.set_position((2 * index + step) as u64);
-        },
+        &mut on_progress,
     )?;
+    if let (Some(known), Some(file)) = (known, &args.known_mislabels) {
+        bar.set_message("auditing out of fold");
+        let audit = audit_out_of_fold(
+            table.features.view(),
+            &tags,
+            &keys,
+            AUDIT_FOLDS,
+            args.seed ^ AUDIT_SEED,
+            &baselines,
+            &mut on_progress,
+        )?;
+        let measured = audit.against_known(&known)?;
+        if measured.known == 0 {
+            bail!(
+                "{} marks no tagged picture of {} as carrying a wrong tag, so there is nothing \
+                 to find; fill its `{FALSE_TAGS}` column for the pictures known to be mislabelled",
+                file.display(),
+                args.folder.display()
+            );
+        }
+        report.known_mislabels = Some(measured);
+    }
     bar.finish_and_clear();
     if args.json {
         println!("{}", serde_json::to_string(&report)?);
@@ -70,4 +124,162 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         print!("{}", report.to_table());
     }
     Ok(Outcome::Done)
+}
+
+/// One flag per picture of `rel_paths`: does the known-mislabels file
+/// (`text`, read from `file`) list it with a non-empty `false_tags` cell?
+fn known_mislabels(
+    text: &str,
+    file: &Path,
+    folder: &Path,
+    rel_paths: &[&str],
+) -> anyhow::Result<Vec<bool>> {
+    let records = parse_csv(text).map_err(|e| anyhow::anyhow!("{}: {e}", file.display()))?;
+    let Some((header_line, header)) = records.first() else {
+        bail!(
+            "{} is empty; it needs a header line naming a `{FALSE_TAGS}` column",
+            file.display()
+        );
+    };
+    let Some(column) = header.iter().position(|h| h.trim() == FALSE_TAGS) else {
+        bail!(
+            "{} line {header_line}: the header has no `{FALSE_TAGS}` column; name the column \
+             that is non-empty for pictures known to carry a wrong tag `{FALSE_TAGS}`",
+            file.display()
+        );
+    };
+    let index: HashMap<&str, usize> = rel_paths
+        .iter()
+        .enumerate()
+        .map(|(i, &path)| (path, i))
+        .collect();
+    let mut known = vec![false; rel_paths.len()];
+    for (line, fields) in &records[1..] {
+        let path = fields[0].trim().replace('\\', "/");
+        let path = path.trim_start_matches("./");
+        let Some(&i) = index.get(path) else {
+            bail!(
+                "{} line {line}: `{path}` is not a picture indexed in {}; the first column must \
+                 be a picture's path inside that folder, such as `{}`",
+                file.display(),
+                folder.display(),
+                rel_paths.first().unwrap_or(&"photos/a.jpg")
+            );
+        };
+        let Some(cell) = fields.get(column) else {
+            bail!(
+                "{} line {line}: the row has {} fields but `{FALSE_TAGS}` is field {}; give \
+                 every row as many fields as the header",
+                file.display(),
+                fields.len(),
+                column + 1
+            );
+        };
+        known[i] |= !cell.trim().is_empty();
+    }
+    Ok(known)
+}
+
+/// Records of a comma-separated file (RFC 4180: fields may be quoted, `""`
+/// inside quotes is one quote, quoted fields may span lines), each with the
+/// line it starts on; blank lines are skipped.
+fn parse_csv(text: &str) -> Result<Vec<(usize, Vec<String>)>, String> {
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let mut records = Vec::new();
+    let (mut fields, mut field) = (Vec::new(), String::new());
+    let (mut line, mut start, mut quoted) = (1, 1, false);
+    let mut chars = text.chars().peekable();
+    while let Some(c) = chars.next() {
+        match (quoted, c) {
+            (true, '"') if chars.peek() == Some(&'"') => {
+                chars.next();
+                field.push('"');
+            }
+            (true, '"') => quoted = false,
+            (false, '"') if field.is_empty() => quoted = true,
+            (false, ',') => fields.push(std::mem::take(&mut field)),
+            (false, '\r') if chars.peek() == Some(&'\n') => {}
+            (false, '\n') => {
+                fields.push(std::mem::take(&mut field));
+                if fields.iter().any(|f| !f.is_empty()) {
+                    records.push((start, std::mem::take(&mut fields)));
+                }
+                fields.clear();
+                line += 1;
+                start = line;
+            }
+            (_, c) => {
+                if c == '\n' {
+                    line += 1;
+                }
+                field.push(c);
+            }
+        }
+    }
+    if quoted {
+        return Err(format!(
+            "the quoted field opened on line {start} is never closed; add the closing `\"`"
+        ));
+    }
+    fields.push(field);
+    if fields.iter().any(|f| !f.is_empty()) {
+        records.push((start, fields));
+    }
+    Ok(records)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn strings(v: &[&str]) -> Vec<String> {
+        v.iter().map(|s| s.to_string()).collect()
+    }
+
+    #[test]
+    fn csv_records_follow_rfc_4180() {
+        // source: RFC 4180 §2 rules 5–7 (quoted fields, "" escapes, line breaks inside quotes)
+        let text = "\u{feff}file,false_tags\r\na.jpg,\r\n\r\n\"b, c.jpg\",\"say \"\"rain\"\"\"\n\"d\n.jpg\",x";
+        let records = parse_csv(text).unwrap();
+        assert_eq!(
+            records,
+            vec![
+                (1, strings(&["file", "false_tags"])),
+                (2, strings(&["a.jpg", ""])),
+                (4, strings(&["b, c.jpg", "say \"rain\""])),
+                (5, strings(&["d\n.jpg", "x"])),
+            ]
+        );
+        assert!(parse_csv("a,\"open\nb").unwrap_err().contains("line 1"));
+    }
+
+    #[test]
+    fn known_mislabels_are_matched_by_path_and_errors_name_the_line() {
+        let (file, folder) = (Path::new("truth.csv"), Path::new("archive"));
+        let paths = ["1950s/a.png", "1950s/b.jpg", "c.jpg"];
+        let text =
+            "file,sidecar,false_tags\n1950s/a.png,txt,rain\n./1950s/b.jpg,txt,\nc.jpg,none, \n";
+        let known = known_mislabels(text, file, folder, &paths).unwrap();
+        assert_eq!(known, vec![true, false, false]);
+
+        let unknown = "file,false_tags\n1950s/a.png,rain\n1950s/zz.png,fog\n";
+        let e = known_mislabels(unknown, file, folder, &paths)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("truth.csv line 3") && e.contains("`1950s/zz.png`"),
+            "{e}"
+        );
+        assert!(e.contains("archive") && e.contains("`1950s/a.png`"), "{e}");
+
+        let e = known_mislabels("file,wrong\nc.jpg,x\n", file, folder, &paths).unwrap_err();
+        assert!(e.to_string().contains("no `false_tags` column"), "{e}");
+        let e = known_mislabels("file,x,false_tags\nc.jpg\n", file, folder, &paths).unwrap_err();
+        assert!(
+            e.to_string().contains("line 2: the row has 1 fields"),
+            "{e}"
+        );
+        let e = known_mislabels("", file, folder, &paths).unwrap_err();
+        assert!(e.to_string().contains("is empty"), "{e}");
+    }
 }

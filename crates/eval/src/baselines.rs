@@ -65,16 +65,16 @@ fn rows_to_array(rows: Vec<Vec<f32>>, cols: usize) -> Array2<f32> {
     Array2::from_shape_fn((n, cols), |(i, j)| flat[i * cols + j])
 }
 
-/// Validation row lists of up to [`CV_FOLDS`] folds; content groups are
+/// Validation row lists of up to `n_folds` folds; content groups are
 /// shuffled (seeded) and dealt round-robin. Empty if fewer than 2 groups.
-fn grouped_folds(groups: &[usize], seed: u64) -> Vec<Vec<usize>> {
+pub(crate) fn grouped_folds(groups: &[usize], n_folds: usize, seed: u64) -> Vec<Vec<usize>> {
     let mut distinct: Vec<usize> = groups
         .iter()
         .copied()
         .collect::<BTreeSet<_>>()
         .into_iter()
         .collect();
-    let n_folds = CV_FOLDS.min(distinct.len());
+    let n_folds = n_folds.min(distinct.len());
     if n_folds < 2 {
         return Vec::new();
     }
@@ -102,7 +102,7 @@ fn choose_by_cv(
     n_candidates: usize,
     score_fold: impl Fn(&[usize], &[usize]) -> Result<Vec<Array2<f32>>, EvalError>,
 ) -> Result<usize, EvalError> {
-    let folds = grouped_folds(train.groups, train.seed);
+    let folds = grouped_folds(train.groups, CV_FOLDS, train.seed);
     if folds.is_empty() {
         return Ok(n_candidates / 2);
     }
@@ -676,7 +676,7 @@ pub(crate) mod tests {
     #[test]
     fn grouped_folds_keep_groups_together_and_cover_all_rows() {
         let groups = [0, 0, 1, 2, 2, 3, 4, 5, 6, 6];
-        let folds = grouped_folds(&groups, 5);
+        let folds = grouped_folds(&groups, 5, 5);
         assert_eq!(folds.len(), 5);
         let mut all: Vec<usize> = folds.concat();
         all.sort_unstable();
@@ -685,6 +685,7 @@ pub(crate) mod tests {
             assert_eq!(f.contains(&0), f.contains(&1));
             assert_eq!(f.contains(&8), f.contains(&9));
         }
-        assert!(grouped_folds(&[3, 3], 1).is_empty());
+        assert!(grouped_folds(&[3, 3], 5, 1).is_empty());
+        assert_eq!(grouped_folds(&groups, 3, 5).len(), 3);
     }
 }

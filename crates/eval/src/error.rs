@@ -41,6 +41,8 @@ pub enum EvalError {
         row: usize,
         col: usize,
     },
+    #[error("an out-of-fold audit needs at least 2 folds, got {0}; use 5")]
+    BadFolds(usize),
     #[error("no candidate values were given for {0}; pass at least one")]
     NoCandidates(&'static str),
     #[error("ridge regression system is not positive definite at pivot {pivot}; features may hold huge values, standardise them or raise the ridge strength")]

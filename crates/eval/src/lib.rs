@@ -5,8 +5,11 @@
 //! Pure computation on feature matrices (rows = pictures) and tag lists: no
 //! files, no printing. A method plugs in by implementing [`TagScorer`]; the
 //! runner [`evaluate`] builds the split, fits every method on train rows only
-//! and returns a serialisable [`Report`].
+//! and returns a serialisable [`Report`]; [`audit_out_of_fold`] disputes every
+//! tagged picture with methods that never saw its tags, to be scored against
+//! pictures known to be mislabelled.
 
+mod audit;
 mod baselines;
 mod error;
 mod linalg;
@@ -16,6 +19,7 @@ mod report;
 mod runner;
 mod split;
 
+pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
 pub use baselines::{
     knn_leave_one_out_scores, KnnScorer, PriorScorer, RidgeScorer, TagScorer, TrainSet,
 };

@@ -66,19 +66,23 @@ pub(crate) fn midranks(values: &[f64]) -> Vec<f64> {
     ranks
 }
 
+/// Each column's scores replaced by their mid-ranks (1 = lowest).
+pub(crate) fn column_midranks(scores: ArrayView2<f32>) -> Array2<f64> {
+    let mut out = Array2::zeros(scores.raw_dim());
+    for (col, mut dest) in scores.columns().into_iter().zip(out.columns_mut()) {
+        let values: Vec<f64> = col.iter().map(|&v| f64::from(v)).collect();
+        dest.iter_mut()
+            .zip(midranks(&values))
+            .for_each(|(d, r)| *d = r);
+    }
+    out
+}
+
 /// Each column's scores replaced by mid-rank / rows, in (0, 1]: makes columns
 /// of any method comparable ("how high is this picture among the others
 /// for this tag"), whatever the scale of its scores.
 pub(crate) fn column_ranks(scores: ArrayView2<f32>) -> Array2<f64> {
-    let mut out = Array2::zeros(scores.raw_dim());
-    let n = scores.nrows() as f64;
-    for (col, mut dest) in scores.columns().into_iter().zip(out.columns_mut()) {
-        let values: Vec<f64> = col.iter().map(|&v| f64::from(v)).collect();
-        for (d, r) in dest.iter_mut().zip(midranks(&values)) {
-            *d = r / n;
-        }
-    }
-    out
+    column_midranks(scores) / scores.nrows() as f64
 }
 
 pub(crate) fn mean(values: impl IntoIterator<Item = f64>) -> Option<f64> {

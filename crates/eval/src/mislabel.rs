@@ -6,7 +6,7 @@ use rand::seq::{IndexedRandom, SliceRandom};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
-use crate::metrics::{column_ranks, mean};
+use crate::metrics::{column_midranks, mean};
 
 /// Tag sets after injection, and which pictures were given someone else's set.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -43,17 +43,20 @@ pub fn inject_mislabels(tags: &[Vec<usize>], fraction: f64, seed: u64) -> Inject
 }
 
 /// How much a method disputes each picture's carried tags: 1 − the mean,
-/// over the carried tags, of the picture's rank among all scored pictures
-/// for that tag (mid-rank / n, so in (0, 1]). Ranking within a tag's column
-/// asks "is this picture unusual for this tag?" and makes any score scale
-/// usable; a method that ignores the picture (equal columns) gives every
-/// picture the same value, i.e. ROC AUC 0.5. A picture with no tags scores 0.
+/// over the carried tags, of the picture's position among all scored
+/// pictures for that tag ((mid-rank − ½) / n, so in (0, 1)). Ranking within
+/// a tag's column asks "is this picture unusual for this tag?" and makes any
+/// score scale usable. The −½ centres a tied column on exactly ½ whatever n,
+/// so a method that ignores the picture (equal columns) gives every picture
+/// 0.5 — ROC AUC 0.5 even when values from differently sized score matrices
+/// are pooled, as the out-of-fold audit does. A picture with no tags scores 0.
 pub fn disagreement(scores: ArrayView2<f32>, carried: &[Vec<usize>]) -> Vec<f64> {
-    let ranks = column_ranks(scores);
+    let n = scores.nrows() as f64;
+    let position = (column_midranks(scores) - 0.5) / n;
     carried
         .iter()
         .enumerate()
-        .map(|(i, tags)| mean(tags.iter().map(|&t| ranks[[i, t]])).map_or(0.0, |m| 1.0 - m))
+        .map(|(i, tags)| mean(tags.iter().map(|&t| position[[i, t]])).map_or(0.0, |m| 1.0 - m))
         .collect()
 }
 
@@ -93,16 +96,26 @@ mod tests {
 
     #[test]
     fn disagreement_worked_example() {
-        // worked by hand: column ranks / 3 — tag 0: [1, 2/3, 1/3]; tag 1: [1/3, 1, 2/3].
-        // picture 0 carries {0}: 1 − 1 = 0; picture 1 carries {0,1}: 1 − (2/3+1)/2 = 1/6;
-        // picture 2 carries {0}: 1 − 1/3 = 2/3.
+        // worked by hand: mid-ranks per column, then (rank − ½) / 3 —
+        // tag 0: ranks [3, 2, 1] → [5/6, 1/2, 1/6]; tag 1: ranks [1, 3, 2] → [1/6, 5/6, 1/2].
+        // picture 0 carries {0}: 1 − 5/6 = 1/6; picture 1 carries {0,1}: 1 − (1/2+5/6)/2 = 1/3;
+        // picture 2 carries {0}: 1 − 1/6 = 5/6; picture 3 carries nothing: 0.
         let scores = array![[0.9f32, 0.1], [0.5, 0.8], [0.2, 0.3]];
         let d = disagreement(scores.view(), &[vec![0], vec![0, 1], vec![0]]);
-        for (got, want) in d.iter().zip([0.0, 1.0 / 6.0, 2.0 / 3.0]) {
+        for (got, want) in d.iter().zip([1.0 / 6.0, 1.0 / 3.0, 5.0 / 6.0]) {
             assert!((got - want).abs() < 1e-12, "{d:?}");
         }
-        let flat = array![[0.5f32, 0.2], [0.5, 0.2]];
-        let d = disagreement(flat.view(), &[vec![0], vec![1]]);
-        assert_eq!(d[0], d[1]);
+        assert_eq!(
+            disagreement(scores.view(), &[vec![], vec![0], vec![1]])[0],
+            0.0
+        );
+        // a picture-blind method disputes every picture by exactly ½, for any n
+        for n in [2, 3, 7] {
+            let flat = ndarray::Array2::from_elem((n, 2), 0.4f32);
+            let carried: Vec<Vec<usize>> = (0..n).map(|i| vec![i % 2]).collect();
+            assert!(disagreement(flat.view(), &carried)
+                .iter()
+                .all(|&v| v == 0.5));
+        }
     }
 }

@@ -5,11 +5,17 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
+use crate::KnownMislabels;
+
 /// Everything measured in one run: the split, then one entry per method.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Report {
     pub split: SplitSummary,
     pub methods: BTreeMap<String, MethodReport>,
+    /// Out-of-fold audit against pictures known to carry a wrong tag, when
+    /// the caller has such a list (see [`crate::audit_out_of_fold`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub known_mislabels: Option<KnownMislabels>,
 }
 
 /// How the pictures were divided and what could be measured on them.
@@ -136,50 +142,95 @@ impl Report {
             .collect()
     }
 
-    /// The split summary as a paragraph, then a Markdown table, one row per method.
+    /// The split summary as a paragraph, then a Markdown table, one row per
+    /// method; then the known-mislabel paragraph and table, if measured.
     pub fn to_markdown(&self) -> String {
-        let line = |cells: &[String]| format!("| {} |\n", cells.join(" | "));
-        let header: Vec<String> = COLUMNS.iter().map(|c| c.to_string()).collect();
-        let rule: Vec<String> = COLUMNS.iter().map(|_| "---".to_string()).collect();
         let mut out = format!("{}\n\n", self.summary_line());
-        out += &line(&header);
-        out += &line(&rule);
-        for row in self.rows() {
-            out += &line(&row);
+        out += &markdown_table(&COLUMNS, &self.rows());
+        if let Some(known) = &self.known_mislabels {
+            out += &format!("\n{}\n\n", known.summary_line());
+            out += &markdown_table(&known.columns(), &known.rows());
         }
         out
     }
 
-    /// The split summary, then an aligned plain-text table for terminals.
+    /// The same as [`Report::to_markdown`], as aligned plain text for terminals.
     pub fn to_table(&self) -> String {
-        let header: Vec<String> = COLUMNS.iter().map(|c| c.to_string()).collect();
-        let rows = self.rows();
-        let widths: Vec<usize> = (0..COLUMNS.len())
-            .map(|c| {
-                rows.iter()
-                    .chain([&header])
-                    .map(|r| r[c].chars().count())
-                    .max()
-                    .unwrap_or(0)
-            })
-            .collect();
         let mut out = format!("{}\n", self.summary_line());
-        for row in [&header].into_iter().chain(&rows) {
-            let cells: Vec<String> = row
-                .iter()
-                .zip(&widths)
-                .enumerate()
-                .map(|(c, (cell, &w))| {
-                    if c < 2 {
-                        format!("{cell:<w$}")
-                    } else {
-                        format!("{cell:>w$}")
-                    }
-                })
-                .collect();
-            out += cells.join("  ").trim_end();
-            out.push('\n');
+        out += &aligned_table(&COLUMNS, &self.rows(), 2);
+        if let Some(known) = &self.known_mislabels {
+            out += &format!("\n{}\n", known.summary_line());
+            out += &aligned_table(&known.columns(), &known.rows(), 1);
         }
         out
     }
+}
+
+impl KnownMislabels {
+    fn summary_line(&self) -> String {
+        format!(
+            "known mislabels: {} tagged pictures, each judged by methods fitted on the other {} of {} folds; {} known to carry a wrong tag",
+            self.pictures,
+            self.folds.saturating_sub(1),
+            self.folds,
+            self.known
+        )
+    }
+
+    fn columns(&self) -> [String; 3] {
+        [
+            "method".to_string(),
+            "known-mislabel AUC".to_string(),
+            format!("precision in top {}", self.known),
+        ]
+    }
+
+    fn rows(&self) -> Vec<Vec<String>> {
+        self.methods
+            .iter()
+            .map(|(name, m)| vec![name.clone(), optional(m.auc), optional(m.precision)])
+            .collect()
+    }
+}
+
+fn markdown_table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
+    let line = |cells: Vec<&str>| format!("| {} |\n", cells.join(" | "));
+    let mut out = line(header.iter().map(AsRef::as_ref).collect());
+    out += &line(header.iter().map(|_| "---").collect());
+    for row in rows {
+        out += &line(row.iter().map(String::as_str).collect());
+    }
+    out
+}
+
+/// Columns padded to their widest cell: the first `text_columns` left-aligned, numbers right-aligned.
+fn aligned_table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>], text_columns: usize) -> String {
+    let header: Vec<String> = header.iter().map(|c| c.as_ref().to_string()).collect();
+    let widths: Vec<usize> = (0..header.len())
+        .map(|c| {
+            rows.iter()
+                .chain([&header])
+                .map(|r| r[c].chars().count())
+                .max()
+                .unwrap_or(0)
+        })
+        .collect();
+    let mut out = String::new();
+    for row in [&header].into_iter().chain(rows) {
+        let cells: Vec<String> = row
+            .iter()
+            .zip(&widths)
+            .enumerate()
+            .map(|(c, (cell, &w))| {
+                if c < text_columns {
+                    format!("{cell:<w$}")
+                } else {
+                    format!("{cell:>w$}")
+                }
+            })
+            .collect();
+        out += cells.join("  ").trim_end();
+        out.push('\n');
+    }
+    out
 }

@@ -46,7 +46,8 @@ impl Default for EvalOptions {
     }
 }
 
-/// Reported before each method is fitted and before it is measured.
+/// Reported before each method is fitted and before it is measured, and
+/// before each fold of an audit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Progress<'a> {
     Fitting {
@@ -59,6 +60,8 @@ pub enum Progress<'a> {
         index: usize,
         total: usize,
     },
+    /// Before the methods are fitted on all folds but `fold` of an out-of-fold audit.
+    Auditing { fold: usize, folds: usize },
 }
 
 /// The three baselines, in report order: tag frequency, kNN, ridge.
@@ -70,18 +73,23 @@ pub fn baselines() -> Vec<Box<dyn TagScorer>> {
     ]
 }
 
-fn check_inputs(
+/// The checks every entry point makes on the collection it is handed.
+pub(crate) fn check_collection(
     features: ArrayView2<f32>,
     tags: &[Vec<String>],
-    options: &EvalOptions,
-    methods: &[Box<dyn TagScorer>],
+    content_keys: &[String],
 ) -> Result<(), EvalError> {
-    if tags.len() != features.nrows() {
-        return Err(EvalError::LengthMismatch {
-            what: "tag list",
-            got: tags.len(),
-            expected: features.nrows(),
-        });
+    for (what, got) in [
+        ("tag list", tags.len()),
+        ("content key list", content_keys.len()),
+    ] {
+        if got != features.nrows() {
+            return Err(EvalError::LengthMismatch {
+                what,
+                got,
+                expected: features.nrows(),
+            });
+        }
     }
     if features.ncols() == 0 {
         return Err(EvalError::NoFeatures);
@@ -89,14 +97,31 @@ fn check_inputs(
     if let Some(((row, col), _)) = features.indexed_iter().find(|(_, v)| !v.is_finite()) {
         return Err(EvalError::NonFiniteFeature { row, col });
     }
-    if !(0.0..=0.5).contains(&options.noise_fraction) {
-        return Err(EvalError::BadNoiseFraction(options.noise_fraction));
-    }
+    Ok(())
+}
+
+/// Method names must be distinct: they key the report.
+pub(crate) fn check_method_names(methods: &[Box<dyn TagScorer>]) -> Result<(), EvalError> {
     let mut names = BTreeSet::new();
     for m in methods {
         if !names.insert(m.name()) {
             return Err(EvalError::DuplicateMethod(m.name().to_string()));
         }
+    }
+    Ok(())
+}
+
+fn check_inputs(
+    features: ArrayView2<f32>,
+    tags: &[Vec<String>],
+    content_keys: &[String],
+    options: &EvalOptions,
+    methods: &[Box<dyn TagScorer>],
+) -> Result<(), EvalError> {
+    check_collection(features, tags, content_keys)?;
+    check_method_names(methods)?;
+    if !(0.0..=0.5).contains(&options.noise_fraction) {
+        return Err(EvalError::BadNoiseFraction(options.noise_fraction));
     }
     Ok(())
 }
@@ -109,7 +134,7 @@ struct TestTruth {
     injection: Injection,
 }
 
-fn check_scores(
+pub(crate) fn check_scores(
     name: &str,
     scores: &Array2<f32>,
     rows: usize,
@@ -182,7 +207,7 @@ pub fn evaluate(
     methods: &mut [Box<dyn TagScorer>],
     on_progress: &mut dyn FnMut(Progress),
 ) -> Result<Report, EvalError> {
-    check_inputs(features, tags, options, methods)?;
+    check_inputs(features, tags, content_keys, options, methods)?;
     let parts = split(
         features.nrows(),
         content_keys,
@@ -286,6 +311,7 @@ pub fn evaluate(
             mislabelled: truth.injection.noisy.iter().filter(|&&x| x).count(),
         },
         methods: reports,
+        known_mislabels: None,
     })
 }
 
@@ -524,6 +550,29 @@ mod tests {
         let table = r.to_table();
         assert_eq!(table.lines().count(), 5);
         assert!(table.lines().nth(2).unwrap().starts_with("knn "));
+
+        let audit = crate::Audit {
+            folds: 5,
+            disputes: BTreeMap::from([
+                ("knn".to_string(), vec![Some(0.8), Some(0.1), Some(0.3)]),
+                ("prior".to_string(), vec![Some(0.5); 3]),
+            ]),
+        };
+        let mut r = r;
+        r.known_mislabels = Some(audit.against_known(&[true, false, false]).unwrap());
+        let json = serde_json::to_value(&r).unwrap();
+        let known = &json["known_mislabels"];
+        assert_eq!(
+            (&known["pictures"], &known["known"]),
+            (&3.into(), &1.into())
+        );
+        assert_eq!(known["methods"]["knn"]["auc"], 1.0);
+        assert_eq!(known["methods"]["prior"]["precision"], 1.0 / 3.0);
+        let md = r.to_markdown();
+        assert!(md.contains("| method | known-mislabel AUC | precision in top 1 |\n| --- | --- | --- |\n| knn | 1.000 | 1.000 |\n| prior | 0.500 | 0.333 |\n"), "{md}");
+        let table = r.to_table();
+        assert_eq!(table.lines().count(), 5 + 5);
+        assert!(table.ends_with("\nmethod  known-mislabel AUC  precision in top 1\nknn                  1.000               1.000\nprior                0.500               0.333\n"), "{table}");
     }
 
     #[test]
