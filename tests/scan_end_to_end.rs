@@ -205,3 +205,16 @@ fn the_same_folder_and_seed_give_identical_features() {
         assert_eq!(bits(va), bits(vb), "{}", item.rel_path);
     }
 }
+
+#[test]
+fn the_demo_command_indexes_and_measures_the_archive() {
+    let (_temp, folder) = demo_copy();
+    let out = tagweave(&folder, &["demo", folder.to_str().unwrap()]);
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{text}\n{}", String::from_utf8_lossy(&out.stderr));
+    let truth = demo_truth();
+    assert!(text.contains(&format!("pictures  {:>6}", truth.len())), "{text}");
+    for expected in ["Step 1", "Step 2", "ridge", "known mislabels"] {
+        assert!(text.contains(expected), "{expected} missing:\n{text}");
+    }
+}

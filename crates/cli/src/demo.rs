@@ -18,7 +18,7 @@ fn bundled() -> PathBuf {
         "/../../demo-collection"
     ));
     if from_source.is_dir() {
-        from_source
+        from_source.canonicalize().unwrap_or(from_source)
     } else {
         PathBuf::from("demo-collection")
     }
@@ -32,7 +32,7 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
             folder.display()
         );
     }
-    let scan_args = ScanArgs::plain(folder);
+    let scan_args = ScanArgs::plain(folder.clone());
     let store = open_for_scan(&scan_args)?;
     let report = scan_with_progress(&store, &scan_args.options())?;
     println!("== Step 1: index the invented Saltmarrow archive");
@@ -40,5 +40,19 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
     println!();
     println!("== The most used tags");
     crate::tags::print_table(&store.vocabulary()?, 15);
+    drop(store);
+    println!();
+    println!("== Step 2: how well can tags be told from the pictures alone?");
+    println!("   (a quarter of the tagged pictures are held back and scored blind; the known");
+    println!("   wrong tags of TRUTH.csv are looked for by methods that never saw them)");
+    let truth = folder.join("TRUTH.csv");
+    crate::eval::run(&crate::eval::EvalArgs {
+        folder,
+        seed: 7,
+        train_fraction: 0.75,
+        known_mislabels: truth.is_file().then_some(truth),
+        json: false,
+        markdown: false,
+    })?;
     Ok(Outcome::Done)
 }
