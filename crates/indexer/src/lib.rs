@@ -219,3 +219,73 @@ pub fn scan(
         notes,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::path::Path;
+
+    /// A small real collection: the first pictures of the bundled demo archive.
+    fn small_collection(dir: &Path, count: usize) {
+        let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../demo-collection/1970s");
+        let mut pictures: Vec<_> = std::fs::read_dir(&demo)
+            .unwrap()
+            .map(|e| e.unwrap().path())
+            .filter(|p| p.extension().is_some_and(|e| e == "jpg" || e == "png"))
+            .collect();
+        pictures.sort();
+        for picture in pictures.iter().take(count) {
+            std::fs::copy(picture, dir.join(picture.file_name().unwrap())).unwrap();
+            let sidecar = picture.with_extension("txt");
+            if sidecar.exists() {
+                std::fs::copy(&sidecar, dir.join(sidecar.file_name().unwrap())).unwrap();
+            }
+        }
+    }
+
+    fn quick_options() -> ScanOptions {
+        let mut options = ScanOptions::default();
+        options.features.learn_images = 8;
+        options
+    }
+
+    #[test]
+    fn a_scan_stopped_before_the_feature_stage_is_completed_by_the_next() {
+        let temp = tempfile::tempdir().unwrap();
+        small_collection(temp.path(), 10);
+        let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
+        let first = scan(&store, &quick_options(), &|_| {}).unwrap();
+        assert_eq!((first.items, first.features.encoded), (10, 10));
+        assert!(first.features.learned);
+
+        // As if the process died after the items were written but before any feature was.
+        store.clear_vectors(FEATURES).unwrap();
+        let second = scan(&store, &quick_options(), &|_| {}).unwrap();
+        assert_eq!(second.unchanged, 10);
+        assert_eq!(second.features.encoded, 10, "missing features are made");
+        assert!(!second.features.learned, "the stored extractor is reused");
+        let table = FeatureTable::load(&store).unwrap();
+        assert_eq!(table.features.dim(), (10, second.features.dimension));
+    }
+
+    #[test]
+    fn an_unchanged_folder_is_not_read_again() {
+        let temp = tempfile::tempdir().unwrap();
+        small_collection(temp.path(), 6);
+        let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
+        scan(&store, &quick_options(), &|_| {}).unwrap();
+        let events = std::sync::Mutex::new(Vec::new());
+        let again = scan(&store, &quick_options(), &|e| {
+            events.lock().unwrap().push(format!("{e:?}"))
+        })
+        .unwrap();
+        assert_eq!((again.unchanged, again.features.encoded), (6, 0));
+        let events = events.into_inner().unwrap();
+        assert!(
+            events
+                .iter()
+                .all(|e| !e.starts_with("Read") && !e.starts_with("Encoding")),
+            "{events:?}"
+        );
+    }
+}
