@@ -1,0 +1,31 @@
+//! RBM building blocks for tagweave's joint picture–tag code.
+//!
+//! Pure computation: no files, no printing. Training reports progress through a
+//! callback. Everything random is driven by seeded ChaCha generators and split into
+//! fixed row chunks, so results do not depend on the number of rayon threads.
+//!
+//! Layers: [`BinaryRbm`] (tags, upper layers) and [`GaussianBernoulliRbm`]
+//! (standardised picture features); one trainer ([`train`]) for both; check values
+//! for tiny models ([`log_partition_exact`], [`log_likelihood_exact`],
+//! [`log_likelihood_gradient_exact`]) and an AIS estimate of log Z
+//! ([`log_partition_ais`]) for models too large to enumerate.
+
+mod ais;
+mod error;
+mod exact;
+mod rbm;
+mod train;
+
+#[cfg(test)]
+mod test_support;
+
+pub use ais::{log_partition_ais, AisEstimate, AisOptions};
+pub use error::ModelError;
+pub use exact::{
+    log_likelihood_exact, log_likelihood_gradient_exact, log_partition_exact, RbmGradient,
+    MAX_EXACT_HIDDEN,
+};
+pub use rbm::{
+    Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits, SAMPLE_CHUNK_ROWS,
+};
+pub use train::{train, EpochReport, LearningRateSchedule, Sparsity, TrainOptions, TrainSummary};

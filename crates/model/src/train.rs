@@ -1,0 +1,629 @@
+//! One mini-batch trainer (CD-k or persistent CD) for every visible-unit kind.
+
+use ndarray::{Array, Array1, Array2, ArrayView2, Axis, Dimension};
+use rand::seq::SliceRandom;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+use crate::rbm::{sample_bernoulli, sample_visible_from_means, squared_error};
+use crate::{ModelError, Rbm, VisibleUnits};
+
+/// How the learning rate changes over the epochs.
+#[derive(Clone, Debug, PartialEq)]
+pub enum LearningRateSchedule {
+    Constant,
+    /// Constant until `from_epoch`, then linear down to `final_fraction × learning_rate`
+    /// at the last epoch: large steps to find the region, small ones to settle in it.
+    LinearDecay {
+        from_epoch: usize,
+        final_fraction: f32,
+    },
+}
+
+/// Push each hidden unit's mean activity towards `target` (Hinton's guide §11).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Sparsity {
+    /// Desired mean probability of a hidden unit being on, e.g. 0.05–0.1.
+    pub target: f32,
+    /// Weight of the penalty's gradient relative to the likelihood gradient.
+    pub cost: f32,
+    /// Smoothing of the running estimate of each unit's activity, e.g. 0.9–0.99.
+    pub decay: f32,
+}
+
+/// Training settings. Defaults follow common practice for binary RBMs (Hinton 2010,
+/// "A Practical Guide to Training RBMs", from memory); for Gaussian visible units use a
+/// learning rate one or two orders smaller (≈ 0.001–0.005).
+#[derive(Clone, Debug, PartialEq)]
+pub struct TrainOptions {
+    /// Passes over the data (default 20).
+    pub epochs: usize,
+    /// Rows per gradient step (default 64); also the number of persistent chains.
+    pub batch_size: usize,
+    /// Step size (default 0.05).
+    pub learning_rate: f32,
+    /// Default [`LearningRateSchedule::Constant`].
+    pub schedule: LearningRateSchedule,
+    /// Gibbs steps per update, the k of CD-k (default 1).
+    pub gibbs_steps: usize,
+    /// Persistent CD: negative chains carry over between updates instead of restarting
+    /// at the data, which gives a better likelihood gradient (default false). Pair it with
+    /// low momentum (≈ 0.5) and a decaying rate: with 0.9 the chains and weights oscillate.
+    pub persistent: bool,
+    /// Momentum for the first `momentum_switch_epoch` epochs (default 0.5) ...
+    pub initial_momentum: f32,
+    /// ... and after them (default 0.9): small while the parameters move a lot.
+    pub final_momentum: f32,
+    /// Default 5.
+    pub momentum_switch_epoch: usize,
+    /// L2 penalty on the weights, not the biases (default 1e-4).
+    pub weight_decay: f32,
+    /// Default none.
+    pub sparsity: Option<Sparsity>,
+    /// With validation rows: stop after this many epochs without a better validation
+    /// reconstruction error and keep the best model (default 5).
+    pub patience: usize,
+    /// Seeds shuffling, persistent chains and all sampling (default 0).
+    pub seed: u64,
+}
+
+impl Default for TrainOptions {
+    fn default() -> Self {
+        Self {
+            epochs: 20,
+            batch_size: 64,
+            learning_rate: 0.05,
+            schedule: LearningRateSchedule::Constant,
+            gibbs_steps: 1,
+            persistent: false,
+            initial_momentum: 0.5,
+            final_momentum: 0.9,
+            momentum_switch_epoch: 5,
+            weight_decay: 1e-4,
+            sparsity: None,
+            patience: 5,
+            seed: 0,
+        }
+    }
+}
+
+impl TrainOptions {
+    fn learning_rate_at(&self, epoch: usize) -> f32 {
+        match self.schedule {
+            LearningRateSchedule::Constant => self.learning_rate,
+            LearningRateSchedule::LinearDecay {
+                from_epoch,
+                final_fraction,
+            } => {
+                let span = self
+                    .epochs
+                    .saturating_sub(1)
+                    .saturating_sub(from_epoch)
+                    .max(1);
+                let t = (epoch.saturating_sub(from_epoch) as f32 / span as f32).min(1.0);
+                self.learning_rate * (1.0 - (1.0 - final_fraction) * t)
+            }
+        }
+    }
+
+    fn validate(&self) -> Result<(), ModelError> {
+        let bad = |name, value: String, fix| Err(ModelError::InvalidOption { name, value, fix });
+        if self.batch_size == 0 {
+            return bad(
+                "batch_size",
+                "0".into(),
+                "use at least 1 (typically 32–128)",
+            );
+        }
+        if self.gibbs_steps == 0 {
+            return bad("gibbs_steps", "0".into(), "use at least 1");
+        }
+        if !(self.learning_rate > 0.0 && self.learning_rate.is_finite()) {
+            return bad(
+                "learning_rate",
+                self.learning_rate.to_string(),
+                "use a positive number",
+            );
+        }
+        if let Some(s) = &self.sparsity {
+            if !(s.target > 0.0 && s.target < 1.0) {
+                return bad(
+                    "sparsity.target",
+                    s.target.to_string(),
+                    "use a value in (0, 1)",
+                );
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Progress after each epoch.
+#[derive(Clone, Debug, PartialEq)]
+pub struct EpochReport {
+    /// Counted from 0.
+    pub epoch: usize,
+    pub learning_rate: f32,
+    /// Mean squared error of the mean-field reconstruction over the epoch's batches,
+    /// measured before each batch's update.
+    pub reconstruction_error: f32,
+    /// Same measure on the validation rows after the epoch, when they were given.
+    pub validation_error: Option<f32>,
+}
+
+/// How training ended.
+#[derive(Clone, Debug, PartialEq)]
+pub struct TrainSummary {
+    pub epochs_run: usize,
+    /// Epoch whose parameters were kept (the best on validation, else the last).
+    pub kept_epoch: usize,
+    pub stopped_early: bool,
+}
+
+/// Train `rbm` in place on the rows of `data`.
+///
+/// With `validation` rows, the model with the lowest validation reconstruction error is
+/// kept, and training stops after `opts.patience` epochs without improvement.
+pub fn train<V: VisibleUnits>(
+    rbm: &mut Rbm<V>,
+    data: ArrayView2<f32>,
+    validation: Option<ArrayView2<f32>>,
+    opts: &TrainOptions,
+    progress: &mut dyn FnMut(EpochReport),
+) -> Result<TrainSummary, ModelError> {
+    opts.validate()?;
+    rbm.check_rows("training data", data)?;
+    if let Some(val) = validation {
+        rbm.check_rows("validation data", val)?;
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(opts.seed);
+    let mut state = State::new(rbm, data, opts, &mut rng);
+    let mut order: Vec<usize> = (0..data.nrows()).collect();
+    let mut best: Option<(f32, usize, Rbm<V>)> = None;
+    let mut epochs_run = 0;
+    for epoch in 0..opts.epochs {
+        let lr = opts.learning_rate_at(epoch);
+        let momentum = if epoch < opts.momentum_switch_epoch {
+            opts.initial_momentum
+        } else {
+            opts.final_momentum
+        };
+        order.shuffle(&mut rng);
+        let mut sq = 0.0f64;
+        for rows in order.chunks(opts.batch_size) {
+            let v0 = data.select(Axis(0), rows);
+            sq += f64::from(state.step(rbm, v0.view(), opts, lr, momentum, &mut rng));
+        }
+        epochs_run = epoch + 1;
+        let reconstruction_error = (sq / data.len() as f64) as f32;
+        if !reconstruction_error.is_finite() {
+            return Err(ModelError::Diverged { epoch });
+        }
+        let validation_error = validation.map(|val| rbm.reconstruction_error(val));
+        progress(EpochReport {
+            epoch,
+            learning_rate: lr,
+            reconstruction_error,
+            validation_error,
+        });
+        if let Some(err) = validation_error {
+            match &best {
+                Some((best_err, best_epoch, _)) if err >= *best_err => {
+                    if epoch - best_epoch >= opts.patience {
+                        break;
+                    }
+                }
+                _ => best = Some((err, epoch, rbm.clone())),
+            }
+        }
+    }
+    let kept_epoch = match best {
+        Some((_, epoch, model)) => {
+            *rbm = model;
+            epoch
+        }
+        None => epochs_run.saturating_sub(1),
+    };
+    Ok(TrainSummary {
+        epochs_run,
+        kept_epoch,
+        stopped_early: epochs_run < opts.epochs,
+    })
+}
+
+/// Velocities, persistent chains and the sparsity running average.
+struct State {
+    vel_w: Array2<f32>,
+    vel_b: Array1<f32>,
+    vel_c: Array1<f32>,
+    chains: Option<Array2<f32>>,
+    activity: Array1<f32>,
+}
+
+impl State {
+    fn new<V: VisibleUnits>(
+        rbm: &Rbm<V>,
+        data: ArrayView2<f32>,
+        opts: &TrainOptions,
+        rng: &mut ChaCha8Rng,
+    ) -> Self {
+        // Chains start at random training rows: already near the model's modes later on.
+        let chains = opts.persistent.then(|| {
+            let rows: Vec<usize> = (0..opts.batch_size)
+                .map(|_| rng.random_range(0..data.nrows()))
+                .collect();
+            data.select(Axis(0), &rows)
+        });
+        let target = opts.sparsity.as_ref().map_or(0.0, |s| s.target);
+        Self {
+            vel_w: Array2::zeros(rbm.weights.raw_dim()),
+            vel_b: Array1::zeros(rbm.n_visible()),
+            vel_c: Array1::zeros(rbm.n_hidden()),
+            chains,
+            activity: Array1::from_elem(rbm.n_hidden(), target),
+        }
+    }
+
+    /// One gradient step on batch `v0`; returns its summed squared reconstruction error.
+    fn step<V: VisibleUnits>(
+        &mut self,
+        rbm: &mut Rbm<V>,
+        v0: ArrayView2<f32>,
+        opts: &TrainOptions,
+        lr: f32,
+        momentum: f32,
+        rng: &mut ChaCha8Rng,
+    ) -> f32 {
+        let h0 = rbm.hidden_probabilities(v0);
+        let sq = squared_error(v0, rbm.visible_means(h0.view()).view());
+
+        // Negative phase. CD starts from the data; PCD continues its chains. CD's last
+        // visible step uses means (less sampling noise, Hinton's guide §3); PCD keeps
+        // samples so the chains stay proper Markov chains.
+        let mut h = match &self.chains {
+            Some(chains) => rbm.sample_hidden(chains.view(), rng),
+            None => sample_bernoulli(&h0, rng),
+        };
+        let mut vk = Array2::zeros((0, 0));
+        let mut hk = Array2::zeros((0, 0));
+        for step in 0..opts.gibbs_steps {
+            let means = rbm.visible_means(h.view());
+            let last = step + 1 == opts.gibbs_steps;
+            vk = if self.chains.is_some() || !last {
+                sample_visible_from_means::<V>(&means, rng)
+            } else {
+                means
+            };
+            hk = rbm.hidden_probabilities(vk.view());
+            if !last {
+                h = sample_bernoulli(&hk, rng);
+            }
+        }
+        if let Some(chains) = &mut self.chains {
+            chains.assign(&vk);
+        }
+
+        let n0 = v0.nrows() as f32;
+        let nk = vk.nrows() as f32;
+        let mean_v0 = v0.sum_axis(Axis(0)) / n0;
+        let mean_h0 = h0.sum_axis(Axis(0)) / n0;
+        let mut grad_w = v0.t().dot(&h0) / n0 - vk.t().dot(&hk) / nk;
+        grad_w.scaled_add(-opts.weight_decay, &rbm.weights);
+        let grad_b = &mean_v0 - &(vk.sum_axis(Axis(0)) / nk);
+        let mut grad_c = &mean_h0 - &(hk.sum_axis(Axis(0)) / nk);
+        if let Some(s) = &opts.sparsity {
+            // Cross-entropy penalty between target and running activity q: its derivative
+            // with respect to a hidden unit's input is (q − target).
+            self.activity = &self.activity * s.decay + &mean_h0 * (1.0 - s.decay);
+            let push = self.activity.mapv(|q| s.cost * (q - s.target));
+            grad_c -= &push;
+            let outer = mean_v0
+                .view()
+                .insert_axis(Axis(1))
+                .dot(&push.view().insert_axis(Axis(0)));
+            grad_w -= &outer;
+        }
+        momentum_step(&mut self.vel_w, &grad_w, &mut rbm.weights, momentum, lr);
+        momentum_step(
+            &mut self.vel_b,
+            &grad_b,
+            &mut rbm.visible_bias,
+            momentum,
+            lr,
+        );
+        momentum_step(&mut self.vel_c, &grad_c, &mut rbm.hidden_bias, momentum, lr);
+        sq
+    }
+}
+
+fn momentum_step<D: Dimension>(
+    velocity: &mut Array<f32, D>,
+    gradient: &Array<f32, D>,
+    param: &mut Array<f32, D>,
+    momentum: f32,
+    lr: f32,
+) {
+    *velocity *= momentum;
+    velocity.scaled_add(lr, gradient);
+    *param += &*velocity;
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::{log_likelihood_exact, BinaryRbm, GaussianBernoulliRbm};
+
+    /// `rows` noisy copies of three 16-bit prototypes, each bit flipped with probability 5%.
+    fn prototype_data(rows: usize, seed: u64) -> Array2<f32> {
+        let prototypes = [
+            0b1111_0000_1111_0000u16,
+            0b0000_1111_0000_1111,
+            0b1100_1100_0011_0011,
+        ];
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let mut data = Array2::zeros((rows, 16));
+        for mut row in data.rows_mut() {
+            let p = prototypes[rng.random_range(0..3)];
+            for (i, x) in row.iter_mut().enumerate() {
+                let bit = p >> i & 1 == 1;
+                *x = f32::from(bit ^ (rng.random::<f32>() < 0.05));
+            }
+        }
+        data
+    }
+
+    fn fit(rbm: &mut BinaryRbm, data: &Array2<f32>, opts: &TrainOptions) -> Vec<EpochReport> {
+        let mut reports = Vec::new();
+        train(rbm, data.view(), None, opts, &mut |r| reports.push(r)).unwrap();
+        reports
+    }
+
+    // Prototype data's own entropy is 16·H(0.05) + ln 3 ≈ 3.18 + 1.10 = 4.28 nats per row
+    // (by hand), so a good model's mean log-likelihood approaches −4.3.
+    // Measured (these seeds): CD-1 reconstruction error 0.227 → 0.042, log-likelihood
+    // −11.09 → −4.61; PCD 0.233 → 0.050, −11.09 → −4.70.
+    #[test]
+    fn cd1_and_pcd_learn_prototype_structure() {
+        let data = prototype_data(300, 1);
+        let init = BinaryRbm::new(16, 8, 0.01, 2);
+        let ll_init = log_likelihood_exact(&init, data.view()).unwrap();
+        let cd1 = TrainOptions {
+            epochs: 30,
+            batch_size: 20,
+            learning_rate: 0.1,
+            ..TrainOptions::default()
+        };
+        // PCD with momentum 0.9 oscillated here (log-likelihood −21 after 30 epochs): keep
+        // momentum low and let the rate decay.
+        let pcd = TrainOptions {
+            persistent: true,
+            learning_rate: 0.05,
+            final_momentum: 0.5,
+            schedule: LearningRateSchedule::LinearDecay {
+                from_epoch: 10,
+                final_fraction: 0.05,
+            },
+            ..cd1.clone()
+        };
+        for opts in [cd1, pcd] {
+            let mut rbm = init.clone();
+            let reports = fit(&mut rbm, &data, &opts);
+            let (first, last) = (
+                reports[0].reconstruction_error,
+                reports[29].reconstruction_error,
+            );
+            assert!(last < 0.5 * first, "{opts:?}: {first} → {last}");
+            let ll = log_likelihood_exact(&rbm, data.view()).unwrap();
+            assert!(
+                ll > -5.0 && ll > ll_init + 5.0,
+                "{opts:?}: {ll_init} → {ll}"
+            );
+        }
+    }
+
+    #[test]
+    fn same_seed_same_weights_on_one_or_two_threads() {
+        let data = prototype_data(200, 3);
+        let opts = TrainOptions {
+            epochs: 3,
+            gibbs_steps: 2,
+            sparsity: Some(Sparsity {
+                target: 0.1,
+                cost: 0.01,
+                decay: 0.9,
+            }),
+            ..TrainOptions::default()
+        };
+        let run = |threads, seed| {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            let mut rbm = BinaryRbm::new(16, 10, 0.01, 4);
+            pool.install(|| {
+                fit(
+                    &mut rbm,
+                    &data,
+                    &TrainOptions {
+                        seed,
+                        ..opts.clone()
+                    },
+                )
+            });
+            rbm
+        };
+        let one = run(1, 7);
+        assert_eq!(one, run(2, 7));
+        assert_ne!(one, run(2, 8));
+    }
+
+    #[test]
+    fn early_stopping_keeps_the_best_validation_model() {
+        // Validation rows from other patterns: fitting the training prototypes harder
+        // makes their reconstruction worse after a while.
+        let data = prototype_data(200, 5);
+        let validation = prototype_data(50, 6).mapv(|x| 1.0 - x);
+        let opts = TrainOptions {
+            epochs: 200,
+            patience: 3,
+            learning_rate: 0.1,
+            ..TrainOptions::default()
+        };
+        let mut rbm = BinaryRbm::new(16, 8, 0.01, 2);
+        let mut reports = Vec::new();
+        let summary = train(
+            &mut rbm,
+            data.view(),
+            Some(validation.view()),
+            &opts,
+            &mut |r| reports.push(r),
+        )
+        .unwrap();
+        assert!(summary.stopped_early, "{summary:?}");
+        assert_eq!(summary.epochs_run, reports.len());
+        let errors: Vec<f32> = reports
+            .iter()
+            .map(|r| r.validation_error.unwrap())
+            .collect();
+        let best = errors.iter().copied().fold(f32::INFINITY, f32::min);
+        assert_eq!(errors[summary.kept_epoch], best);
+        assert_eq!(rbm.reconstruction_error(validation.view()), best);
+        assert_eq!(summary.epochs_run, summary.kept_epoch + opts.patience + 1);
+    }
+
+    #[test]
+    fn gaussian_rbm_learns_cluster_structure() {
+        // Standardised 10-dimensional data from three well separated cluster centres.
+        let mut rng = ChaCha8Rng::seed_from_u64(8);
+        let centres =
+            Array2::from_shape_simple_fn((3, 10), || 1.3 * crate::rbm::standard_normal(&mut rng));
+        let data = Array2::from_shape_fn((300, 10), |(r, d)| {
+            centres[[r % 3, d]] + 0.3 * crate::rbm::standard_normal(&mut rng)
+        });
+        let opts = TrainOptions {
+            epochs: 30,
+            batch_size: 30,
+            learning_rate: 0.005,
+            ..TrainOptions::default()
+        };
+        let mut rbm = GaussianBernoulliRbm::new(10, 12, 0.01, 1);
+        let mut reports = Vec::new();
+        train(&mut rbm, data.view(), None, &opts, &mut |r| reports.push(r)).unwrap();
+        let (first, last) = (
+            reports[0].reconstruction_error,
+            reports[29].reconstruction_error,
+        );
+        // Measured: 1.53 → 0.11.
+        assert!(last < 0.3 * first, "{first} → {last}");
+    }
+
+    // lr 1.0 decaying from epoch 2 to 0.1 at epoch 11 (the last of 12): by hand,
+    // epoch e ≥ 2 gets 1 − 0.9 · (e − 2)/9, so epoch 5 → 0.7, epoch 11 → 0.1.
+    #[test]
+    fn linear_decay_schedule() {
+        let opts = TrainOptions {
+            epochs: 12,
+            learning_rate: 1.0,
+            schedule: LearningRateSchedule::LinearDecay {
+                from_epoch: 2,
+                final_fraction: 0.1,
+            },
+            ..TrainOptions::default()
+        };
+        let got: Vec<f32> = [0, 2, 5, 11]
+            .iter()
+            .map(|&e| opts.learning_rate_at(e))
+            .collect();
+        for (g, w) in got.iter().zip([1.0, 1.0, 0.7, 0.1]) {
+            assert!((g - w).abs() < 1e-6, "{got:?}");
+        }
+    }
+
+    #[test]
+    fn bad_options_and_divergence_are_errors() {
+        let data = prototype_data(10, 0);
+        let mut rbm = BinaryRbm::new(16, 4, 0.01, 0);
+        let opts = TrainOptions {
+            batch_size: 0,
+            ..TrainOptions::default()
+        };
+        let e = train(&mut rbm, data.view(), None, &opts, &mut |_| {}).unwrap_err();
+        assert!(matches!(
+            e,
+            ModelError::InvalidOption {
+                name: "batch_size",
+                ..
+            }
+        ));
+        let mut g = GaussianBernoulliRbm::new(16, 4, 0.01, 0);
+        let opts = TrainOptions {
+            learning_rate: 1e3,
+            ..TrainOptions::default()
+        };
+        let e = train(&mut g, (data * 100.0).view(), None, &opts, &mut |_| {}).unwrap_err();
+        assert!(matches!(e, ModelError::Diverged { .. }), "{e:?}");
+    }
+}
+
+#[cfg(test)]
+mod digits_tests {
+    use super::*;
+    use crate::BinaryRbm;
+
+    /// The 1,797 UCI optical digits (8×8, values 0–16) scaled to [0, 1]; see testdata/README.md.
+    fn digits() -> Array2<f32> {
+        let text = include_str!("../testdata/digits.csv");
+        let rows: Vec<f32> = text
+            .lines()
+            .skip(1)
+            .flat_map(|line| {
+                line.split(',')
+                    .take(64)
+                    .map(|x| x.parse::<f32>().unwrap() / 16.0)
+            })
+            .collect();
+        Array2::from_shape_vec((rows.len() / 64, 64), rows).unwrap()
+    }
+
+    // source: scikit-learn 1.9.1 (numpy 2.4.6) on the same rows, run for this test:
+    //   X = load_digits().data / 16; train = X[:1500], held out = X[1500:]
+    //   BernoulliRBM(n_components=64, learning_rate=0.06, n_iter=10, random_state=0).fit(train)
+    //   held-out MSE of the mean-field reconstruction σ(σ(x Wᵀ + c) W + b): 0.0439
+    //   (0.0434 with n_components=100); predicting each pixel's training mean: 0.0739.
+    // BernoulliRBM is PCD-1, batch 10, no momentum, no weight decay; the same settings here
+    // measured 0.0443. Our CD-1 with momentum (lr 0.1, batch 32, 10 epochs) measured 0.0155.
+    #[test]
+    fn digits_reconstruction_matches_reference_and_bound() {
+        let data = digits();
+        assert_eq!(data.dim(), (1797, 64));
+        let (train_rows, held_out) = data.view().split_at(Axis(0), 1500);
+        let like_reference = TrainOptions {
+            epochs: 10,
+            batch_size: 10,
+            learning_rate: 0.06,
+            persistent: true,
+            initial_momentum: 0.0,
+            final_momentum: 0.0,
+            weight_decay: 0.0,
+            ..TrainOptions::default()
+        };
+        let cd1 = TrainOptions {
+            epochs: 10,
+            batch_size: 32,
+            learning_rate: 0.1,
+            ..TrainOptions::default()
+        };
+        let mut errors = Vec::new();
+        for opts in [like_reference, cd1] {
+            let mut rbm = BinaryRbm::new(64, 64, 0.01, 0);
+            train(&mut rbm, train_rows, None, &opts, &mut |_| {}).unwrap();
+            errors.push(rbm.reconstruction_error(held_out));
+        }
+        assert!(
+            (errors[0] - 0.0439).abs() < 0.004,
+            "PCD like the reference: {}",
+            errors[0]
+        );
+        assert!(errors[1] < 0.018, "CD-1 with momentum: {}", errors[1]);
+    }
+}
