@@ -37,7 +37,8 @@ enum Command {
 /// Options every command that reads a store shares.
 #[derive(clap::Args, Clone)]
 pub struct StoreArgs {
-    /// Store folder; default: the nearest .tagweave/ in the current folder or above.
+    /// Store folder. Default: FOLDER/.tagweave when scanning a folder, otherwise the nearest
+    /// .tagweave/ in the current folder or above.
     #[arg(long, value_name = "PATH")]
     pub store: Option<PathBuf>,
 }
