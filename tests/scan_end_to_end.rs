@@ -37,6 +37,26 @@ fn scanning_the_demo_archive_counts_what_truth_csv_says() {
     );
     assert_eq!(out.status.code(), Some(0), "{report}");
 
+    // Every picture carries exactly the tags its sidecar holds (text and XMP alike).
+    let store = tagweave_store::Store::open(&folder.join(".tagweave")).unwrap();
+    let indexed: std::collections::HashMap<String, BTreeSet<String>> = store
+        .items()
+        .unwrap()
+        .into_iter()
+        .map(|item| (item.rel_path, item.tags.into_iter().collect()))
+        .collect();
+    drop(store);
+    for row in &truth {
+        let expected: BTreeSet<String> = row.written_tags.iter().cloned().collect();
+        assert_eq!(
+            indexed.get(&row.file),
+            Some(&expected),
+            "{} ({})",
+            row.file,
+            row.sidecar
+        );
+    }
+
     // The tag list agrees with the truth file's written tags.
     let tags = json(&tagweave(&folder, &["tags", "--json"]));
     let top = &tags["tags"][0];
@@ -211,9 +231,17 @@ fn the_demo_command_indexes_and_measures_the_archive() {
     let (_temp, folder) = demo_copy();
     let out = tagweave(&folder, &["demo", folder.to_str().unwrap()]);
     let text = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(out.status.code(), Some(0), "{text}\n{}", String::from_utf8_lossy(&out.stderr));
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{text}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let truth = demo_truth();
-    assert!(text.contains(&format!("pictures  {:>6}", truth.len())), "{text}");
+    assert!(
+        text.contains(&format!("pictures  {:>6}", truth.len())),
+        "{text}"
+    );
     for expected in ["Step 1", "Step 2", "ridge", "known mislabels"] {
         assert!(text.contains(expected), "{expected} missing:\n{text}");
     }
