@@ -3,6 +3,12 @@
 /// Everything that can stop an evaluation, worded so the caller can act on it.
 #[derive(Debug, thiserror::Error)]
 pub enum EvalError {
+    #[error("method '{method}' could not be trained: {source}")]
+    Model {
+        method: String,
+        #[source]
+        source: tagweave_model::ModelError,
+    },
     #[error("{what} has {got} entries but the feature matrix has {expected} rows; pass exactly one entry per picture, in the same order as the feature rows")]
     LengthMismatch {
         what: &'static str,

@@ -12,6 +12,7 @@
 mod audit;
 mod baselines;
 mod error;
+mod joint;
 mod linalg;
 pub mod metrics;
 mod mislabel;
@@ -24,6 +25,7 @@ pub use baselines::{
     knn_leave_one_out_scores, KnnScorer, PriorScorer, RidgeScorer, TagScorer, TrainSet,
 };
 pub use error::EvalError;
+pub use joint::JointScorer;
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use report::{MethodReport, Report, SplitSummary};
 pub use runner::{baselines, evaluate, EvalOptions, Progress, SUGGESTIONS};

@@ -9,6 +9,12 @@ pub enum ModelError {
         expected: usize,
         got: usize,
     },
+    #[error("{what} has {got} rows but the features have {expected}; pass one row per picture, in the same order")]
+    RowMismatch {
+        what: &'static str,
+        expected: usize,
+        got: usize,
+    },
     #[error("{what} has no rows; give at least one example")]
     Empty { what: &'static str },
     #[error("{what} holds a non-finite value at row {row}, column {col}; clean and standardise the features first")]

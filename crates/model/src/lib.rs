@@ -8,11 +8,13 @@
 //! (standardised picture features); one trainer ([`train`]) for both; check values
 //! for tiny models ([`log_partition_exact`], [`log_likelihood_exact`],
 //! [`log_likelihood_gradient_exact`]) and an AIS estimate of log Z
-//! ([`log_partition_ais`]) for models too large to enumerate.
+//! ([`log_partition_ais`]) for models too large to enumerate. [`JointModel`] stacks
+//! them into the picture–tag model and fine-tunes it as a tag predictor.
 
 mod ais;
 mod error;
 mod exact;
+mod joint;
 mod rbm;
 mod train;
 
@@ -25,6 +27,7 @@ pub use exact::{
     log_likelihood_exact, log_likelihood_gradient_exact, log_partition_exact, RbmGradient,
     MAX_EXACT_HIDDEN,
 };
+pub use joint::{FineTuneReport, JointModel, JointOptions, JointProgress, JointSummary};
 pub use rbm::{
     Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits, SAMPLE_CHUNK_ROWS,
 };

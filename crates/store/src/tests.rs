@@ -44,7 +44,9 @@ fn items_survive_reopening_and_removal_drops_vectors() {
     );
     let vocabulary = store.vocabulary().unwrap();
     assert_eq!(vocabulary.entries()[0], ("harbour".to_string(), 2));
-    store.update_items(&[], std::slice::from_ref(&a_id)).unwrap();
+    store
+        .update_items(&[], std::slice::from_ref(&a_id))
+        .unwrap();
     assert_eq!(store.item_count(), 1);
     assert_eq!(store.vector("features", &a_id).unwrap(), None);
 }
