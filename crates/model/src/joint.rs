@@ -13,6 +13,7 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
 use crate::rbm::{sigmoid, softplus};
+use crate::train::KeepBest;
 use crate::{
     train, BinaryRbm, EpochReport, GaussianBernoulliRbm, ModelError, Rbm, TrainOptions,
     VisibleUnits,
@@ -385,7 +386,7 @@ impl JointModel {
         let mut rng = ChaCha8Rng::seed_from_u64(opts.seed ^ 0x6a6f_696e);
         let mut adam = Adam::new(self.parameters_mut());
         let mut order: Vec<usize> = (0..features.nrows()).collect();
-        let mut best: Option<(f32, usize, JointModel)> = None;
+        let mut best = KeepBest::new(opts.patience);
         let mut epochs_run = 0;
         for epoch in 0..opts.max_epochs {
             order.shuffle(&mut rng);
@@ -418,24 +419,11 @@ impl JointModel {
                 train_loss,
                 validation_score,
             }));
-            if let Some(score) = validation_score {
-                match &best {
-                    Some((best_score, best_epoch, _)) if score.is_nan() || score <= *best_score => {
-                        if epoch - best_epoch >= opts.patience {
-                            break;
-                        }
-                    }
-                    _ => best = Some((score, epoch, self.clone())),
-                }
+            if validation_score.is_some_and(|score| best.should_stop(score, epoch, self)) {
+                break;
             }
         }
-        let kept_epoch = match best {
-            Some((_, epoch, model)) => {
-                *self = model;
-                epoch
-            }
-            None => epochs_run.saturating_sub(1),
-        };
+        let kept_epoch = best.restore(self, epochs_run);
         Ok(JointSummary {
             epochs_run,
             kept_epoch,

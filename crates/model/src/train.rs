@@ -179,7 +179,7 @@ pub fn train<V: VisibleUnits>(
     let mut rng = ChaCha8Rng::seed_from_u64(opts.seed);
     let mut state = State::new(rbm, data, opts, &mut rng);
     let mut order: Vec<usize> = (0..data.nrows()).collect();
-    let mut best: Option<(f32, usize, Rbm<V>)> = None;
+    let mut best = KeepBest::new(opts.patience);
     let mut epochs_run = 0;
     for epoch in 0..opts.epochs {
         let lr = opts.learning_rate_at(epoch);
@@ -206,24 +206,12 @@ pub fn train<V: VisibleUnits>(
             reconstruction_error,
             validation_error,
         });
-        if let Some(err) = validation_error {
-            match &best {
-                Some((best_err, best_epoch, _)) if err >= *best_err => {
-                    if epoch - best_epoch >= opts.patience {
-                        break;
-                    }
-                }
-                _ => best = Some((err, epoch, rbm.clone())),
-            }
+        // Lower error is better; KeepBest keeps the highest score.
+        if validation_error.is_some_and(|err| best.should_stop(-err, epoch, rbm)) {
+            break;
         }
     }
-    let kept_epoch = match best {
-        Some((_, epoch, model)) => {
-            *rbm = model;
-            epoch
-        }
-        None => epochs_run.saturating_sub(1),
-    };
+    let kept_epoch = best.restore(rbm, epochs_run);
     Ok(TrainSummary {
         epochs_run,
         kept_epoch,
@@ -346,6 +334,46 @@ fn momentum_step<D: Dimension>(
     *velocity *= momentum;
     velocity.scaled_add(lr, gradient);
     *param += &*velocity;
+}
+
+/// Early stopping shared by every trainer: remembers the best-scoring model (higher is
+/// better; NaN never counts as better) and says when `patience` epochs passed without one.
+pub(crate) struct KeepBest<T> {
+    best: Option<(f32, usize, T)>,
+    patience: usize,
+}
+
+impl<T: Clone> KeepBest<T> {
+    pub(crate) fn new(patience: usize) -> Self {
+        KeepBest {
+            best: None,
+            patience,
+        }
+    }
+
+    /// Records epoch `epoch`'s score for `model`; true when training should stop.
+    pub(crate) fn should_stop(&mut self, score: f32, epoch: usize, model: &T) -> bool {
+        match &self.best {
+            Some((best, best_epoch, _)) if score.is_nan() || score <= *best => {
+                epoch - best_epoch >= self.patience
+            }
+            _ => {
+                self.best = Some((score, epoch, model.clone()));
+                false
+            }
+        }
+    }
+
+    /// Puts the best model back (if any was scored) and returns the epoch it came from.
+    pub(crate) fn restore(self, model: &mut T, epochs_run: usize) -> usize {
+        match self.best {
+            Some((_, epoch, best)) => {
+                *model = best;
+                epoch
+            }
+            None => epochs_run.saturating_sub(1),
+        }
+    }
 }
 
 #[cfg(test)]
