@@ -91,3 +91,76 @@ pub fn demo_truth() -> Vec<TruthRow> {
         })
         .collect()
 }
+
+// ---- Reliability helpers (bad inputs, crash safety, concurrent use, store format) ----
+
+/// Writes `bytes` at `root/rel`, creating folders as needed.
+pub fn put(root: &Path, rel: &str, bytes: &[u8]) -> PathBuf {
+    let path = root.join(rel);
+    std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+    std::fs::write(&path, bytes).unwrap();
+    path
+}
+
+pub fn stdout_of(output: &Output) -> String {
+    String::from_utf8_lossy(&output.stdout).into_owned()
+}
+
+pub fn stderr_of(output: &Output) -> String {
+    String::from_utf8_lossy(&output.stderr).into_owned()
+}
+
+/// A fresh copy of the demo archive (without any store) in `folder`.
+pub fn copy_demo_to(folder: &Path) {
+    copy_tree(&repo_root().join("demo-collection"), folder);
+}
+
+/// True when file modes do not stop this process (root, or a file system without them):
+/// tests of unreadable files cannot make one and must say so.
+#[cfg(unix)]
+pub fn permissions_are_ignored(scratch: &Path) -> bool {
+    use std::os::unix::fs::PermissionsExt;
+    let probe = put(scratch, "probe-unreadable", b"x");
+    std::fs::set_permissions(&probe, std::fs::Permissions::from_mode(0o000)).unwrap();
+    let readable = std::fs::read(&probe).is_ok();
+    std::fs::set_permissions(&probe, std::fs::Permissions::from_mode(0o644)).unwrap();
+    std::fs::remove_file(&probe).unwrap();
+    readable
+}
+
+/// Every sidecar (`.txt`, `.xmp`) under `root` with its bytes and modification time, to
+/// prove afterwards that nothing wrote to them.
+pub fn sidecar_snapshot(
+    root: &Path,
+) -> std::collections::BTreeMap<PathBuf, (Vec<u8>, std::time::SystemTime)> {
+    let mut found = std::collections::BTreeMap::new();
+    let mut folders = vec![root.to_path_buf()];
+    while let Some(folder) = folders.pop() {
+        for entry in std::fs::read_dir(&folder).unwrap() {
+            let entry = entry.unwrap();
+            let path = entry.path();
+            let kind = entry.file_type().unwrap();
+            if kind.is_dir() && entry.file_name() != ".tagweave" {
+                folders.push(path);
+            } else if kind.is_file()
+                && path
+                    .extension()
+                    .is_some_and(|e| e.eq_ignore_ascii_case("txt") || e.eq_ignore_ascii_case("xmp"))
+            {
+                let modified = entry.metadata().unwrap().modified().unwrap();
+                found.insert(path.clone(), (std::fs::read(&path).unwrap(), modified));
+            }
+        }
+    }
+    found
+}
+
+/// Serialises the tests of one binary that open a store in this process while others run
+/// the binary: a child spawned by another test thread at that moment briefly inherits the
+/// store's lock descriptor, and a tagweave started then would find the store "in use".
+pub fn one_at_a_time() -> std::sync::MutexGuard<'static, ()> {
+    static SERIAL: std::sync::Mutex<()> = std::sync::Mutex::new(());
+    SERIAL
+        .lock()
+        .unwrap_or_else(|poisoned| poisoned.into_inner())
+}

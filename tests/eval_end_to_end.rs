@@ -60,7 +60,7 @@ fn the_report_has_the_agreed_shape_and_baselines_beat_the_prior(folder: &Path) -
     }
     assert_eq!(split["seed"], 7, "the default seed");
     let methods: Vec<&String> = report["methods"].as_object().unwrap().keys().collect();
-    assert_eq!(methods, ["joint", "joint+knn", "knn", "prior", "ridge"]);
+    assert_eq!(methods, ["joint", "knn", "prior", "ridge"]);
     for method in ["prior", "knn", "ridge"] {
         for key in [
             "lrap",

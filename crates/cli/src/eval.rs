@@ -134,7 +134,6 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
 fn all_methods() -> Vec<Box<dyn TagScorer>> {
     let mut all = baselines();
     all.push(Box::new(JointScorer::default()));
-    all.push(Box::new(JointScorer::default().blended_with_knn()));
     all
 }
 

@@ -1,5 +1,8 @@
 //! The `tagweave` command: parses arguments, calls the library crates, prints results.
 
+mod apply;
+mod ask;
+mod curve;
 mod demo;
 mod eval;
 mod exit;
@@ -7,6 +10,7 @@ mod progress;
 mod scan;
 mod store_path;
 mod tags;
+mod train;
 
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -27,9 +31,23 @@ enum Command {
     Scan(scan::ScanArgs),
     /// List the collection's tags, most used first.
     Tags(tags::TagsArgs),
+    /// Learn the shared picture–tag code from the tagged pictures of a scanned folder,
+    /// and give every picture its code.
+    Train(train::TrainArgs),
     /// Measure how well tags are predicted on a tagged folder: hold some back, score them
     /// blind, compare with simple baselines.
     Eval(eval::EvalArgs),
+    /// Pictures that fit the given tags, tagged or not, best first.
+    Find(ask::FindArgs),
+    /// Tags for pictures (in the collection or not); with --untagged, a review sheet for
+    /// every untagged picture.
+    Suggest(ask::SuggestArgs),
+    /// Pictures like one picture, but moved away from some tags and toward others.
+    Shift(ask::ShiftArgs),
+    /// Tagged pictures whose tags do not fit them, worst first, and a review sheet.
+    Audit(ask::AuditArgs),
+    /// Write the accepted rows of a filled-in review sheet into the sidecars.
+    Apply(apply::ApplyArgs),
     /// Run the whole job on the bundled invented archive (demo-collection/).
     Demo(demo::DemoArgs),
 }
@@ -48,6 +66,12 @@ fn main() -> ExitCode {
     let result = match cli.command {
         Command::Scan(args) => scan::run(&args),
         Command::Tags(args) => tags::run(&args),
+        Command::Train(args) => train::run(&args),
+        Command::Find(args) => ask::find(&args),
+        Command::Suggest(args) => ask::suggest(&args),
+        Command::Shift(args) => ask::shift(&args),
+        Command::Audit(args) => ask::audit(&args),
+        Command::Apply(args) => apply::run(&args),
         Command::Eval(args) => eval::run(&args),
         Command::Demo(args) => demo::run(&args),
     };

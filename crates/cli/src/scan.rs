@@ -95,6 +95,7 @@ pub fn scan_with_progress(store: &Store, options: &ScanOptions) -> anyhow::Resul
             ScanProgress::Read { done, total } => ("reading pictures", done, total),
             ScanProgress::Learning { done, total } => ("learning patch dictionary", done, total),
             ScanProgress::Encoding { done, total } => ("describing pictures", done, total),
+            ScanProgress::Coding { done, total } => ("coding new pictures", done, total),
         };
         bar.set_message(message);
         bar.set_length(total as u64);
@@ -139,6 +140,12 @@ pub fn print_summary(store: &Store, report: &ScanReport, verbose: bool) {
             ""
         }
     );
+    if report.coded > 0 {
+        println!(
+            "  codes     {:>6}  new pictures coded with the trained model",
+            report.coded
+        );
+    }
     let skipped: usize = report.skipped.values().sum();
     if skipped > 0 {
         let groups: Vec<String> = report

@@ -69,6 +69,9 @@ pub enum SkipReason {
     /// Looks like a picture but its pixels cannot be decoded; the text says why and what
     /// to do (it comes from the decoder, which names the file).
     BadPicture(String),
+    /// Declares more pixels than the decoder's safety limit (a decompression bomb, or a
+    /// giant scan); the text comes from the decoder, which names the file.
+    TooLarge(String),
 }
 
 impl SkipReason {
@@ -84,6 +87,7 @@ impl SkipReason {
             SkipReason::Vanished => "vanished",
             SkipReason::BadName => "bad file name",
             SkipReason::BadPicture(_) => "damaged picture",
+            SkipReason::TooLarge(_) => "too large",
         }
     }
 }
@@ -125,7 +129,7 @@ impl fmt::Display for Skipped {
                 f,
                 "{path}: skipped, its name is not valid UTF-8; rename it"
             ),
-            SkipReason::BadPicture(why) => write!(f, "skipped: {why}"),
+            SkipReason::BadPicture(why) | SkipReason::TooLarge(why) => write!(f, "skipped: {why}"),
         }
     }
 }

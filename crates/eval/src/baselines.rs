@@ -42,6 +42,11 @@ pub trait TagScorer {
     fn settings(&self) -> Option<String> {
         None
     }
+    /// Whether `score` returns calibrated probabilities (then the report gets a
+    /// reliability table for it).
+    fn calibrated(&self) -> bool {
+        false
+    }
 }
 
 const CV_FOLDS: usize = 5;
@@ -234,6 +239,41 @@ impl KnnScorer {
     pub fn chosen_k(&self) -> Option<usize> {
         self.k
     }
+
+    /// Like `score`, but row `i` never counts train picture `exclude[i]` among its
+    /// neighbours: a train picture judged by the others (leave-one-out).
+    pub fn score_excluding(
+        &self,
+        features: ArrayView2<f32>,
+        exclude: &[Option<usize>],
+    ) -> Result<Array2<f32>, EvalError> {
+        let k = self.k.ok_or_else(|| EvalError::NotFitted("knn".into()))?;
+        let sims = unit_rows(features).dot(&self.train_unit.t());
+        let rows: Vec<Vec<f32>> = (0..sims.nrows())
+            .into_par_iter()
+            .map(|i| {
+                let skip = exclude.get(i).copied().flatten();
+                transfer(
+                    &nearest(&sims.row(i).to_vec(), k, skip),
+                    &self.train_tags,
+                    &self.frequency,
+                )
+            })
+            .collect();
+        Ok(rows_to_array(rows, self.frequency.len()))
+    }
+
+    /// A kNN with `k` already chosen (e.g. by an earlier `fit` on the same kind of
+    /// data), ready to score: no cross-validation.
+    pub fn with_fixed_k(k: usize, train: &TrainSet) -> Self {
+        KnnScorer {
+            candidates: vec![k],
+            k: Some(k),
+            train_unit: unit_rows(train.features),
+            train_tags: train.tags.to_vec(),
+            frequency: tag_frequencies(train.tags.iter(), train.n_tags).to_vec(),
+        }
+    }
 }
 
 impl TagScorer for KnnScorer {
@@ -269,29 +309,14 @@ impl TagScorer for KnnScorer {
                 })
                 .collect())
         })?;
-        self.k = Some(self.candidates[choice]);
-        self.train_unit = unit;
-        self.train_tags = train.tags.to_vec();
-        self.frequency = tag_frequencies(train.tags.iter(), train.n_tags).to_vec();
+        let candidates = std::mem::take(&mut self.candidates);
+        *self = KnnScorer::with_fixed_k(candidates[choice], train);
+        self.candidates = candidates;
         Ok(())
     }
 
     fn score(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, EvalError> {
-        let k = self
-            .k
-            .ok_or_else(|| EvalError::NotFitted(self.name().into()))?;
-        let sims = unit_rows(features).dot(&self.train_unit.t());
-        let rows: Vec<Vec<f32>> = (0..sims.nrows())
-            .into_par_iter()
-            .map(|i| {
-                transfer(
-                    &nearest(&sims.row(i).to_vec(), k, None),
-                    &self.train_tags,
-                    &self.frequency,
-                )
-            })
-            .collect();
-        Ok(rows_to_array(rows, self.frequency.len()))
+        self.score_excluding(features, &vec![None; features.nrows()])
     }
 
     fn settings(&self) -> Option<String> {

@@ -1,58 +1,200 @@
-//! tagweave's own joint picture–tag model, measured like the baselines.
+//! tagweave's own joint picture–tag model, measured like the baselines and
+//! trained the same way for the product.
 
 use ndarray::{Array2, ArrayView2, Axis};
-use tagweave_model::{JointModel, JointOptions, ModelError};
+use serde::{Deserialize, Serialize};
+use tagweave_model::{JointModel, JointOptions, JointProgress, ModelError};
 
 use crate::baselines::grouped_folds;
+use crate::calibration::Calibration;
 use crate::metrics::{label_ranking_average_precision, mean};
 use crate::{EvalError, KnnScorer, TagScorer, TrainSet};
 
 /// One fold in this many of the train pictures (content groups kept whole)
-/// decides when fine-tuning stops: about 14 %.
+/// decides when fine-tuning stops, the blend and the calibration: about 14 %.
 const VALIDATION_FOLDS: usize = 7;
 
 /// Weights of the read-out tried against kNN tag transfer (1 = read-out only).
 const BLEND_WEIGHTS: [f32; 5] = [1.0, 0.75, 0.5, 0.25, 0.0];
 
-/// Tag suggestions read out of [`JointModel`] from pictures alone, optionally
-/// blended with kNN tag transfer on the picture features.
+/// Which of the two training runs a progress report belongs to.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum TrainingRun {
+    /// On the train pictures minus a validation fold, to choose the length, the
+    /// blend and the calibration.
+    Choosing,
+    /// On every train picture, for the chosen length.
+    Final,
+}
+
+/// A trained joint model with everything chosen on the validation fold: how long
+/// to fine-tune, how much kNN tag transfer to blend in, and the map from blended
+/// scores to calibrated probabilities. Serialisable: the product keeps it in the store.
 ///
-/// The blend uses the features, not the shared code: on the two shared eval
-/// sets (seed 7), kNN in the shared code added nothing to the read-out (the
-/// validation fold chose weight 1, or the blend lost 0.004 LRAP); kNN on the
+/// The blend uses kNN on the picture features, not on the shared code: on the two
+/// shared eval sets (seed 7), kNN in the shared code added nothing to the read-out
+/// (the validation fold chose weight 1, or the blend lost 0.004 LRAP); kNN on the
 /// features added 0.00–0.04 LRAP over seeds 1, 2, 3 and 7.
-///
-/// Fine-tuning length (and the blend weight) are chosen by LRAP on a grouped
-/// validation fold of the train pictures; the model is then trained again on
-/// all of them for that many epochs, so no train picture is lost to validation.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TagSuggester {
+    pub model: JointModel,
+    /// Fine-tuning epochs of the final run.
+    pub epochs: usize,
+    /// Weight of the read-out in the blend; the rest goes to kNN.
+    pub readout_weight: f32,
+    /// Neighbours of the kNN part (chosen by the kNN's own cross-validation).
+    pub k: usize,
+    /// `None` when the validation fold had no right or no wrong suggestion.
+    pub calibration: Option<Calibration>,
+}
+
+impl TagSuggester {
+    /// Trains on `train`: a first run holds out one grouped validation fold to
+    /// choose the fine-tuning length (best validation LRAP), the read-out/kNN blend
+    /// and the calibration; the final run trains on every train picture for that
+    /// many epochs, so no picture is lost to validation.
+    pub fn train(
+        train: &TrainSet,
+        options: &JointOptions,
+        progress: &mut dyn FnMut(TrainingRun, JointProgress),
+    ) -> Result<(TagSuggester, KnnScorer), EvalError> {
+        let fail = |e| model_error("joint", e);
+        let y = tag_matrix(train.tags, train.n_tags);
+        let options = JointOptions {
+            seed: train.seed,
+            ..options.clone()
+        };
+        let all_rows: Vec<usize> = (0..train.tags.len()).collect();
+        let mut knn_all = KnnScorer::default();
+        knn_all.fit(train)?;
+        let k = knn_all.chosen_k().unwrap_or(1);
+        let (epochs, readout_weight, calibration) =
+            match grouped_folds(train.groups, VALIDATION_FOLDS, train.seed).first() {
+                Some(val) => {
+                    let fit: Vec<usize> = all_rows
+                        .iter()
+                        .copied()
+                        .filter(|i| val.binary_search(i).is_err())
+                        .collect();
+                    let val_x = train.features.select(Axis(0), val);
+                    let val_tags: Vec<Vec<bool>> = val
+                        .iter()
+                        .map(|&i| y.row(i).iter().map(|&v| v > 0.5).collect())
+                        .collect();
+                    let mut score = |m: &JointModel| match m.fill_in_tags(val_x.view()) {
+                        Ok(s) => mean_lrap(s.view(), &val_tags) as f32,
+                        Err(_) => f32::NAN,
+                    };
+                    let (model, summary) = JointModel::fit(
+                        train.features.select(Axis(0), &fit).view(),
+                        y.select(Axis(0), &fit).view(),
+                        Some(&mut score),
+                        &options,
+                        &mut |p| progress(TrainingRun::Choosing, p),
+                    )
+                    .map_err(fail)?;
+                    let knn = knn_with_k(train, &fit, k);
+                    let readout = model.fill_in_tags(val_x.view()).map_err(fail)?;
+                    let near = knn.score(val_x.view())?;
+                    let blends: Vec<Array2<f32>> = BLEND_WEIGHTS
+                        .iter()
+                        .map(|&w| blend(readout.clone(), near.clone(), w))
+                        .collect();
+                    let lraps: Vec<f64> = blends
+                        .iter()
+                        .map(|b| mean_lrap(b.view(), &val_tags))
+                        .collect();
+                    let best =
+                        (0..lraps.len()).fold(0, |b, i| if lraps[i] > lraps[b] { i } else { b });
+                    let correct: Vec<bool> = val_tags.iter().flatten().copied().collect();
+                    let scores: Vec<f32> = blends[best].iter().copied().collect();
+                    (
+                        summary.kept_epoch + 1,
+                        BLEND_WEIGHTS[best],
+                        Calibration::fit(&scores, &correct),
+                    )
+                }
+                // Too few content groups to hold one out: full length, an even blend,
+                // no calibration.
+                None => (options.max_epochs, 0.5, None),
+            };
+        let all = JointOptions {
+            max_epochs: epochs,
+            ..options
+        };
+        let (model, _) = JointModel::fit(
+            train.features,
+            y.view(),
+            None,
+            &all,
+            &mut |p| progress(TrainingRun::Final, p),
+        )
+        .map_err(fail)?;
+        let suggester = TagSuggester {
+            model,
+            epochs,
+            readout_weight,
+            k,
+            calibration,
+        };
+        Ok((suggester, knn_all))
+    }
+
+    /// The kNN part for pictures the suggester was trained on (same rows and tags as
+    /// `train` was given), e.g. after loading the suggester from a store.
+    pub fn neighbours(&self, train: &TrainSet) -> KnnScorer {
+        KnnScorer::with_fixed_k(self.k, train)
+    }
+
+    /// Tag probabilities (pictures × vocabulary) from standardised features:
+    /// calibrated when a calibration was fitted, otherwise blended scores in [0, 1].
+    /// `exclude[i]`: a picture among the neighbours' train rows that row `i` must not
+    /// lean on (itself, when it is one of them); empty = none.
+    pub fn suggest(
+        &self,
+        features: ArrayView2<f32>,
+        neighbours: &KnnScorer,
+        exclude: &[Option<usize>],
+    ) -> Result<Array2<f32>, EvalError> {
+        let readout = self
+            .model
+            .fill_in_tags(features)
+            .map_err(|e| model_error("joint", e))?;
+        let near = neighbours.score_excluding(features, exclude)?;
+        let blended = blend(readout, near, self.readout_weight);
+        Ok(match &self.calibration {
+            Some(c) => blended.mapv(|s| c.probability(s)),
+            None => blended,
+        })
+    }
+
+    /// Layer sizes, epochs and blend, for reports.
+    pub fn describe(&self) -> String {
+        let m = &self.model;
+        format!(
+            "h={}/{}/{} epochs={} w={} k={}",
+            m.image.n_hidden(),
+            m.tags.n_hidden(),
+            m.shared.n_hidden(),
+            self.epochs,
+            self.readout_weight,
+            self.k
+        )
+    }
+}
+
+/// [`TagSuggester`] as an evaluated method.
 #[derive(Debug, Clone, Default)]
 pub struct JointScorer {
     options: JointOptions,
-    blend: bool,
-    fitted: Option<Fitted>,
-}
-
-#[derive(Debug, Clone)]
-struct Fitted {
-    model: JointModel,
-    epochs: usize,
-    /// Read-out weight and the kNN fitted on the train pictures' shared codes.
-    knn: Option<(f32, KnnScorer)>,
+    fitted: Option<(TagSuggester, KnnScorer)>,
 }
 
 impl JointScorer {
     pub fn with_options(options: JointOptions) -> Self {
         Self {
             options,
-            ..Self::default()
-        }
-    }
-
-    /// The "joint+knn" variant: read-out blended with kNN on the features.
-    pub fn blended_with_knn(self) -> Self {
-        Self {
-            blend: true,
-            ..self
+            fitted: None,
         }
     }
 }
@@ -92,19 +234,20 @@ fn blend(readout: Array2<f32>, knn: Array2<f32>, weight: f32) -> Array2<f32> {
     row_max_scaled(readout) * weight + row_max_scaled(knn) * (1.0 - weight)
 }
 
-/// The baseline kNN fitted on the given train pictures' features.
-fn knn_on(train: &TrainSet, rows: &[usize]) -> Result<KnnScorer, EvalError> {
+/// kNN with a fixed k on some of the train pictures.
+fn knn_with_k(train: &TrainSet, rows: &[usize], k: usize) -> KnnScorer {
     let features = train.features.select(Axis(0), rows);
     let tags: Vec<Vec<usize>> = rows.iter().map(|&i| train.tags[i].clone()).collect();
     let groups: Vec<usize> = rows.iter().map(|&i| train.groups[i]).collect();
-    let mut knn = KnnScorer::default();
-    knn.fit(&TrainSet {
-        features: features.view(),
-        tags: &tags,
-        groups: &groups,
-        ..*train
-    })?;
-    Ok(knn)
+    KnnScorer::with_fixed_k(
+        k,
+        &TrainSet {
+            features: features.view(),
+            tags: &tags,
+            groups: &groups,
+            ..*train
+        },
+    )
 }
 
 fn model_error(method: &str, source: ModelError) -> EvalError {
@@ -116,113 +259,30 @@ fn model_error(method: &str, source: ModelError) -> EvalError {
 
 impl TagScorer for JointScorer {
     fn name(&self) -> &str {
-        if self.blend {
-            "joint+knn"
-        } else {
-            "joint"
-        }
+        "joint"
     }
 
     fn fit(&mut self, train: &TrainSet) -> Result<(), EvalError> {
-        let name = self.name().to_string();
-        let fail = |e| model_error(&name, e);
-        let y = tag_matrix(train.tags, train.n_tags);
-        let options = JointOptions {
-            seed: train.seed,
-            ..self.options.clone()
-        };
-        let all_rows: Vec<usize> = (0..train.tags.len()).collect();
-        let (epochs, weight) = match grouped_folds(train.groups, VALIDATION_FOLDS, train.seed)
-            .first()
-        {
-            Some(val) => {
-                let fit: Vec<usize> = all_rows
-                    .iter()
-                    .copied()
-                    .filter(|i| val.binary_search(i).is_err())
-                    .collect();
-                let val_x = train.features.select(Axis(0), val);
-                let val_tags: Vec<Vec<bool>> = val
-                    .iter()
-                    .map(|&i| y.row(i).iter().map(|&v| v > 0.5).collect())
-                    .collect();
-                let mut score = |m: &JointModel| match m.fill_in_tags(val_x.view()) {
-                    Ok(s) => mean_lrap(s.view(), &val_tags) as f32,
-                    Err(_) => f32::NAN,
-                };
-                let (model, summary) = JointModel::fit(
-                    train.features.select(Axis(0), &fit).view(),
-                    y.select(Axis(0), &fit).view(),
-                    Some(&mut score),
-                    &options,
-                    &mut |_| {},
-                )
-                .map_err(fail)?;
-                let weight = if self.blend {
-                    let knn = knn_on(train, &fit)?;
-                    let readout = model.fill_in_tags(val_x.view()).map_err(fail)?;
-                    let near = knn.score(val_x.view())?;
-                    let lraps: Vec<f64> = BLEND_WEIGHTS
-                        .iter()
-                        .map(|&w| {
-                            mean_lrap(blend(readout.clone(), near.clone(), w).view(), &val_tags)
-                        })
-                        .collect();
-                    let best =
-                        (0..lraps.len()).fold(0, |b, i| if lraps[i] > lraps[b] { i } else { b });
-                    Some(BLEND_WEIGHTS[best])
-                } else {
-                    None
-                };
-                (summary.kept_epoch + 1, weight)
-            }
-            // Too few content groups to hold one out: full length, an even blend.
-            None => (options.max_epochs, self.blend.then_some(0.5)),
-        };
-        let all = JointOptions {
-            max_epochs: epochs,
-            ..options
-        };
-        let (model, _) =
-            JointModel::fit(train.features, y.view(), None, &all, &mut |_| {}).map_err(fail)?;
-        let knn = match weight {
-            Some(w) => Some((w, knn_on(train, &all_rows)?)),
-            None => None,
-        };
-        self.fitted = Some(Fitted { model, epochs, knn });
+        self.fitted = Some(TagSuggester::train(train, &self.options, &mut |_, _| {})?);
         Ok(())
     }
 
     fn score(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, EvalError> {
-        let fitted = self
+        let (suggester, knn) = self
             .fitted
             .as_ref()
             .ok_or_else(|| EvalError::NotFitted(self.name().into()))?;
-        let fail = |e| model_error(self.name(), e);
-        let readout = fitted.model.fill_in_tags(features).map_err(fail)?;
-        match &fitted.knn {
-            Some((w, knn)) => {
-                let near = knn.score(features)?;
-                Ok(blend(readout, near, *w))
-            }
-            None => Ok(readout),
-        }
+        suggester.suggest(features, knn, &[])
     }
 
     fn settings(&self) -> Option<String> {
-        let f = self.fitted.as_ref()?;
-        let m = &f.model;
-        let sizes = format!(
-            "h={}/{}/{} epochs={}",
-            m.image.n_hidden(),
-            m.tags.n_hidden(),
-            m.shared.n_hidden(),
-            f.epochs
-        );
-        Some(match &f.knn {
-            Some((w, knn)) => format!("{sizes} w={w} {}", knn.settings().unwrap_or_default()),
-            None => sizes,
-        })
+        self.fitted.as_ref().map(|(s, _)| s.describe())
+    }
+
+    fn calibrated(&self) -> bool {
+        self.fitted
+            .as_ref()
+            .is_some_and(|(s, _)| s.calibration.is_some())
     }
 }
 
@@ -253,7 +313,6 @@ mod tests {
     }
 
     // Same synthetic task as the baselines' test, where kNN and ridge exceed 0.85.
-    // Measured: joint 0.896 (prior 0.297); the blend chose weight 1 here, so the same.
     #[test]
     fn joint_learns_informative_features_and_is_deterministic() {
         let mut joint = JointScorer::default();
@@ -263,13 +322,10 @@ mod tests {
             got > 0.85 && got > prior + 0.25,
             "joint {got}, prior {prior}"
         );
-        assert!(joint.settings().unwrap().starts_with("h="));
+        let settings = joint.settings().unwrap();
+        assert!(settings.starts_with("h=") && settings.contains(" w="), "{settings}");
+        assert!(joint.calibrated());
         assert_eq!(got, lrap(&mut JointScorer::default()));
-        let mut blended = JointScorer::default().blended_with_knn();
-        assert_eq!(blended.name(), "joint+knn");
-        let with_knn = lrap(&mut blended);
-        assert!(with_knn > 0.85, "joint+knn {with_knn}");
-        assert!(blended.settings().unwrap().contains(" w="));
     }
 
     // By hand: rows scaled to their maximum, [2, 1, 0] → [1, 0.5, 0] and [0, 4, 4] →

@@ -11,6 +11,7 @@
 
 mod audit;
 mod baselines;
+mod calibration;
 mod error;
 mod joint;
 mod linalg;
@@ -25,8 +26,9 @@ pub use baselines::{
     knn_leave_one_out_scores, KnnScorer, PriorScorer, RidgeScorer, TagScorer, TrainSet,
 };
 pub use error::EvalError;
-pub use joint::JointScorer;
+pub use calibration::{Calibration, Reliability, ReliabilityBin};
+pub use joint::{JointScorer, TagSuggester, TrainingRun};
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use report::{MethodReport, Report, SplitSummary};
 pub use runner::{baselines, evaluate, EvalOptions, Progress, SUGGESTIONS};
-pub use split::{split, Split, Standardiser, Vocabulary};
+pub use split::{group_ids, split, Split, Standardiser, Vocabulary};

@@ -67,7 +67,7 @@ pub(crate) fn midranks(values: &[f64]) -> Vec<f64> {
 }
 
 /// Each column's scores replaced by their mid-ranks (1 = lowest).
-pub(crate) fn column_midranks(scores: ArrayView2<f32>) -> Array2<f64> {
+pub fn column_midranks(scores: ArrayView2<f32>) -> Array2<f64> {
     let mut out = Array2::zeros(scores.raw_dim());
     for (col, mut dest) in scores.columns().into_iter().zip(out.columns_mut()) {
         let values: Vec<f64> = col.iter().map(|&v| f64::from(v)).collect();

@@ -5,6 +5,8 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
+use crate::Reliability;
+
 use crate::KnownMislabels;
 
 /// Everything measured in one run: the split, then one entry per method.
@@ -70,6 +72,9 @@ pub struct MethodReport {
     pub mislabel_precision: Option<f64>,
     /// Wall-clock time of fit plus score.
     pub seconds: f64,
+    /// Stated probability against observed frequency on the test pictures, for
+    /// methods that claim calibrated probabilities.
+    pub reliability: Option<Reliability>,
 }
 
 const COLUMNS: [&str; 15] = [
@@ -151,7 +156,16 @@ impl Report {
             out += &format!("\n{}\n\n", known.summary_line());
             out += &markdown_table(&known.columns(), &known.rows());
         }
+        for (name, reliability) in self.reliabilities() {
+            out += &format!("\nreliability of {name}'s probabilities on the test pictures:\n\n```\n{}```\n", reliability.to_table());
+        }
         out
+    }
+
+    fn reliabilities(&self) -> impl Iterator<Item = (&String, &Reliability)> {
+        self.methods
+            .iter()
+            .filter_map(|(name, m)| m.reliability.as_ref().map(|r| (name, r)))
     }
 
     /// The same as [`Report::to_markdown`], as aligned plain text for terminals.
@@ -161,6 +175,12 @@ impl Report {
         if let Some(known) = &self.known_mislabels {
             out += &format!("\n{}\n", known.summary_line());
             out += &aligned_table(&known.columns(), &known.rows(), 1);
+        }
+        for (name, reliability) in self.reliabilities() {
+            out += &format!(
+                "\nreliability of {name}'s probabilities on the test pictures:\n{}",
+                reliability.to_table()
+            );
         }
         out
     }

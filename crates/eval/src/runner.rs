@@ -13,12 +13,15 @@ use crate::metrics::{
 };
 use crate::split::group_ids;
 use crate::{
-    inject_mislabels, split, EvalError, Injection, KnnScorer, MethodReport, PriorScorer, Report,
+    inject_mislabels, split, EvalError, Injection, KnnScorer, MethodReport, PriorScorer, Reliability, Report,
     RidgeScorer, SplitSummary, Standardiser, TagScorer, TrainSet, Vocabulary,
 };
 
 /// Tags suggested per picture for P@5, R@5 and per-tag annotation.
 pub const SUGGESTIONS: usize = 5;
+
+/// Equal-width probability bins of the reliability table.
+const RELIABILITY_BINS: usize = 10;
 
 /// Offsets deriving independent streams from the one user seed.
 const PAIR_SEED: u64 = 0x7061_6972;
@@ -188,6 +191,7 @@ fn measure(scores: ArrayView2<f32>, truth: &TestTruth) -> Result<MethodReport, E
         mislabel_auc: roc_auc(&disputed, noisy),
         mislabel_precision: precision_at_count(&disputed, noisy, n_noisy),
         seconds: 0.0,
+        reliability: None,
     })
 }
 
@@ -292,6 +296,11 @@ pub fn evaluate(
             total,
         });
         let mut report = measure(scores.view(), &truth)?;
+        if method.calibrated() {
+            let correct: Vec<bool> = truth.matrix.iter().copied().collect();
+            let stated: Vec<f32> = scores.iter().copied().collect();
+            report.reliability = Some(Reliability::measure(&stated, &correct, RELIABILITY_BINS));
+        }
         report.settings = method.settings();
         report.seconds = seconds;
         reports.insert(name, report);

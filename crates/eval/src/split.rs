@@ -21,7 +21,7 @@ pub struct Split {
 /// (exact duplicates must land on the same side, or the test part leaks);
 /// an empty key means "unknown" and makes the item its own group. Ids are
 /// numbered in order of first appearance so they do not depend on hashing.
-pub(crate) fn group_ids(content_keys: &[String]) -> Vec<usize> {
+pub fn group_ids(content_keys: &[String]) -> Vec<usize> {
     let mut seen: HashMap<&str, usize> = HashMap::new();
     let mut next = 0;
     let mut ids = Vec::with_capacity(content_keys.len());
@@ -133,8 +133,9 @@ impl Vocabulary {
 }
 
 /// Per-dimension standardisation learned from train rows only, so test
-/// pictures never influence the features the methods see.
-#[derive(Debug, Clone, PartialEq)]
+/// pictures never influence the features the methods see. Kept with a trained
+/// model, so new pictures are scaled exactly as its training pictures were.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Standardiser {
     mean: Array1<f32>,
     scale: Array1<f32>,
@@ -174,6 +175,11 @@ impl Standardiser {
             mean: mean.iter().map(|&m| m as f32).collect(),
             scale: std.iter().map(|&s| s.max(floor) as f32).collect(),
         }
+    }
+
+    /// Number of feature columns it was fitted on.
+    pub fn width(&self) -> usize {
+        self.mean.len()
     }
 
     /// `(x - mean) / scale`, column by column.

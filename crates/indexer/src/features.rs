@@ -8,14 +8,12 @@ use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{ItemRecord, SkipReason, Skipped};
 use tagweave_store::Store;
-use tagweave_vision::{FeatureExtractor, Standardiser};
+use tagweave_vision::FeatureExtractor;
 
 use crate::{IndexError, ScanOptions, ScanProgress, BATCH};
 
 /// Store blob holding the learned [`FeatureExtractor`].
 pub const EXTRACTOR_BLOB: &str = "feature_extractor";
-/// Store blob holding the [`Standardiser`] fitted on every picture's features.
-pub const STANDARDISER_BLOB: &str = "feature_standardiser";
 /// Vector kind under which each item's raw feature vector is kept.
 pub const FEATURES: &str = "features";
 
@@ -61,8 +59,11 @@ pub(crate) fn update(
                 options.seed,
                 &|done, total| progress(ScanProgress::Learning { done, total }),
             )?;
-            // Old vectors were made by another extractor: drop them before the new one is
-            // stored, so a crash in between never pairs vectors with the wrong extractor.
+            // Old vectors were made by another extractor: drop them (and the model trained
+            // on them, and its codes) before the new one is stored, so a crash in between
+            // never pairs vectors with the wrong extractor.
+            store.remove_blob(crate::MODEL_BLOB)?;
+            store.clear_vectors(crate::CODES)?;
             store.clear_vectors(FEATURES)?;
             store.put_blob(EXTRACTOR_BLOB, &extractor)?;
             extractor
@@ -116,22 +117,21 @@ fn describe(
         .features(&path)
         .map(|row| (item.id.clone(), row))
         .map_err(|error| {
-            let skipped = Skipped {
-                path,
-                reason: SkipReason::BadPicture(error.to_string()),
+            let reason = match &error {
+                // Deleted or moved since the crawl: say so, rather than call it damaged.
+                tagweave_vision::VisionError::Io { source, .. }
+                    if source.kind() == std::io::ErrorKind::NotFound =>
+                {
+                    SkipReason::Vanished
+                }
+                // Refused by the size guard: not damaged, and worth counting apart.
+                tagweave_vision::VisionError::TooLarge { .. } => {
+                    SkipReason::TooLarge(error.to_string())
+                }
+                _ => SkipReason::BadPicture(error.to_string()),
             };
-            (item.id.clone(), skipped)
+            (item.id.clone(), Skipped { path, reason })
         })
-}
-
-/// Refits the standardiser on every stored feature vector and keeps it in the store.
-pub(crate) fn refit_standardiser(store: &Store) -> Result<(), IndexError> {
-    let table = FeatureTable::load(store)?;
-    if table.items.is_empty() {
-        return Ok(());
-    }
-    store.put_blob(STANDARDISER_BLOB, &Standardiser::fit(table.features.view()))?;
-    Ok(())
 }
 
 /// Every item that has a feature vector, with those vectors as the rows of one matrix

@@ -16,7 +16,12 @@ use tagweave_store::{Store, StoreError};
 use tagweave_vision::{FeatureOptions, VisionError};
 
 mod features;
-pub use features::{FeatureSummary, FeatureTable, EXTRACTOR_BLOB, FEATURES, STANDARDISER_BLOB};
+mod training;
+pub use features::{FeatureSummary, FeatureTable, EXTRACTOR_BLOB, FEATURES};
+pub use training::{
+    code_missing, train, TrainOptions, TrainProgress, TrainReport, TrainedModel, TrainingData,
+    TrainingHistory, CODES, MODEL_BLOB, MODEL_FORMAT,
+};
 
 /// How many pictures are read between two flushes of the store.
 const BATCH: usize = 64;
@@ -31,6 +36,18 @@ pub enum IndexError {
     Vision(#[from] VisionError),
     #[error("the store disagrees with itself: {0}")]
     Inconsistent(String),
+    #[error(transparent)]
+    Model(tagweave_eval::EvalError),
+    #[error(
+        "only {tagged} tagged picture(s) with features: the model needs at least 2 to learn \
+         from; tag a few pictures (a text sidecar beside each, one tag per line) and scan again"
+    )]
+    NotEnoughTags { tagged: usize },
+    #[error(
+        "the stored model has format {found}, this tagweave reads format {expected}; \
+         run `tagweave train` again"
+    )]
+    ModelFormat { found: u32, expected: u32 },
 }
 
 #[derive(Debug, Clone)]
@@ -66,6 +83,8 @@ pub enum ScanProgress {
     Learning { done: usize, total: usize },
     /// Pictures described so far out of those without features.
     Encoding { done: usize, total: usize },
+    /// Pictures given a code by the stored model, out of those without one.
+    Coding { done: usize, total: usize },
 }
 
 /// What a scan did and what the collection now holds.
@@ -85,6 +104,8 @@ pub struct ScanReport {
     /// Files passed over, grouped by reason.
     pub skipped: BTreeMap<&'static str, usize>,
     pub features: FeatureSummary,
+    /// Pictures given a code by the stored model in this run.
+    pub coded: usize,
     pub seconds: f64,
     /// Every skipped file with its reason, for the detailed listing.
     #[serde(skip)]
@@ -177,13 +198,13 @@ pub fn scan(
     let undecodable: Vec<String> = failures.iter().map(|(id, _)| id.clone()).collect();
     store.update_items(&[], &undecodable)?;
     skipped_files.extend(failures.into_iter().map(|(_, skip)| skip));
-    if feature_summary.learned
-        || feature_summary.encoded > 0
-        || !gone.is_empty()
-        || !undecodable.is_empty()
-    {
-        features::refit_standardiser(store)?;
-    }
+    // Pictures new since the last training get their codes from the stored model.
+    let coded = match TrainedModel::load(store)? {
+        Some(model) => code_missing(store, &model, &mut |done, total| {
+            progress(ScanProgress::Coding { done, total })
+        })?,
+        None => 0,
+    };
 
     let items = store.items()?;
     let now: HashSet<&str> = items.iter().map(|i| i.rel_path.as_str()).collect();
@@ -214,6 +235,7 @@ pub fn scan(
         other_files: found.other_files.len(),
         skipped,
         features: feature_summary,
+        coded,
         seconds: started.elapsed().as_secs_f64(),
         skipped_files,
         notes,

@@ -43,6 +43,21 @@ pub enum StoreError {
         detail: String,
     },
 
+    #[error(
+        "the code of item {id} cannot be searched: {detail}; the stored codes do not match the \
+         model, recompute them (`tagweave scan FOLDER --rebuild`)"
+    )]
+    BadCode { id: String, detail: String },
+
+    #[error("cannot build a code index: {detail}")]
+    BadIndexShape { detail: String },
+
+    #[error(
+        "the search query cannot be used: {detail}; compute the query code with the same model \
+         as the indexed codes"
+    )]
+    BadQuery { detail: String },
+
     #[error("{path}: {source}")]
     Io {
         path: PathBuf,

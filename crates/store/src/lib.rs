@@ -6,6 +6,7 @@
 
 mod error;
 mod lock;
+mod search;
 
 use std::path::{Path, PathBuf};
 
@@ -14,6 +15,7 @@ use tagweave_collection::{ItemRecord, Vocabulary};
 
 pub use error::StoreError;
 use lock::StoreLock;
+pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
 
 /// Bumped whenever the on-disk layout changes in a way older code cannot read.
 pub const FORMAT_VERSION: u32 = 1;
@@ -51,14 +53,15 @@ impl Store {
             source,
         })?;
         let mut store = Store::open_locked(dir)?;
-        if fresh {
+        if fresh || store.is_unfinished()? {
             let root_value = if is_default_location(dir, collection_root) {
                 ROOT_IS_PARENT.to_string()
             } else {
                 absolute(collection_root)?.to_string_lossy().into_owned()
             };
-            store.put_meta(META_FORMAT, &FORMAT_VERSION.to_be_bytes())?;
+            // The version goes last: a store that has one was created completely.
             store.put_meta(META_ROOT, root_value.as_bytes())?;
+            store.put_meta(META_FORMAT, &FORMAT_VERSION.to_be_bytes())?;
             store.flush()?;
         }
         store.check_format()?;
@@ -74,9 +77,25 @@ impl Store {
             });
         }
         let mut store = Store::open_locked(dir)?;
+        if store.is_unfinished()? {
+            return Err(StoreError::NotAStore {
+                dir: dir.to_path_buf(),
+            });
+        }
         store.check_format()?;
         store.collection_root = store.read_root()?;
         Ok(store)
+    }
+
+    /// True for a database whose creation was cut short (a process killed before the
+    /// first flush): no format version and nothing else written. Such a store is created
+    /// anew rather than refused as an unknown format.
+    fn is_unfinished(&self) -> Result<bool> {
+        let versioned = self
+            .meta
+            .contains_key(META_FORMAT)
+            .map_err(|e| self.db_error(e))?;
+        Ok(!versioned && self.items.is_empty() && self.blobs.is_empty() && self.vectors.is_empty())
     }
 
     /// The nearest `.tagweave` folder in `start` or any folder above it, the way git
@@ -304,6 +323,37 @@ impl Store {
                 .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
                 .collect(),
         ))
+    }
+
+    /// Every stored vector of one kind as `(id, values)`, in id order (keys are `{id}/{kind}`
+    /// and ids are hex, so key order is id order). Streams: a million codes are never held
+    /// twice. Note that it walks the vectors of every kind to find this one.
+    pub fn vectors_of_kind<'a>(
+        &'a self,
+        kind: &str,
+    ) -> impl Iterator<Item = Result<(String, Vec<f32>)>> + 'a {
+        let suffix = format!("/{kind}");
+        self.vectors.iter().filter_map(move |entry| {
+            let (key, value) = match entry {
+                Ok(pair) => pair,
+                Err(e) => return Some(Err(self.db_error(e))),
+            };
+            let id = key.strip_suffix(suffix.as_bytes())?;
+            if id.contains(&b'/') {
+                return None; // a kind whose name ends in "/{kind}"
+            }
+            let id = String::from_utf8_lossy(id).into_owned();
+            if value.len() % 4 != 0 {
+                return Some(Err(
+                    self.corrupt(&id, "vector length is not a multiple of 4 bytes")
+                ));
+            }
+            let values = value
+                .chunks_exact(4)
+                .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+                .collect();
+            Some(Ok((id, values)))
+        })
     }
 
     /// Drops every vector of one kind (for example after relearning features).

@@ -28,14 +28,9 @@ impl StoreLock {
         match file.try_lock() {
             Ok(()) => {}
             Err(TryLockError::WouldBlock) => {
-                let mut text = String::new();
-                let pid = file
-                    .read_to_string(&mut text)
-                    .ok()
-                    .and_then(|_| text.trim().parse().ok());
                 return Err(StoreError::InUse {
                     dir: dir.to_path_buf(),
-                    pid,
+                    pid: holder_pid(&mut file),
                 });
             }
             Err(TryLockError::Error(source)) => return Err(io(source)),
@@ -46,4 +41,23 @@ impl StoreLock {
         file.flush().map_err(io)?;
         Ok(StoreLock { _file: file })
     }
+}
+
+/// The PID the holder wrote. A holder that has only just taken the lock may not have
+/// written it yet (two processes started together), so an empty file is read again for a
+/// moment rather than leaving the PID out of the message.
+fn holder_pid(file: &mut File) -> Option<u32> {
+    const TRIES: u32 = 20;
+    for attempt in 1..=TRIES {
+        let mut text = String::new();
+        if file.seek(SeekFrom::Start(0)).is_ok() && file.read_to_string(&mut text).is_ok() {
+            if let Ok(pid) = text.trim().parse() {
+                return Some(pid);
+            }
+        }
+        if attempt < TRIES {
+            std::thread::sleep(std::time::Duration::from_millis(5));
+        }
+    }
+    None
 }

@@ -159,3 +159,75 @@ fn vectors_of_a_picture_whose_bytes_changed_are_dropped() {
     assert_eq!(store.vector("features", &a.id).unwrap(), None);
     assert_eq!(store.vector("features", &b.id).unwrap(), Some(vec![2.0]));
 }
+
+#[test]
+fn a_creation_cut_short_before_its_first_flush_is_finished_not_refused() {
+    // As a process killed right after sled made its files leaves it: a database with the
+    // store's trees but no format version (found by SIGKILLing `tagweave scan` early).
+    let (temp, dir) = collection();
+    std::fs::create_dir_all(&dir).unwrap();
+    {
+        let db = sled::open(dir.join("db")).unwrap();
+        for tree in ["meta", "items", "blobs", "vectors"] {
+            db.open_tree(tree).unwrap();
+        }
+        db.flush().unwrap();
+    }
+    let error = Store::open(&dir).err().expect("nothing to read yet");
+    assert!(
+        matches!(error, StoreError::NotAStore { .. }),
+        "told to scan, not to rebuild an unknown format: {error}"
+    );
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    store.update_items(&[item("a.png", &["x"])], &[]).unwrap();
+    drop(store);
+    assert_eq!(Store::open(&dir).unwrap().item_count(), 1);
+}
+
+#[test]
+fn a_store_without_a_version_but_with_data_is_still_refused() {
+    let (temp, dir) = collection();
+    {
+        let store = Store::open_or_create(&dir, temp.path()).unwrap();
+        store.update_items(&[item("a.png", &["x"])], &[]).unwrap();
+        store.meta.remove(META_FORMAT).unwrap();
+        store.flush().unwrap();
+    }
+    for result in [
+        Store::open(&dir).map(drop),
+        Store::open_or_create(&dir, temp.path()).map(drop),
+    ] {
+        assert!(
+            matches!(result, Err(StoreError::FormatMismatch { found: None, .. })),
+            "{:?}",
+            result.err()
+        );
+    }
+}
+
+#[test]
+fn a_holder_that_has_not_written_its_pid_yet_is_still_named() {
+    // Two scans started together: the loser may look before the winner wrote its PID.
+    use std::io::Write;
+    let (_temp, dir) = collection();
+    std::fs::create_dir_all(&dir).unwrap();
+    let holder = std::fs::OpenOptions::new()
+        .read(true)
+        .write(true)
+        .create(true)
+        .truncate(true)
+        .open(dir.join("lock"))
+        .unwrap();
+    holder.try_lock().unwrap();
+    let mut late = holder.try_clone().unwrap();
+    let writer = std::thread::spawn(move || {
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        write!(late, "4242").unwrap();
+    });
+    match StoreLock::acquire(&dir) {
+        Err(StoreError::InUse { pid, .. }) => assert_eq!(pid, Some(4242)),
+        Err(other) => panic!("expected in-use, got {other}"),
+        Ok(_) => panic!("a held lock was taken twice"),
+    }
+    writer.join().unwrap();
+}

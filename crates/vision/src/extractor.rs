@@ -3,7 +3,6 @@
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicUsize, Ordering};
 
-use ndarray::{ArrayView2, ArrayViewMut2, Axis};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
@@ -144,67 +143,6 @@ impl FeatureExtractor {
     }
 }
 
-/// Per-dimension standardisation learned on training rows, so that no feature dominates
-/// distances (or an RBM's visible layer) just by its scale.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
-pub struct Standardiser {
-    pub mean: Vec<f32>,
-    pub std: Vec<f32>,
-}
-
-/// Dimensions that (nearly) never vary keep a unit scale instead of being blown up.
-const MIN_STD: f64 = 1e-6;
-
-impl Standardiser {
-    /// Column means and (population) standard deviations, summed in f64 in row order.
-    pub fn fit(rows: ArrayView2<f32>) -> Self {
-        let n = rows.nrows().max(1) as f64;
-        let mut sum = vec![0f64; rows.ncols()];
-        let mut sq = vec![0f64; rows.ncols()];
-        for row in rows.rows() {
-            for ((s, q), &v) in sum.iter_mut().zip(&mut sq).zip(row.iter()) {
-                *s += f64::from(v);
-                *q += f64::from(v) * f64::from(v);
-            }
-        }
-        let mean: Vec<f64> = sum.iter().map(|s| s / n).collect();
-        let std = sq
-            .iter()
-            .zip(&mean)
-            .map(|(q, m)| {
-                let sd = (q / n - m * m).max(0.0).sqrt();
-                if sd < MIN_STD {
-                    1.0
-                } else {
-                    sd as f32
-                }
-            })
-            .collect();
-        Self {
-            mean: mean.iter().map(|&m| m as f32).collect(),
-            std,
-        }
-    }
-
-    /// Standardises `rows` in place: (x − mean) / std per column.
-    pub fn apply(&self, mut rows: ArrayViewMut2<f32>) -> Result<(), VisionError> {
-        if rows.ncols() != self.mean.len() {
-            return Err(VisionError::InvalidOptions(format!(
-                "rows have {} features but the standardiser was fitted on {}; \
-                 recompute features with the same extractor",
-                rows.ncols(),
-                self.mean.len()
-            )));
-        }
-        for mut row in rows.axis_iter_mut(Axis(0)) {
-            for ((v, m), s) in row.iter_mut().zip(&self.mean).zip(&self.std) {
-                *v = (*v - m) / s;
-            }
-        }
-        Ok(())
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -313,21 +251,5 @@ mod tests {
             assert_eq!(f.len(), fx.dimension());
             assert!(f.iter().all(|v| v.is_finite()));
         }
-    }
-
-    #[test]
-    fn standardiser_centres_and_scales() {
-        let rows = ndarray::array![[1.0f32, 5.0, 7.0], [3.0, 5.0, 9.0], [5.0, 5.0, 11.0]];
-        let st = Standardiser::fit(rows.view());
-        // source: worked by hand — column 0 has mean 3 and population sd sqrt(8/3).
-        assert!((st.mean[0] - 3.0).abs() < 1e-6);
-        assert!((st.std[0] - (8.0f32 / 3.0).sqrt()).abs() < 1e-6);
-        assert_eq!(st.std[1], 1.0, "constant column keeps unit scale");
-        let mut out = rows.clone();
-        st.apply(out.view_mut()).unwrap();
-        let fitted_again = Standardiser::fit(out.view());
-        assert!(fitted_again.mean.iter().all(|m| m.abs() < 1e-6));
-        assert!((fitted_again.std[0] - 1.0).abs() < 1e-5);
-        assert!(st.apply(Array2::<f32>::zeros((1, 2)).view_mut()).is_err());
     }
 }

@@ -1,0 +1,333 @@
+//! `find`, `suggest`, `shift` and `audit`: questions to a trained collection.
+
+use std::path::{Path, PathBuf};
+
+use anyhow::{bail, Context};
+use serde::Serialize;
+use tagweave_query::{Dispute, Found, Queries, Ranking, TagScore};
+use tagweave_store::Store;
+use tagweave_writeback::{write_sheet, Decision, RowKind, SheetRow};
+
+use crate::exit::Outcome;
+use crate::{store_path, StoreArgs};
+
+/// Default review-sheet names, written in the current folder unless `--sheet` says otherwise.
+pub const SUGGESTIONS_SHEET: &str = "tagweave-suggestions.csv";
+pub const AUDIT_SHEET: &str = "tagweave-review.csv";
+
+#[derive(clap::Args)]
+pub struct FindArgs {
+    /// Tags the pictures should show (all of them).
+    #[arg(required = true)]
+    pub tags: Vec<String>,
+    #[command(flatten)]
+    pub common: RankArgs,
+}
+
+#[derive(clap::Args)]
+pub struct ShiftArgs {
+    /// The picture to start from.
+    pub picture: PathBuf,
+    /// Tags to move away from.
+    #[arg(long, num_args = 1.., value_name = "TAG")]
+    pub away: Vec<String>,
+    /// Tags to move toward.
+    #[arg(long, num_args = 1.., value_name = "TAG")]
+    pub toward: Vec<String>,
+    #[command(flatten)]
+    pub common: RankArgs,
+}
+
+#[derive(clap::Args)]
+pub struct RankArgs {
+    #[command(flatten)]
+    pub store: StoreArgs,
+    /// Only pictures nobody has tagged yet.
+    #[arg(long)]
+    pub untagged_only: bool,
+    /// How many pictures to list.
+    #[arg(long, default_value_t = 10)]
+    pub limit: usize,
+    /// Compare with every picture's code instead of pre-filtering by hash (slower; for checking).
+    #[arg(long)]
+    pub exact: bool,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(clap::Args)]
+pub struct SuggestArgs {
+    /// Picture files (in the collection or not).
+    #[arg(required_unless_present = "untagged")]
+    pub pictures: Vec<PathBuf>,
+    /// Suggest for every untagged picture of the collection and write a review sheet.
+    #[arg(long)]
+    pub untagged: bool,
+    /// Where the review sheet goes (with --untagged).
+    #[arg(long, value_name = "CSV", default_value = SUGGESTIONS_SHEET)]
+    pub sheet: PathBuf,
+    /// Tags listed per picture.
+    #[arg(long, default_value_t = 5)]
+    pub limit: usize,
+    #[command(flatten)]
+    pub store: StoreArgs,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(clap::Args)]
+pub struct AuditArgs {
+    #[command(flatten)]
+    pub store: StoreArgs,
+    /// Pictures shown (the review sheet holds every picture with a disputed tag).
+    #[arg(long, default_value_t = 20)]
+    pub limit: usize,
+    /// Where the review sheet goes.
+    #[arg(long, value_name = "CSV", default_value = AUDIT_SHEET)]
+    pub sheet: PathBuf,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+fn open(store: &StoreArgs) -> anyhow::Result<(Store, Queries)> {
+    let store = store_path::open_existing(store.store.as_deref())?;
+    let queries = Queries::open(&store)?;
+    Ok((store, queries))
+}
+
+impl RankArgs {
+    fn ranking(&self) -> Ranking {
+        Ranking {
+            limit: self.limit,
+            untagged_only: self.untagged_only,
+            exact: self.exact,
+        }
+    }
+}
+
+fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
+    if json {
+        println!("{}", serde_json::to_string(found)?);
+        return Ok(());
+    }
+    if found.is_empty() {
+        println!("no pictures");
+        return Ok(());
+    }
+    println!("{:>4}  {:>10}  {:<9}  picture", "rank", "similarity", what);
+    for (i, f) in found.iter().enumerate() {
+        let how = if f.carries {
+            "carries"
+        } else if f.tagged {
+            "inferred"
+        } else {
+            "inferred*"
+        };
+        println!("{:>4}  {:>10.3}  {:<9}  {}", i + 1, f.similarity, how, f.picture);
+    }
+    if found.iter().any(|f| !f.carries && !f.tagged) {
+        println!("  * untagged picture: the tags are the model's guess, not anybody's record");
+    }
+    Ok(())
+}
+
+pub fn find(args: &FindArgs) -> anyhow::Result<Outcome> {
+    let (_store, queries) = open(&args.common.store)?;
+    let found = queries.find(&args.tags, args.common.ranking())?;
+    print_found(&found, args.common.json, "tags")?;
+    Ok(Outcome::Done)
+}
+
+pub fn shift(args: &ShiftArgs) -> anyhow::Result<Outcome> {
+    if args.away.is_empty() && args.toward.is_empty() {
+        bail!("say what to change: --away TAG… and/or --toward TAG…");
+    }
+    let (_store, queries) = open(&args.common.store)?;
+    let row = queries
+        .row_of_path(&args.picture)
+        .ok_or_else(|| tagweave_query::QueryError::NotIndexed {
+            path: args.picture.clone(),
+        })?;
+    let found = queries.shift(row, &args.away, &args.toward, args.common.ranking())?;
+    print_found(&found, args.common.json, "toward")?;
+    Ok(Outcome::Done)
+}
+
+#[derive(Serialize)]
+struct PictureSuggestions {
+    picture: String,
+    indexed: bool,
+    carried: Vec<String>,
+    suggestions: Vec<TagScore>,
+}
+
+pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
+    let (store, queries) = open(&args.store)?;
+    let mut answers = Vec::new();
+    if args.untagged {
+        let rows: Vec<usize> = (0..queries.items().len())
+            .filter(|&i| queries.items()[i].tags.is_empty())
+            .collect();
+        let probabilities = queries.suggest_rows(&rows)?;
+        for (r, &i) in rows.iter().enumerate() {
+            answers.push(PictureSuggestions {
+                picture: queries.items()[i].rel_path.clone(),
+                indexed: true,
+                carried: Vec::new(),
+                suggestions: queries
+                    .tag_scores(&probabilities.row(r).to_vec(), &[])
+                    .into_iter()
+                    .take(args.limit)
+                    .collect(),
+            });
+        }
+    }
+    for path in &args.pictures {
+        let (indexed, carried, probabilities) = match queries.row_of_path(path) {
+            Some(row) => {
+                let p = queries.suggest_rows(&[row])?;
+                (true, queries.items()[row].tags.clone(), p.row(0).to_vec())
+            }
+            None => (false, Vec::new(), queries.suggest_file(path)?),
+        };
+        answers.push(PictureSuggestions {
+            picture: path.display().to_string(),
+            indexed,
+            suggestions: queries
+                .tag_scores(&probabilities, &carried)
+                .into_iter()
+                .filter(|s| !s.carried)
+                .take(args.limit)
+                .collect(),
+            carried,
+        });
+    }
+    let sheet = if args.untagged {
+        let rows: Vec<SheetRow> = answers
+            .iter()
+            .filter(|a| a.indexed && a.carried.is_empty())
+            .flat_map(|a| {
+                a.suggestions.iter().map(|s| SheetRow {
+                    picture: a.picture.clone(),
+                    tag: s.tag.clone(),
+                    probability: Some(s.probability),
+                    kind: RowKind::Suggested,
+                    decision: Decision::Undecided,
+                })
+            })
+            .collect();
+        write_sheet(&args.sheet, &rows)
+            .with_context(|| format!("cannot write the review sheet {}", args.sheet.display()))?;
+        Some((args.sheet.clone(), rows.len()))
+    } else {
+        None
+    };
+    if args.json {
+        let mut value = serde_json::json!({ "pictures": answers });
+        if let Some((path, rows)) = &sheet {
+            value["sheet"] = serde_json::json!({ "path": path, "rows": rows });
+        }
+        println!("{value}");
+    } else {
+        for a in &answers {
+            println!(
+                "{}{}",
+                a.picture,
+                if a.indexed { "" } else { "  (not in the index)" }
+            );
+            if !a.carried.is_empty() {
+                println!("  carries   {}", a.carried.join(", "));
+            }
+            for s in &a.suggestions {
+                println!("  {:>5.0} %  {}", s.probability * 100.0, s.tag);
+            }
+        }
+        if let Some((path, rows)) = &sheet {
+            print_sheet_note(&store, path, *rows);
+        }
+    }
+    Ok(Outcome::Done)
+}
+
+fn print_sheet_note(store: &Store, path: &Path, rows: usize) {
+    println!();
+    println!(
+        "Review sheet: {} ({rows} rows). Fill the `accept` column with y or n (for a disputed \
+         tag: remove, to take it off), then run `tagweave apply {}`.",
+        path.display(),
+        path.display()
+    );
+    println!(
+        "Nothing is written to {} until you do.",
+        store.collection_root().display()
+    );
+}
+
+pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
+    let (store, queries) = open(&args.store)?;
+    let disputes: Vec<Dispute> = queries.audit()?;
+    let flagged: Vec<&Dispute> = disputes.iter().filter(|d| !d.disputed.is_empty()).collect();
+    let mut rows = Vec::new();
+    for d in &flagged {
+        for t in &d.disputed {
+            rows.push(SheetRow {
+                picture: d.picture.clone(),
+                tag: t.tag.clone(),
+                probability: Some(t.probability),
+                kind: RowKind::Disputed,
+                decision: Decision::Undecided,
+            });
+        }
+        for s in &d.proposed {
+            rows.push(SheetRow {
+                picture: d.picture.clone(),
+                tag: s.tag.clone(),
+                probability: Some(s.probability),
+                kind: RowKind::Suggested,
+                decision: Decision::Undecided,
+            });
+        }
+    }
+    write_sheet(&args.sheet, &rows)
+        .with_context(|| format!("cannot write the review sheet {}", args.sheet.display()))?;
+    if args.json {
+        let shown: Vec<&&Dispute> = flagged.iter().take(args.limit).collect();
+        println!(
+            "{}",
+            serde_json::json!({
+                "judged": disputes.len(),
+                "flagged": flagged.len(),
+                "queue": shown,
+                "sheet": { "path": args.sheet, "rows": rows.len() },
+            })
+        );
+        return Ok(Outcome::Done);
+    }
+    println!(
+        "{} of {} tagged pictures carry a tag their picture does not support; worst first:",
+        flagged.len(),
+        disputes.len()
+    );
+    for (i, d) in flagged.iter().take(args.limit).enumerate() {
+        let disputed: Vec<String> = d
+            .disputed
+            .iter()
+            .map(|t| format!("{} ({:.0} %)", t.tag, t.probability * 100.0))
+            .collect();
+        let proposed: Vec<String> = d
+            .proposed
+            .iter()
+            .map(|t| format!("{} ({:.0} %)", t.tag, t.probability * 100.0))
+            .collect();
+        println!("{:>4}. {}", i + 1, d.picture);
+        println!("      doubtful  {}", disputed.join(", "));
+        if !proposed.is_empty() {
+            println!("      proposed  {}", proposed.join(", "));
+        }
+    }
+    print_sheet_note(&store, &args.sheet, rows.len());
+    Ok(Outcome::Done)
+}

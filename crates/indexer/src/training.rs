@@ -1,0 +1,408 @@
+//! Training the joint model on a store's tagged pictures, keeping it in the store, and
+//! giving every picture its code.
+//!
+//! The trained model travels with its own vocabulary and feature scaling, so a later
+//! scan (new pictures, changed tags) never changes what the model's inputs mean.
+
+use std::time::Instant;
+
+use ndarray::{Array2, ArrayView2, Axis};
+use serde::{Deserialize, Serialize};
+use tagweave_collection::ItemRecord;
+use tagweave_eval::{
+    group_ids, KnnScorer, Standardiser, TagSuggester, TrainSet, TrainingRun, Vocabulary,
+};
+use tagweave_model::{JointOptions, JointProgress};
+use tagweave_store::Store;
+
+use crate::{FeatureTable, IndexError, FEATURES};
+
+/// Store blob holding the [`TrainedModel`].
+pub const MODEL_BLOB: &str = "tag_model";
+/// Vector kind of each picture's code (shared-layer probabilities).
+pub const CODES: &str = "code";
+/// Bumped when [`TrainedModel`] changes shape; an older model is retrained, not guessed at.
+pub const MODEL_FORMAT: u32 = 1;
+
+/// Pictures coded per store write.
+const CODE_BATCH: usize = 256;
+
+/// A model as kept in the store: everything needed to suggest tags for, and code,
+/// any picture described by the store's feature extractor.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct TrainedModel {
+    pub format: u32,
+    /// Tag of each model column, sorted.
+    pub vocabulary: Vec<String>,
+    /// Scaling of raw features fitted on the training pictures.
+    pub standardiser: Standardiser,
+    pub suggester: TagSuggester,
+    /// Per shared unit, its median over the training pictures' codes: bit j of a
+    /// picture's hash is `code[j] > threshold[j]`, so every bit splits the
+    /// collection about in half (the most informative a bit can be).
+    pub hash_thresholds: Vec<f32>,
+    /// Per tag (model column), the mean code of the training pictures carrying it: the
+    /// tag's place among picture codes, for finding pictures by tags and for moving a
+    /// picture's code from one tag toward another.
+    pub tag_centroids: Vec<Vec<f32>>,
+    pub history: TrainingHistory,
+}
+
+/// What training went through, for the summary and the loss-curve picture.
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
+pub struct TrainingHistory {
+    /// Per pretrained layer ("image", "tags", "shared"): reconstruction error per
+    /// epoch of the final run.
+    pub pretraining: Vec<(String, Vec<f32>)>,
+    /// Fine-tuning loss per epoch while choosing the length (validation run).
+    pub choosing_loss: Vec<f32>,
+    /// Validation LRAP per epoch of that run.
+    pub validation_lrap: Vec<f32>,
+    /// Fine-tuning loss per epoch of the final run.
+    pub final_loss: Vec<f32>,
+    pub pictures: usize,
+    pub seconds: f64,
+}
+
+#[derive(Debug, Clone)]
+pub struct TrainOptions {
+    pub seed: u64,
+    pub joint: JointOptions,
+}
+
+impl Default for TrainOptions {
+    fn default() -> Self {
+        TrainOptions {
+            seed: 7,
+            joint: JointOptions::default(),
+        }
+    }
+}
+
+/// Where training is, for the caller to render.
+#[derive(Debug, Clone)]
+pub enum TrainProgress {
+    Model(TrainingRun, JointProgress),
+    /// Pictures coded so far.
+    Coding {
+        done: usize,
+        total: usize,
+    },
+}
+
+/// What `train` did.
+#[derive(Debug, Clone, Serialize)]
+pub struct TrainReport {
+    /// Tagged pictures the model learned from.
+    pub pictures: usize,
+    /// Pictures without tags (coded, not learned from).
+    pub untagged: usize,
+    pub tags: usize,
+    /// Hidden units: image pathway, tag pathway, shared layer.
+    pub layers: [usize; 3],
+    pub epochs: usize,
+    pub readout_weight: f32,
+    pub k: usize,
+    pub calibrated: bool,
+    pub hash_bits: usize,
+    pub coded: usize,
+    /// Reconstruction error of each pretrained layer after its last epoch.
+    pub final_reconstruction: Vec<(String, f32)>,
+    pub final_loss: Option<f32>,
+    pub best_validation_lrap: Option<f32>,
+    pub seconds: f64,
+}
+
+/// The store's tagged pictures in model columns, with features scaled for the model.
+pub struct TrainingData {
+    pub items: Vec<ItemRecord>,
+    /// Standardised features, one row per item.
+    pub features: Array2<f32>,
+    pub tags: Vec<Vec<usize>>,
+    pub groups: Vec<usize>,
+}
+
+impl TrainingData {
+    pub fn train_set(&self, n_tags: usize, seed: u64) -> TrainSet<'_> {
+        TrainSet {
+            features: self.features.view(),
+            tags: &self.tags,
+            n_tags,
+            groups: &self.groups,
+            seed,
+        }
+    }
+}
+
+/// Picks the tagged rows of `table`, encodes their tags with `vocabulary` (rows
+/// left with no known tag are dropped) and scales their features.
+fn tagged_rows(
+    table: &FeatureTable,
+    vocabulary: &Vocabulary,
+    standardiser: &Standardiser,
+) -> TrainingData {
+    let mut rows = Vec::new();
+    let mut tags = Vec::new();
+    for (i, item) in table.items.iter().enumerate() {
+        let known = vocabulary.encode(&item.tags);
+        if !known.is_empty() {
+            rows.push(i);
+            tags.push(known);
+        }
+    }
+    let items: Vec<ItemRecord> = rows.iter().map(|&i| table.items[i].clone()).collect();
+    let keys: Vec<String> = items.iter().map(|i| i.content_hash.clone()).collect();
+    TrainingData {
+        features: standardiser.apply(table.features.select(Axis(0), &rows).view()),
+        groups: group_ids(&keys),
+        items,
+        tags,
+    }
+}
+
+/// Trains the joint model on every tagged picture with features, stores it, and
+/// codes every picture. The previous model and codes are replaced only at the end,
+/// model first, so a crash leaves the old model or codes that a scan completes.
+pub fn train(
+    store: &Store,
+    options: &TrainOptions,
+    progress: &mut dyn FnMut(TrainProgress),
+) -> Result<TrainReport, IndexError> {
+    let started = Instant::now();
+    let table = FeatureTable::load(store)?;
+    let tagged: Vec<&[String]> = table
+        .items
+        .iter()
+        .map(|i| i.tags.as_slice())
+        .filter(|t| !t.is_empty())
+        .collect();
+    if tagged.len() < 2 {
+        return Err(IndexError::NotEnoughTags {
+            tagged: tagged.len(),
+        });
+    }
+    let vocabulary = Vocabulary::from_items(tagged.iter().copied());
+    let tagged_features: Vec<usize> = (0..table.items.len())
+        .filter(|&i| !table.items[i].tags.is_empty())
+        .collect();
+    let standardiser = Standardiser::fit(table.features.select(Axis(0), &tagged_features).view());
+    let data = tagged_rows(&table, &vocabulary, &standardiser);
+    let train_set = data.train_set(vocabulary.len(), options.seed);
+
+    let mut history = TrainingHistory::default();
+    let (suggester, _) = TagSuggester::train(&train_set, &options.joint, &mut |run, p| {
+        record(&mut history, run, &p);
+        progress(TrainProgress::Model(run, p));
+    })
+    .map_err(IndexError::Model)?;
+    history.pictures = data.items.len();
+    history.seconds = started.elapsed().as_secs_f64();
+
+    let codes = suggester
+        .model
+        .shared_code(data.features.view())
+        .map_err(|e| IndexError::Model(model_error(e)))?;
+    let model = TrainedModel {
+        format: MODEL_FORMAT,
+        vocabulary: vocabulary.tags().to_vec(),
+        standardiser,
+        hash_thresholds: column_medians(codes.view()),
+        tag_centroids: centroids(codes.view(), &data.tags, vocabulary.len()),
+        suggester,
+        history,
+    };
+    store.clear_vectors(CODES)?;
+    store.put_blob(MODEL_BLOB, &model)?;
+    let coded = code_missing(store, &model, &mut |done, total| {
+        progress(TrainProgress::Coding { done, total })
+    })?;
+
+    let h = &model.history;
+    let m = &model.suggester.model;
+    Ok(TrainReport {
+        pictures: data.items.len(),
+        untagged: table.items.len() - data.items.len(),
+        tags: model.vocabulary.len(),
+        layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
+        epochs: model.suggester.epochs,
+        readout_weight: model.suggester.readout_weight,
+        k: model.suggester.k,
+        calibrated: model.suggester.calibration.is_some(),
+        hash_bits: model.hash_thresholds.len(),
+        coded,
+        final_reconstruction: h
+            .pretraining
+            .iter()
+            .filter_map(|(layer, errors)| errors.last().map(|e| (layer.clone(), *e)))
+            .collect(),
+        final_loss: h.final_loss.last().copied(),
+        best_validation_lrap: h.validation_lrap.iter().copied().reduce(f32::max),
+        seconds: started.elapsed().as_secs_f64(),
+    })
+}
+
+fn record(history: &mut TrainingHistory, run: TrainingRun, p: &JointProgress) {
+    match (run, p) {
+        (TrainingRun::Final, JointProgress::Pretraining { layer, report }) => {
+            match history.pretraining.iter_mut().find(|(l, _)| l == layer) {
+                Some((_, errors)) => errors.push(report.reconstruction_error),
+                None => history
+                    .pretraining
+                    .push((layer.to_string(), vec![report.reconstruction_error])),
+            }
+        }
+        (TrainingRun::Choosing, JointProgress::FineTuning(r)) => {
+            history.choosing_loss.push(r.train_loss);
+            if let Some(score) = r.validation_score {
+                history.validation_lrap.push(score);
+            }
+        }
+        (TrainingRun::Final, JointProgress::FineTuning(r)) => history.final_loss.push(r.train_loss),
+        (TrainingRun::Choosing, JointProgress::Pretraining { .. }) => {}
+    }
+}
+
+fn centroids(codes: ArrayView2<f32>, tags: &[Vec<usize>], n_tags: usize) -> Vec<Vec<f32>> {
+    let mut sums = vec![vec![0.0f64; codes.ncols()]; n_tags];
+    let mut counts = vec![0usize; n_tags];
+    for (code, carried) in codes.outer_iter().zip(tags) {
+        for &t in carried {
+            counts[t] += 1;
+            sums[t].iter_mut().zip(code).for_each(|(s, &c)| *s += f64::from(c));
+        }
+    }
+    sums.into_iter()
+        .zip(counts)
+        .map(|(sum, n)| sum.into_iter().map(|s| (s / n.max(1) as f64) as f32).collect())
+        .collect()
+}
+
+fn column_medians(codes: ArrayView2<f32>) -> Vec<f32> {
+    codes
+        .columns()
+        .into_iter()
+        .map(|c| {
+            let mut v = c.to_vec();
+            v.sort_by(f32::total_cmp);
+            match v.len() {
+                0 => 0.5,
+                n if n % 2 == 1 => v[n / 2],
+                n => 0.5 * (v[n / 2 - 1] + v[n / 2]),
+            }
+        })
+        .collect()
+}
+
+fn model_error(source: tagweave_model::ModelError) -> tagweave_eval::EvalError {
+    tagweave_eval::EvalError::Model {
+        method: "joint".into(),
+        source,
+    }
+}
+
+impl TrainedModel {
+    /// The store's model; `None` before the first `tagweave train`.
+    pub fn load(store: &Store) -> Result<Option<TrainedModel>, IndexError> {
+        #[derive(Deserialize)]
+        struct FormatOnly {
+            format: u32,
+        }
+        let Some(header) = store.blob::<FormatOnly>(MODEL_BLOB)? else {
+            return Ok(None);
+        };
+        if header.format != MODEL_FORMAT {
+            return Err(IndexError::ModelFormat {
+                found: header.format,
+                expected: MODEL_FORMAT,
+            });
+        }
+        Ok(store.blob(MODEL_BLOB)?)
+    }
+
+    /// Raw feature rows (as stored) scaled for the model.
+    pub fn scale(&self, raw: ArrayView2<f32>) -> Result<Array2<f32>, IndexError> {
+        if raw.ncols() != self.standardiser.width() {
+            return Err(IndexError::Inconsistent(format!(
+                "pictures have {} features but the model was trained on {}; run `tagweave train` again",
+                raw.ncols(),
+                self.standardiser.width()
+            )));
+        }
+        Ok(self.standardiser.apply(raw))
+    }
+
+    /// Codes (shared-layer probabilities) of raw feature rows.
+    pub fn codes(&self, raw: ArrayView2<f32>) -> Result<Array2<f32>, IndexError> {
+        self.suggester
+            .model
+            .shared_code(self.scale(raw)?.view())
+            .map_err(|e| IndexError::Model(model_error(e)))
+    }
+
+    /// The kNN part of the suggestions, on the store's tagged pictures as they are
+    /// now (tags accepted since training count at once), plus those pictures.
+    pub fn neighbours(&self, table: &FeatureTable) -> Result<(KnnScorer, Vec<String>), IndexError> {
+        let vocabulary = Vocabulary::from_items([self.vocabulary.as_slice()]);
+        let data = tagged_rows(table, &vocabulary, &self.standardiser);
+        let knn = self
+            .suggester
+            .neighbours(&data.train_set(self.vocabulary.len(), 0));
+        Ok((knn, data.items.into_iter().map(|i| i.id).collect()))
+    }
+}
+
+/// Codes every item that has features but no code yet; returns how many were coded.
+pub fn code_missing(
+    store: &Store,
+    model: &TrainedModel,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<usize, IndexError> {
+    let mut missing = Vec::new();
+    for item in store.items()? {
+        if store.vector(CODES, &item.id)?.is_none() {
+            if let Some(row) = store.vector(FEATURES, &item.id)? {
+                missing.push((item.id, row));
+            }
+        }
+    }
+    let total = missing.len();
+    let mut done = 0;
+    for chunk in missing.chunks(CODE_BATCH) {
+        let width = chunk[0].1.len();
+        let flat: Vec<f32> = chunk.iter().flat_map(|(_, r)| r.iter().copied()).collect();
+        let raw = Array2::from_shape_vec((chunk.len(), width), flat)
+            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
+        let codes = model.codes(raw.view())?;
+        let rows: Vec<(String, Vec<f32>)> = chunk
+            .iter()
+            .zip(codes.outer_iter())
+            .map(|((id, _), code)| (id.clone(), code.to_vec()))
+            .collect();
+        store.put_vectors(CODES, &rows)?;
+        done += chunk.len();
+        progress(done, total);
+    }
+    Ok(total)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // by hand: tag 0 on rows 0 and 2 → mean of [1, 0] and [3, 2] = [2, 1]; tag 1 on row 1 only.
+    #[test]
+    fn tag_centroids_are_mean_codes_of_carriers() {
+        let codes = ndarray::array![[1.0f32, 0.0], [5.0, 5.0], [3.0, 2.0]];
+        let c = centroids(codes.view(), &[vec![0], vec![1], vec![0]], 3);
+        assert_eq!(c, vec![vec![2.0, 1.0], vec![5.0, 5.0], vec![0.0, 0.0]]);
+    }
+
+    // by hand: medians of [3, 1, 2] = 2 and of [0.1, 0.4, 0.2, 0.3] = 0.25.
+    #[test]
+    fn hash_thresholds_are_column_medians() {
+        let odd = ndarray::array![[3.0f32], [1.0], [2.0]];
+        assert_eq!(column_medians(odd.view()), vec![2.0]);
+        let even = ndarray::array![[0.1f32], [0.4], [0.2], [0.3]];
+        assert!((column_medians(even.view())[0] - 0.25).abs() < 1e-7);
+    }
+}

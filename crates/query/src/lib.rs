@@ -1,0 +1,343 @@
+//! Questions people ask of a trained collection: which pictures fit these tags, which
+//! tags fit this picture, what is like this picture but with one thing changed, and
+//! which pictures carry tags that do not fit them.
+//!
+//! Everything here reads the store; nothing writes. Answers are suggestions for a
+//! person to review, never facts.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use ndarray::{Array2, Axis};
+use serde::Serialize;
+use tagweave_collection::{normalize_tag, ItemRecord};
+use tagweave_eval::KnnScorer;
+use tagweave_indexer::{FeatureTable, IndexError, TrainedModel, CODES, EXTRACTOR_BLOB};
+use tagweave_store::{CodeIndex, SearchMode, Store, StoreError};
+use tagweave_vision::{FeatureExtractor, VisionError};
+
+mod audit;
+pub use audit::{Dispute, DisputedTag};
+
+#[derive(Debug, thiserror::Error)]
+pub enum QueryError {
+    #[error("this collection has no trained model yet; run `tagweave train` first")]
+    NotTrained,
+    #[error(
+        "the model does not know the tag(s) {unknown:?}; `tagweave tags` lists the tags \
+         pictures carry (the model learns tags carried by at least one tagged picture)"
+    )]
+    UnknownTags { unknown: Vec<String> },
+    #[error("give at least one tag")]
+    NoTags,
+    #[error("{path} is not a picture of this collection and cannot be read as one: {source}")]
+    Picture {
+        path: PathBuf,
+        #[source]
+        source: VisionError,
+    },
+    #[error(
+        "{path} is not indexed; scan the folder first (`tagweave scan FOLDER`), or give a \
+         picture file to judge on its own"
+    )]
+    NotIndexed { path: PathBuf },
+    #[error(transparent)]
+    Index(#[from] IndexError),
+    #[error(transparent)]
+    Store(#[from] StoreError),
+    #[error(transparent)]
+    Eval(#[from] tagweave_eval::EvalError),
+}
+
+pub type Result<T> = std::result::Result<T, QueryError>;
+
+/// One tag with the model's probability that it fits a picture.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TagScore {
+    pub tag: String,
+    pub probability: f32,
+    /// Whether the picture's sidecar already carries the tag.
+    pub carried: bool,
+}
+
+/// One picture in a ranked answer.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Found {
+    pub picture: String,
+    pub similarity: f32,
+    /// Whether the picture's sidecar carries every asked tag (`false`: inferred).
+    pub carries: bool,
+    pub tagged: bool,
+}
+
+/// Options of [`Queries::find`] and [`Queries::shift`].
+#[derive(Debug, Clone, Copy)]
+pub struct Ranking {
+    pub limit: usize,
+    pub untagged_only: bool,
+    /// Exact search instead of the Hamming pre-filter, for checking.
+    pub exact: bool,
+}
+
+impl Default for Ranking {
+    fn default() -> Self {
+        Ranking {
+            limit: 10,
+            untagged_only: false,
+            exact: false,
+        }
+    }
+}
+
+/// A trained store opened for questions.
+pub struct Queries {
+    root: PathBuf,
+    model: TrainedModel,
+    /// Every picture with features, by relative path.
+    items: Vec<ItemRecord>,
+    /// Their features, scaled for the model (same row order).
+    scaled: Array2<f32>,
+    row_of_id: HashMap<String, usize>,
+    codes: CodeIndex,
+    neighbours: KnnScorer,
+    /// For each item row, its row among the neighbours' pictures (tagged ones only).
+    neighbour_row: Vec<Option<usize>>,
+    tag_column: HashMap<String, usize>,
+    extractor: Option<FeatureExtractor>,
+}
+
+impl Queries {
+    pub fn open(store: &Store) -> Result<Queries> {
+        let model = TrainedModel::load(store)?.ok_or(QueryError::NotTrained)?;
+        let table = FeatureTable::load(store)?;
+        let scaled = model.scale(table.features.view())?;
+        let (neighbours, neighbour_ids) = model.neighbours(&table)?;
+        let row_of_id: HashMap<String, usize> = table
+            .items
+            .iter()
+            .enumerate()
+            .map(|(i, item)| (item.id.clone(), i))
+            .collect();
+        let mut neighbour_row = vec![None; table.items.len()];
+        for (j, id) in neighbour_ids.iter().enumerate() {
+            if let Some(&i) = row_of_id.get(id) {
+                neighbour_row[i] = Some(j);
+            }
+        }
+        let codes = CodeIndex::load(store, CODES, &model.hash_thresholds)?;
+        let tag_column = model
+            .vocabulary
+            .iter()
+            .enumerate()
+            .map(|(i, t)| (t.clone(), i))
+            .collect();
+        Ok(Queries {
+            root: store.collection_root().to_path_buf(),
+            extractor: store.blob(EXTRACTOR_BLOB)?,
+            items: table.items,
+            scaled,
+            row_of_id,
+            codes,
+            neighbours,
+            neighbour_row,
+            tag_column,
+            model,
+        })
+    }
+
+    pub fn items(&self) -> &[ItemRecord] {
+        &self.items
+    }
+
+    pub fn vocabulary(&self) -> &[String] {
+        &self.model.vocabulary
+    }
+
+    /// The row of a picture given as a path (relative to the current folder, absolute,
+    /// or relative to the collection root), if it is indexed.
+    pub fn row_of_path(&self, path: &Path) -> Option<usize> {
+        let absolute = std::fs::canonicalize(path).ok();
+        let root = std::fs::canonicalize(&self.root).ok();
+        let rel = match (absolute, root) {
+            (Some(a), Some(r)) => a.strip_prefix(&r).ok().map(Path::to_path_buf),
+            _ => None,
+        }
+        .unwrap_or_else(|| path.to_path_buf());
+        let rel = rel.to_string_lossy().replace('\\', "/");
+        self.items.iter().position(|item| item.rel_path == rel)
+    }
+
+    /// Tag probabilities for indexed pictures (rows), each judged without leaning on
+    /// its own tags.
+    pub fn suggest_rows(&self, rows: &[usize]) -> Result<Array2<f32>> {
+        let x = self.scaled.select(Axis(0), rows);
+        let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
+        Ok(self
+            .model
+            .suggester
+            .suggest(x.view(), &self.neighbours, &exclude)?)
+    }
+
+    /// Tag probabilities for a picture file outside the index, described on the fly
+    /// with the collection's own feature extractor.
+    pub fn suggest_file(&self, path: &Path) -> Result<Vec<f32>> {
+        let extractor = self.extractor.as_ref().ok_or(QueryError::NotTrained)?;
+        let raw = extractor
+            .features(path)
+            .map_err(|source| QueryError::Picture {
+                path: path.to_path_buf(),
+                source,
+            })?;
+        let n = raw.len();
+        let raw = Array2::from_shape_vec((1, n), raw)
+            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
+        let x = self.model.scale(raw.view())?;
+        let p = self.model.suggester.suggest(x.view(), &self.neighbours, &[])?;
+        Ok(p.row(0).to_vec())
+    }
+
+    /// Probabilities as tag scores, best first; `carried` marks the picture's own tags.
+    pub fn tag_scores(&self, probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
+        let mut out: Vec<TagScore> = self
+            .model
+            .vocabulary
+            .iter()
+            .zip(probabilities)
+            .map(|(tag, &p)| TagScore {
+                tag: tag.clone(),
+                probability: p,
+                carried: carried.contains(tag),
+            })
+            .collect();
+        out.sort_by(|a, b| {
+            b.probability
+                .total_cmp(&a.probability)
+                .then(a.tag.cmp(&b.tag))
+        });
+        out
+    }
+
+    /// Normalised tags as a 0/1 row in model columns; unknown tags are an error.
+    fn tag_row(&self, tags: &[String]) -> Result<Array2<f32>> {
+        if tags.is_empty() {
+            return Err(QueryError::NoTags);
+        }
+        let mut row = Array2::zeros((1, self.model.vocabulary.len()));
+        let mut unknown = Vec::new();
+        for tag in tags {
+            match normalize_tag(tag).and_then(|t| self.tag_column.get(&t)) {
+                Some(&c) => row[[0, c]] = 1.0,
+                None => unknown.push(tag.clone()),
+            }
+        }
+        if unknown.is_empty() {
+            Ok(row)
+        } else {
+            Err(QueryError::UnknownTags { unknown })
+        }
+    }
+
+    /// Where the tags sit among picture codes: the mean of their centroids (each the
+    /// mean code of the training pictures carrying the tag).
+    pub fn code_of_tags(&self, tags: &[String]) -> Result<Vec<f32>> {
+        let row = self.tag_row(tags)?;
+        let chosen: Vec<&Vec<f32>> = row
+            .row(0)
+            .iter()
+            .zip(&self.model.tag_centroids)
+            .filter(|(&v, _)| v > 0.0)
+            .map(|(_, c)| c)
+            .collect();
+        let mut code = vec![0.0f32; self.codes.dim()];
+        for c in &chosen {
+            code.iter_mut().zip(c.iter()).for_each(|(a, &b)| *a += b);
+        }
+        code.iter_mut().for_each(|v| *v /= chosen.len().max(1) as f32);
+        Ok(code)
+    }
+
+    /// Pictures whose code is nearest the tags' code.
+    pub fn find(&self, tags: &[String], ranking: Ranking) -> Result<Vec<Found>> {
+        let query = self.code_of_tags(tags)?;
+        let wanted: Vec<String> = tags.iter().filter_map(|t| normalize_tag(t)).collect();
+        self.nearest(&query, ranking, None, &wanted)
+    }
+
+    /// code(picture) − code(away tags) + code(toward tags), nearest pictures (never the
+    /// picture itself). "Carries" refers to the toward tags.
+    pub fn shift(
+        &self,
+        row: usize,
+        away: &[String],
+        toward: &[String],
+        ranking: Ranking,
+    ) -> Result<Vec<Found>> {
+        let start = self.code_of_row(row)?;
+        let away_code = if away.is_empty() {
+            vec![0.0; start.len()]
+        } else {
+            self.code_of_tags(away)?
+        };
+        let toward_code = if toward.is_empty() {
+            vec![0.0; start.len()]
+        } else {
+            self.code_of_tags(toward)?
+        };
+        let query: Vec<f32> = start
+            .iter()
+            .zip(&away_code)
+            .zip(&toward_code)
+            .map(|((s, a), t)| s - a + t)
+            .collect();
+        let wanted: Vec<String> = toward.iter().filter_map(|t| normalize_tag(t)).collect();
+        self.nearest(&query, ranking, Some(row), &wanted)
+    }
+
+    fn code_of_row(&self, row: usize) -> Result<Vec<f32>> {
+        let code = self
+            .model
+            .suggester
+            .model
+            .shared_code(self.scaled.select(Axis(0), &[row]).view())
+            .map_err(|source| tagweave_eval::EvalError::Model {
+                method: "joint".into(),
+                source,
+            })?;
+        Ok(code.row(0).to_vec())
+    }
+
+    fn nearest(
+        &self,
+        query: &[f32],
+        ranking: Ranking,
+        skip: Option<usize>,
+        wanted: &[String],
+    ) -> Result<Vec<Found>> {
+        let mode = if ranking.exact {
+            SearchMode::Exact
+        } else {
+            SearchMode::default()
+        };
+        // Code-index rows → item rows (the index is in id order, items in path order).
+        let item_of_code: Vec<Option<usize>> = (0..self.codes.len())
+            .map(|r| self.row_of_id.get(self.codes.id(r)).copied())
+            .collect();
+        let hits = self.codes.search_where(query, ranking.limit, mode, |r| {
+            item_of_code[r].is_some_and(|i| {
+                Some(i) != skip && (!ranking.untagged_only || self.items[i].tags.is_empty())
+            })
+        })?;
+        Ok(hits
+            .into_iter()
+            .filter_map(|hit| {
+                let item = &self.items[item_of_code[hit.row]?];
+                Some(Found {
+                    picture: item.rel_path.clone(),
+                    similarity: hit.similarity,
+                    carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
+                    tagged: !item.tags.is_empty(),
+                })
+            })
+            .collect())
+    }
+}

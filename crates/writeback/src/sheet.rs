@@ -1,0 +1,629 @@
+//! The review sheet: a CSV file a person opens in any spreadsheet, fills in, and hands back.
+//!
+//! Columns, in this order when written: `picture`, `tag`, `probability`, `kind`, `accept`.
+//! Reading accepts them in any order, ignores extra columns, and also accepts `;` or tab as the
+//! separator (what spreadsheets in many locales save), with `,` as a decimal mark.
+
+use std::borrow::Cow;
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use tagweave_collection::normalize_tag;
+
+use crate::atomic::{write_atomically, Mode};
+use crate::error::WritebackError;
+
+/// Header names, in the order they are written.
+pub const COLUMNS: [&str; 5] = ["picture", "tag", "probability", "kind", "accept"];
+
+/// A leading apostrophe is put before a cell that starts with one of these, so a spreadsheet
+/// shows it as text instead of running it as a formula (`=`, `+`, `-`, `@`, tab, carriage
+/// return: the characters spreadsheets treat as the start of a formula). A cell that already
+/// starts with an apostrophe gets one more, so reading can always take exactly one off.
+const FORMULA_STARTS: [char; 7] = ['=', '+', '-', '@', '\t', '\r', '\''];
+
+/// What the model says about a tag on a picture.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum RowKind {
+    /// The model proposes adding a tag the picture does not carry.
+    Suggested,
+    /// The picture carries the tag but the model doubts it.
+    Disputed,
+}
+
+impl RowKind {
+    /// The word used in the `kind` column.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RowKind::Suggested => "suggested",
+            RowKind::Disputed => "disputed",
+        }
+    }
+}
+
+/// What the person wrote in the `accept` column.
+///
+/// | cell | suggested row | disputed row |
+/// |---|---|---|
+/// | empty | nothing | nothing |
+/// | `y`, `yes` | the tag is added | the tag is kept: nothing changes |
+/// | `n`, `no` | nothing | nothing: the tag stays (removing needs `remove`) |
+/// | `remove` | not allowed | the tag is removed |
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default)]
+pub enum Decision {
+    #[default]
+    Undecided,
+    Accept,
+    Reject,
+    /// Only on disputed rows: a tag is taken away only when a person says so in words.
+    Remove,
+}
+
+impl Decision {
+    /// The word written in the `accept` column.
+    pub fn as_cell(self) -> &'static str {
+        match self {
+            Decision::Undecided => "",
+            Decision::Accept => "y",
+            Decision::Reject => "n",
+            Decision::Remove => "remove",
+        }
+    }
+}
+
+/// One line of the sheet.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SheetRow {
+    /// Relative to the collection root, `/`-separated (as the crawler names it).
+    pub picture: String,
+    pub tag: String,
+    /// From 0 to 1; written with 3 decimals.
+    pub probability: Option<f32>,
+    pub kind: RowKind,
+    pub decision: Decision,
+}
+
+/// The tags to add to and remove from one picture.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TagChange {
+    pub picture: String,
+    /// Spellings as in the sheet; one per normalised tag, sorted by normalised tag.
+    pub add: Vec<String>,
+    /// Spellings as in the sheet; one per normalised tag, sorted by normalised tag.
+    pub remove: Vec<String>,
+}
+
+/// Writes the sheet atomically (UTF-8 with a byte-order mark so spreadsheets detect the
+/// encoding, CRLF line ends as RFC 4180 asks, formula-looking cells guarded by an apostrophe).
+pub fn write_sheet(path: &Path, rows: &[SheetRow]) -> Result<(), WritebackError> {
+    let bytes = render_sheet(rows)?;
+    let permissions = std::fs::metadata(path).ok().map(|m| m.permissions());
+    write_atomically(path, &bytes, Mode::Replace, permissions, &|| Ok(()))
+}
+
+/// The bytes [`write_sheet`] writes.
+pub fn render_sheet(rows: &[SheetRow]) -> Result<Vec<u8>, WritebackError> {
+    let mut out = "\u{feff}".as_bytes().to_vec();
+    {
+        let mut writer = csv::WriterBuilder::new()
+            .terminator(csv::Terminator::CRLF)
+            .from_writer(&mut out);
+        let csv_error = |e: csv::Error| WritebackError::SheetRow {
+            picture: String::new(),
+            problem: e.to_string(),
+        };
+        writer.write_record(COLUMNS).map_err(csv_error)?;
+        for row in rows {
+            let bad = |problem: String| WritebackError::SheetRow {
+                picture: row.picture.clone(),
+                problem,
+            };
+            let probability = match row.probability {
+                None => String::new(),
+                Some(p) if p.is_finite() && (0.0..=1.0).contains(&p) => format!("{p:.3}"),
+                Some(p) => return Err(bad(format!("probability {p} is not between 0 and 1"))),
+            };
+            if row.kind == RowKind::Suggested && row.decision == Decision::Remove {
+                return Err(bad(format!(
+                    "tag `{}`: `remove` applies to disputed rows only",
+                    row.tag
+                )));
+            }
+            writer
+                .write_record([
+                    guard(&row.picture).as_ref(),
+                    guard(&row.tag).as_ref(),
+                    &probability,
+                    row.kind.as_str(),
+                    row.decision.as_cell(),
+                ])
+                .map_err(csv_error)?;
+        }
+        writer.flush().map_err(|e| csv_error(csv::Error::from(e)))?;
+    }
+    Ok(out)
+}
+
+/// Reads a filled-in sheet. Every problem names the sheet and the line.
+pub fn read_sheet(path: &Path) -> Result<Vec<SheetRow>, WritebackError> {
+    let bytes = std::fs::read(path).map_err(|e| WritebackError::Sheet {
+        path: path.to_path_buf(),
+        problem: format!("cannot be read ({e}); check the path"),
+    })?;
+    parse_sheet(path, &bytes)
+}
+
+/// Parses sheet bytes; `path` is only used in messages.
+pub fn parse_sheet(path: &Path, bytes: &[u8]) -> Result<Vec<SheetRow>, WritebackError> {
+    let bytes = bytes.strip_prefix("\u{feff}".as_bytes()).unwrap_or(bytes);
+    let sheet_error = |problem: String| WritebackError::Sheet {
+        path: path.to_path_buf(),
+        problem,
+    };
+    let line_error = |line: u64, problem: String| WritebackError::SheetLine {
+        path: path.to_path_buf(),
+        line,
+        problem,
+    };
+    let csv_error = |e: csv::Error| {
+        let line = e.position().map_or(1, csv::Position::line);
+        let problem = match e.kind() {
+            csv::ErrorKind::Utf8 { .. } => {
+                "is not UTF-8 text; save the sheet as \"CSV UTF-8\"".to_string()
+            }
+            _ => format!("is not valid CSV ({e})"),
+        };
+        line_error(line, problem)
+    };
+
+    let (delimiter, columns) = find_header(bytes).map_err(sheet_error)?;
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(true)
+        .delimiter(delimiter)
+        .from_reader(bytes);
+    let mut rows = Vec::new();
+    for record in reader.byte_records() {
+        let record = record.map_err(csv_error)?;
+        let line = record.position().map_or(0, csv::Position::line);
+        let bad = |problem: String| line_error(line, problem);
+        // Decoded here rather than by the csv reader, whose UTF-8 errors lack the line.
+        let record = csv::StringRecord::from_byte_record(record)
+            .map_err(|_| bad("is not UTF-8 text; save the sheet as \"CSV UTF-8\"".into()))?;
+        if record.iter().all(|cell| cell.trim().is_empty()) {
+            continue;
+        }
+        let cell = |column: usize| record.get(columns[column]).unwrap_or("");
+
+        let picture = unguard(cell(0)).to_string();
+        if picture.trim().is_empty() {
+            return Err(bad(
+                "the `picture` cell is empty; copy it back from the sheet as written".into(),
+            ));
+        }
+        let tag = unguard(cell(1).trim()).trim().to_string();
+        if normalize_tag(&tag).is_none() {
+            return Err(bad(
+                "the `tag` cell is empty; fill it in or delete the row".into()
+            ));
+        }
+        let probability = parse_probability(cell(2)).map_err(&bad)?;
+        let kind = match cell(3).trim().to_lowercase().as_str() {
+            "suggested" => RowKind::Suggested,
+            "disputed" => RowKind::Disputed,
+            other => {
+                return Err(bad(format!(
+                    "`kind` is `{other}`; allowed values: suggested, disputed"
+                )))
+            }
+        };
+        let decision = parse_decision(cell(4), kind).map_err(&bad)?;
+        rows.push(SheetRow {
+            picture,
+            tag,
+            probability,
+            kind,
+            decision,
+        });
+    }
+    Ok(rows)
+}
+
+/// Groups the decided rows per picture: accepted suggestions are added, disputed tags marked
+/// `remove` are removed, everything else changes nothing. Sorted by picture, each list sorted
+/// and de-duplicated under [`normalize_tag`]. A tag both kept/added and removed for one picture
+/// is an error, never guessed at.
+pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, WritebackError> {
+    #[derive(Default)]
+    struct Wish {
+        spelling: String,
+        add: bool,
+        keep: bool,
+        remove: bool,
+    }
+    let mut pictures: BTreeMap<&str, BTreeMap<String, Wish>> = BTreeMap::new();
+    for row in rows {
+        let Some(normal) = normalize_tag(&row.tag) else {
+            return Err(WritebackError::SheetRow {
+                picture: row.picture.clone(),
+                problem: "a row has an empty tag".into(),
+            });
+        };
+        let wish = pictures
+            .entry(&row.picture)
+            .or_default()
+            .entry(normal)
+            .or_insert_with(|| Wish {
+                spelling: row.tag.trim().to_string(),
+                ..Wish::default()
+            });
+        match (row.kind, row.decision) {
+            (RowKind::Suggested, Decision::Accept) => wish.add = true,
+            (RowKind::Disputed, Decision::Accept) => wish.keep = true,
+            (RowKind::Disputed, Decision::Remove) => wish.remove = true,
+            (RowKind::Suggested, Decision::Remove) => {
+                return Err(WritebackError::SheetRow {
+                    picture: row.picture.clone(),
+                    problem: format!("tag `{}`: `remove` applies to disputed rows only", row.tag),
+                })
+            }
+            _ => {}
+        }
+    }
+    let mut changes = Vec::new();
+    for (picture, wishes) in pictures {
+        let mut change = TagChange {
+            picture: picture.to_string(),
+            add: Vec::new(),
+            remove: Vec::new(),
+        };
+        for (normal, wish) in wishes {
+            if wish.remove && (wish.add || wish.keep) {
+                return Err(WritebackError::Conflict {
+                    picture: picture.to_string(),
+                    tag: normal,
+                });
+            }
+            if wish.add {
+                change.add.push(wish.spelling);
+            } else if wish.remove {
+                change.remove.push(wish.spelling);
+            }
+        }
+        if !change.add.is_empty() || !change.remove.is_empty() {
+            changes.push(change);
+        }
+    }
+    Ok(changes)
+}
+
+fn guard(cell: &str) -> Cow<'_, str> {
+    if cell.starts_with(FORMULA_STARTS) {
+        Cow::Owned(format!("'{cell}"))
+    } else {
+        Cow::Borrowed(cell)
+    }
+}
+
+/// Undoes [`guard`]. An apostrophe before anything else is left alone, so a spreadsheet that
+/// drops the guard on saving (it treats the apostrophe as "text follows") reads back the same.
+fn unguard(cell: &str) -> &str {
+    match cell.strip_prefix('\'') {
+        Some(rest) if rest.starts_with(FORMULA_STARTS) => rest,
+        _ => cell,
+    }
+}
+
+/// The delimiter whose first record names all five columns, and each column's position.
+fn find_header(bytes: &[u8]) -> Result<(u8, [usize; 5]), String> {
+    let mut first_try = None;
+    for delimiter in [b',', b';', b'\t'] {
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(false)
+            .flexible(true)
+            .delimiter(delimiter)
+            .from_reader(bytes);
+        let header = match reader.records().next() {
+            None => return Err("is empty; it needs a header line and one row per tag".into()),
+            Some(Err(e)) => {
+                return Err(format!(
+                    "the header line cannot be read ({e}); save the sheet as \"CSV UTF-8\""
+                ))
+            }
+            Some(Ok(header)) => header,
+        };
+        let names: Vec<String> = header.iter().map(|h| h.trim().to_lowercase()).collect();
+        let mut columns = [0; 5];
+        let mut missing = Vec::new();
+        for (slot, wanted) in columns.iter_mut().zip(COLUMNS) {
+            match names.iter().position(|n| n == wanted) {
+                Some(i) => *slot = i,
+                None => missing.push(wanted),
+            }
+        }
+        if missing.is_empty() {
+            return Ok((delimiter, columns));
+        }
+        first_try.get_or_insert((names, missing));
+    }
+    let (names, missing) = first_try.unwrap_or_default();
+    Err(format!(
+        "the header line must name the columns {}; missing: {} (found: {}); \
+         copy the header line back from the sheet as written",
+        COLUMNS.join(", "),
+        missing.join(", "),
+        names.join(", ")
+    ))
+}
+
+fn parse_probability(cell: &str) -> Result<Option<f32>, String> {
+    let text = cell.trim();
+    if text.is_empty() {
+        return Ok(None);
+    }
+    let (number, scale) = match text.strip_suffix('%') {
+        Some(n) => (n.trim(), 100.0),
+        None => (text, 1.0),
+    };
+    number
+        .replace(',', ".")
+        .parse::<f32>()
+        .ok()
+        .map(|p| p / scale)
+        .filter(|p| (0.0..=1.0).contains(p))
+        .map(Some)
+        .ok_or_else(|| {
+            format!("`probability` is `{text}`; it must be a number from 0 to 1, or empty")
+        })
+}
+
+fn parse_decision(cell: &str, kind: RowKind) -> Result<Decision, String> {
+    let decision = match cell.trim().to_lowercase().as_str() {
+        "" => Decision::Undecided,
+        "y" | "yes" => Decision::Accept,
+        "n" | "no" => Decision::Reject,
+        "remove" if kind == RowKind::Disputed => Decision::Remove,
+        "remove" => {
+            return Err(
+                "`accept` is `remove` on a suggested row; `remove` applies to disputed rows \
+                 only (a suggested tag is not on the picture); use y, n or leave it empty"
+                    .into(),
+            )
+        }
+        _ => {
+            return Err(format!(
+                "`accept` is `{}`; allowed values: y, yes, n, no, remove (disputed rows only), \
+                 or empty",
+                cell.trim()
+            ))
+        }
+    };
+    Ok(decision)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    fn row(picture: &str, tag: &str, kind: RowKind, decision: Decision) -> SheetRow {
+        SheetRow {
+            picture: picture.into(),
+            tag: tag.into(),
+            probability: None,
+            kind,
+            decision,
+        }
+    }
+
+    fn parse(text: &str) -> Result<Vec<SheetRow>, WritebackError> {
+        parse_sheet(Path::new("review.csv"), text.as_bytes())
+    }
+
+    #[test]
+    fn writes_rfc4180_with_guarded_formulas() {
+        let rows = [
+            SheetRow {
+                probability: Some(0.25),
+                ..row(
+                    "1950s/a b.png",
+                    "say \"hi\", ok",
+                    RowKind::Suggested,
+                    Decision::Undecided,
+                )
+            },
+            row("x,y.png", "=SUM(A1)", RowKind::Disputed, Decision::Remove),
+            row("c.png", "two\nlines", RowKind::Suggested, Decision::Accept),
+        ];
+        let text = String::from_utf8(render_sheet(&rows).unwrap()).unwrap();
+        // source: RFC 4180 section 2 — CRLF line breaks (rule 1), a header line (rule 3),
+        // fields holding commas, quotes or line breaks enclosed in double quotes (rule 6), a
+        // quote inside doubled (rule 7). By hand: the formula guard is a leading apostrophe.
+        assert_eq!(
+            text,
+            "\u{feff}picture,tag,probability,kind,accept\r\n\
+             1950s/a b.png,\"say \"\"hi\"\", ok\",0.250,suggested,\r\n\
+             \"x,y.png\",'=SUM(A1),,disputed,remove\r\n\
+             c.png,\"two\nlines\",,suggested,y\r\n"
+        );
+        assert_eq!(parse(&text).unwrap(), rows);
+    }
+
+    #[test]
+    fn refuses_rows_it_could_not_read_back() {
+        let bad_probability = SheetRow {
+            probability: Some(1.5),
+            ..row("a.png", "kelp", RowKind::Suggested, Decision::Undecided)
+        };
+        assert!(render_sheet(&[bad_probability]).is_err());
+        let remove_suggested = row("a.png", "kelp", RowKind::Suggested, Decision::Remove);
+        assert!(render_sheet(&[remove_suggested]).is_err());
+    }
+
+    #[test]
+    fn reads_leniently() {
+        // Any column order, extra columns, header case and spaces, `;` separator with decimal
+        // commas (as spreadsheets in many locales save), blank lines, accept in any case.
+        let text = "\u{feff}Kind; Accept ;note;TAG;Picture;probability\r\n\
+                    suggested; YES ;x;Kelp;a.png;0,875\r\n\
+                    ;;;;;\r\n\
+                    disputed;Remove;;gull;b.png;12.5%\r\n\
+                    disputed;;;dawn;b.png;\r\n";
+        let rows = parse(text).unwrap();
+        assert_eq!(
+            rows,
+            [
+                SheetRow {
+                    probability: Some(0.875),
+                    ..row("a.png", "Kelp", RowKind::Suggested, Decision::Accept)
+                },
+                SheetRow {
+                    probability: Some(0.125),
+                    ..row("b.png", "gull", RowKind::Disputed, Decision::Remove)
+                },
+                row("b.png", "dawn", RowKind::Disputed, Decision::Undecided),
+            ]
+        );
+    }
+
+    #[test]
+    fn bad_accept_value_names_sheet_line_and_allowed_values() {
+        // Line 3 holds a quoted line break, so the bad row starts on line 4.
+        let text = "picture,tag,probability,kind,accept\n\
+                    a.png,\"two\nlines\",0.5,suggested,y\n\
+                    b.png,kelp,,disputed,maybe\n";
+        let message = parse(text).unwrap_err().to_string();
+        assert!(message.contains("review.csv"), "{message}");
+        assert!(message.contains("line 4"), "{message}");
+        assert!(message.contains("`maybe`"), "{message}");
+        assert!(message.contains("y, yes, n, no, remove"), "{message}");
+
+        let remove_on_suggested =
+            "picture,tag,probability,kind,accept\na.png,kelp,,suggested,remove\n";
+        let message = parse(remove_on_suggested).unwrap_err().to_string();
+        assert!(
+            message.contains("line 2") && message.contains("disputed rows only"),
+            "{message}"
+        );
+
+        let bad_kind = "picture,tag,probability,kind,accept\na.png,kelp,,maybe,\n";
+        let message = parse(bad_kind).unwrap_err().to_string();
+        assert!(
+            message.contains("line 2") && message.contains("suggested, disputed"),
+            "{message}"
+        );
+
+        let bad_probability = "picture,tag,probability,kind,accept\na.png,kelp,high,suggested,\n";
+        assert!(parse(bad_probability)
+            .unwrap_err()
+            .to_string()
+            .contains("`high`"));
+    }
+
+    #[test]
+    fn header_must_name_the_five_columns() {
+        let message = parse("picture,tag,kind\na.png,kelp,suggested\n")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            message.contains("missing: probability, accept"),
+            "{message}"
+        );
+        assert!(parse("").unwrap_err().to_string().contains("empty"));
+        let not_utf8 = b"picture,tag,probability,kind,accept\na.png,caf\xe9,,suggested,\n";
+        let message = parse_sheet(Path::new("s.csv"), not_utf8)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            message.contains("line 2") && message.contains("UTF-8"),
+            "{message}"
+        );
+    }
+
+    #[test]
+    fn changes_group_sort_and_dedupe() {
+        use Decision::*;
+        use RowKind::*;
+        let rows = [
+            row("b.png", "Zebra", Suggested, Accept),
+            row("b.png", "kelp", Suggested, Accept),
+            row("b.png", "KELP ", Suggested, Accept),
+            row("b.png", "gull", Disputed, Remove),
+            row("a.png", "dawn", Disputed, Accept),
+            row("a.png", "dusk", Disputed, Reject),
+            row("a.png", "fog", Suggested, Reject),
+            row("a.png", "mist", Suggested, Undecided),
+            row("c.png", "old  town", Disputed, Remove),
+        ];
+        // by hand: y/n on disputed rows change nothing, so a.png has no change at all.
+        assert_eq!(
+            changes_from_sheet(&rows).unwrap(),
+            [
+                TagChange {
+                    picture: "b.png".into(),
+                    add: vec!["kelp".into(), "Zebra".into()],
+                    remove: vec!["gull".into()],
+                },
+                TagChange {
+                    picture: "c.png".into(),
+                    add: vec![],
+                    remove: vec!["old  town".into()],
+                },
+            ]
+        );
+        let conflict = [
+            row("a.png", "Kelp", Suggested, Accept),
+            row("a.png", "kelp", Disputed, Remove),
+        ];
+        let message = changes_from_sheet(&conflict).unwrap_err().to_string();
+        assert!(
+            message.contains("a.png") && message.contains("kelp"),
+            "{message}"
+        );
+    }
+
+    fn cell_text() -> impl Strategy<Value = String> {
+        // Spreadsheet-hostile characters on purpose: separators, quotes, line breaks,
+        // formula starts, apostrophes, non-ASCII.
+        "[a-zA-Z0-9 ,;\"'\n\r\t=+@#éß漢🙂-]{1,12}"
+    }
+
+    proptest! {
+        #[test]
+        fn sheet_round_trips(
+            cells in proptest::collection::vec(
+                (cell_text(), cell_text(), proptest::option::of(0.0f32..=1.0), any::<bool>(), 0..4u8),
+                0..12,
+            )
+        ) {
+            let rows: Vec<SheetRow> = cells
+                .into_iter()
+                .filter(|(picture, tag, ..)| !picture.trim().is_empty() && normalize_tag(tag).is_some())
+                .map(|(picture, tag, probability, disputed, decision)| {
+                    let kind = if disputed { RowKind::Disputed } else { RowKind::Suggested };
+                    let decision = match (decision, kind) {
+                        (0, _) => Decision::Undecided,
+                        (1, _) => Decision::Accept,
+                        (3, RowKind::Disputed) => Decision::Remove,
+                        _ => Decision::Reject,
+                    };
+                    SheetRow { picture, tag: tag.trim().to_string(), probability, kind, decision }
+                })
+                .collect();
+            let bytes = render_sheet(&rows).unwrap();
+            let back = parse_sheet(Path::new("p.csv"), &bytes).unwrap();
+            prop_assert_eq!(back.len(), rows.len());
+            for (read, wrote) in back.iter().zip(&rows) {
+                prop_assert_eq!(&read.picture, &wrote.picture);
+                prop_assert_eq!(&read.tag, &wrote.tag);
+                prop_assert_eq!(read.kind, wrote.kind);
+                prop_assert_eq!(read.decision, wrote.decision);
+                match (read.probability, wrote.probability) {
+                    (None, None) => {}
+                    (Some(r), Some(w)) => prop_assert!((r - w).abs() <= 0.0005 + 1e-6, "{} vs {}", r, w),
+                    other => prop_assert!(false, "{:?}", other),
+                }
+            }
+        }
+    }
+}
