@@ -276,7 +276,7 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
             rows.push(SheetRow {
                 picture: d.picture.clone(),
                 tag: t.tag.clone(),
-                probability: Some(t.probability),
+                probability: Some(t.neighbours_carrying),
                 kind: RowKind::Disputed,
                 decision: Decision::Undecided,
             });
@@ -294,7 +294,7 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
     write_sheet(&args.sheet, &rows)
         .with_context(|| format!("cannot write the review sheet {}", args.sheet.display()))?;
     if args.json {
-        let shown: Vec<&&Dispute> = flagged.iter().take(args.limit).collect();
+        let shown: Vec<&Dispute> = disputes.iter().take(args.limit).collect();
         println!(
             "{}",
             serde_json::json!({
@@ -315,7 +315,13 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
         let disputed: Vec<String> = d
             .disputed
             .iter()
-            .map(|t| format!("{} ({:.0} %)", t.tag, t.probability * 100.0))
+            .map(|t| {
+                format!(
+                    "{} (on {:.0} % of similar pictures)",
+                    t.tag,
+                    t.neighbours_carrying * 100.0
+                )
+            })
             .collect();
         let proposed: Vec<String> = d
             .proposed

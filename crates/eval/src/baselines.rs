@@ -247,17 +247,40 @@ impl KnnScorer {
         features: ArrayView2<f32>,
         exclude: &[Option<usize>],
     ) -> Result<Array2<f32>, EvalError> {
+        self.neighbour_votes(features, exclude, false)
+    }
+
+    /// Like [`Self::score_excluding`], each row divided by its neighbours' total
+    /// (positive) similarity: the similarity-weighted share of the `k` nearest
+    /// pictures that carry each tag, in [0, 1] — "7 of the 10 most similar
+    /// pictures carry it" as a number people can read.
+    pub fn shares_excluding(
+        &self,
+        features: ArrayView2<f32>,
+        exclude: &[Option<usize>],
+    ) -> Result<Array2<f32>, EvalError> {
+        self.neighbour_votes(features, exclude, true)
+    }
+
+    fn neighbour_votes(
+        &self,
+        features: ArrayView2<f32>,
+        exclude: &[Option<usize>],
+        as_shares: bool,
+    ) -> Result<Array2<f32>, EvalError> {
         let k = self.k.ok_or_else(|| EvalError::NotFitted("knn".into()))?;
         let sims = unit_rows(features).dot(&self.train_unit.t());
         let rows: Vec<Vec<f32>> = (0..sims.nrows())
             .into_par_iter()
             .map(|i| {
                 let skip = exclude.get(i).copied().flatten();
-                transfer(
-                    &nearest(&sims.row(i).to_vec(), k, skip),
-                    &self.train_tags,
-                    &self.frequency,
-                )
+                let near = nearest(&sims.row(i).to_vec(), k, skip);
+                let mut votes = transfer(&near, &self.train_tags, &self.frequency);
+                let total: f32 = near.iter().map(|(_, s)| s.max(0.0)).sum();
+                if as_shares && total > 0.0 {
+                    votes.iter_mut().for_each(|v| *v = (*v / total).min(1.0));
+                }
+                votes
             })
             .collect();
         Ok(rows_to_array(rows, self.frequency.len()))

@@ -6,9 +6,12 @@ use tagweave_eval::metrics::column_midranks;
 
 use crate::{Queries, Result, TagScore};
 
-/// Carried tags whose picture ranks in this lowest share of the collection for the
-/// tag are listed as disputed.
-const DISPUTED_BELOW: f64 = 0.2;
+/// Carried tags that fewer than this (similarity-weighted) share of the picture's
+/// most similar pictures carry are listed as disputed.
+const DISPUTED_BELOW: f32 = 0.05;
+/// Weight of the mean doubt over all carried tags in the score: breaks ties between
+/// pictures whose worst tag has the same neighbour support (often none at all).
+const TIE_WEIGHT: f64 = 1e-3;
 /// Proposed tags: not carried, at least this probable.
 const PROPOSED_FROM: f32 = 0.5;
 /// Most proposals listed per picture.
@@ -18,7 +21,8 @@ const PROPOSED_MAX: usize = 3;
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct DisputedTag {
     pub tag: String,
-    pub probability: f32,
+    /// Similarity-weighted share of the picture's most similar pictures carrying it.
+    pub neighbours_carrying: f32,
     /// Where the picture stands among all tagged pictures for this tag, in (0, 1):
     /// near 0 = hardly any picture fits the tag worse.
     pub standing: f64,
@@ -28,7 +32,8 @@ pub struct DisputedTag {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Dispute {
     pub picture: String,
-    /// 1 − the standing of its most disputed tag: higher = review first.
+    /// 1 − the neighbour support of its least-supported tag (ties broken by the mean
+    /// over its tags): higher = review first.
     pub score: f64,
     pub disputed: Vec<DisputedTag>,
     /// Tags the picture does not carry but probably should.
@@ -49,12 +54,21 @@ impl Queries {
             return Ok(Vec::new());
         }
         let probabilities = self.suggest_rows(&rows)?;
-        Ok(self.disputes(&rows, &probabilities))
+        let shares = self.neighbour_shares(&rows)?;
+        Ok(self.disputes(&rows, &probabilities, &shares))
     }
 
-    fn disputes(&self, rows: &[usize], probabilities: &Array2<f32>) -> Vec<Dispute> {
+    /// `probabilities` propose missing tags; `shares` (leave-one-out: the model's
+    /// read-out has seen every tagged picture's tags, its neighbours have not) judge
+    /// the carried ones.
+    fn disputes(
+        &self,
+        rows: &[usize],
+        probabilities: &Array2<f32>,
+        shares: &Array2<f32>,
+    ) -> Vec<Dispute> {
         let n = rows.len() as f64;
-        let standing = (column_midranks(probabilities.view()) - 0.5) / n;
+        let standing = (column_midranks(shares.view()) - 0.5) / n;
         let mut out: Vec<Dispute> = rows
             .iter()
             .enumerate()
@@ -67,13 +81,20 @@ impl Queries {
                         let c = *self.tag_column.get(t)?;
                         Some(DisputedTag {
                             tag: t.clone(),
-                            probability: probabilities[[r, c]],
+                            neighbours_carrying: shares[[r, c]],
                             standing: standing[[r, c]],
                         })
                     })
                     .collect();
                 judged.sort_by(|a, b| a.standing.total_cmp(&b.standing));
-                let score = judged.first().map_or(0.0, |d| 1.0 - d.standing);
+                // Least-supported tag first; among equally unsupported ones, the picture
+                // whose tags are less supported on the whole.
+                let doubt: Vec<f64> = judged
+                    .iter()
+                    .map(|d| 1.0 - f64::from(d.neighbours_carrying))
+                    .collect();
+                let mean_doubt = doubt.iter().sum::<f64>() / doubt.len().max(1) as f64;
+                let score = doubt.iter().copied().fold(0.0, f64::max) + TIE_WEIGHT * mean_doubt;
                 let proposed = self
                     .tag_scores(&probabilities.row(r).to_vec(), &item.tags)
                     .into_iter()
@@ -85,7 +106,7 @@ impl Queries {
                     score,
                     disputed: judged
                         .into_iter()
-                        .filter(|d| d.standing < DISPUTED_BELOW)
+                        .filter(|d| d.neighbours_carrying < DISPUTED_BELOW)
                         .collect(),
                     proposed,
                 }

@@ -178,6 +178,14 @@ impl Queries {
             .suggest(x.view(), &self.neighbours, &exclude)?)
     }
 
+    /// For indexed pictures (rows): the share of their most similar tagged pictures
+    /// (never themselves) that carry each tag.
+    pub fn neighbour_shares(&self, rows: &[usize]) -> Result<Array2<f32>> {
+        let x = self.scaled.select(Axis(0), rows);
+        let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
+        Ok(self.neighbours.shares_excluding(x.view(), &exclude)?)
+    }
+
     /// Tag probabilities for a picture file outside the index, described on the fly
     /// with the collection's own feature extractor.
     pub fn suggest_file(&self, path: &Path) -> Result<Vec<f32>> {
