@@ -155,12 +155,48 @@ pub fn sidecar_snapshot(
     found
 }
 
-/// Serialises the tests of one binary that open a store in this process while others run
-/// the binary: a child spawned by another test thread at that moment briefly inherits the
-/// store's lock descriptor, and a tagweave started then would find the store "in use".
+/// Serialises the tests of one binary that run the binary and read stores in-process:
+/// a child spawned by one test thread inherits, until it execs, whatever another thread has
+/// open, a store's lock included. Stores are read through [`open_store_copy`] as well.
 pub fn one_at_a_time() -> std::sync::MutexGuard<'static, ()> {
     static SERIAL: std::sync::Mutex<()> = std::sync::Mutex::new(());
     SERIAL
         .lock()
         .unwrap_or_else(|poisoned| poisoned.into_inner())
+}
+
+/// Opens a copy of `folder`'s store, so this process never holds the lock or the database
+/// files of a store the binary is about to use (the copy goes when the guard drops).
+pub fn open_store_copy(folder: &Path) -> (tempfile::TempDir, tagweave_store::Store) {
+    let (scratch, store) = try_open_store_copy(folder);
+    (scratch, store.unwrap_or_else(|e| panic!("{e}")))
+}
+
+/// [`open_store_copy`], with the error (no store yet, say) for the caller to judge.
+pub fn try_open_store_copy(
+    folder: &Path,
+) -> (
+    tempfile::TempDir,
+    Result<tagweave_store::Store, tagweave_store::StoreError>,
+) {
+    fn copy_dir(from: &Path, to: &Path) {
+        std::fs::create_dir_all(to).unwrap();
+        for entry in std::fs::read_dir(from).unwrap() {
+            let entry = entry.unwrap();
+            let target = to.join(entry.file_name());
+            if entry.file_type().unwrap().is_dir() {
+                copy_dir(&entry.path(), &target);
+            } else {
+                std::fs::copy(entry.path(), &target).unwrap();
+            }
+        }
+    }
+    let scratch = tempfile::tempdir().unwrap();
+    let copy = scratch.path().join(".tagweave");
+    let original = folder.join(".tagweave");
+    if original.is_dir() {
+        copy_dir(&original, &copy);
+    }
+    let store = tagweave_store::Store::open(&copy);
+    (scratch, store)
 }

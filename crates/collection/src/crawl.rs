@@ -267,13 +267,14 @@ fn examine(root: &Path, entry: &DirEntry) -> Result<(Found, Class), Skipped> {
         .map_err(|e| skipped(SkipReason::Unreadable(e.to_string())))?;
     let stamp = FileStamp::from_metadata(&metadata);
     let class = match (sniff(path), sidecar_name(name)) {
-        (Ok(Some(format)), _) => Class::Picture(format),
-        // A sidecar we cannot open still belongs to its picture: reading the item then
-        // fails loudly instead of the picture silently losing its tags.
+        // A sidecar's name wins over its first bytes: a tag list starting "BMX" or "GIF89a"
+        // is still a tag list. A sidecar we cannot open still belongs to its picture:
+        // reading the item then fails loudly instead of the picture silently losing its tags.
         (_, Some((kind, base))) => Class::Sidecar {
             kind,
             base: base.to_string(),
         },
+        (Ok(Some(format)), None) => Class::Picture(format),
         (Err(e), None) => return Err(skipped(SkipReason::Unreadable(e.to_string()))),
         (Ok(None), None) if !has_picture_extension(name) => Class::Other,
         (Ok(None), None) if metadata.len() == 0 => return Err(skipped(SkipReason::EmptyFile)),
@@ -514,6 +515,8 @@ mod tests {
         put(root, "e.jpg.xmp", b"<x/>");
         put(root, "F.JPG", JPEG);
         put(root, "F.TXT", b"upper");
+        put(root, "g.jpg", JPEG);
+        put(root, "g.txt", b"BMX\nGIF89a\n"); // tags that begin like picture signatures
         let wrong = put(root, "wrong.jpg", PNG);
         let bare = put(root, "noext", JPEG);
         put(root, "empty.jpg", b"");
@@ -537,6 +540,7 @@ mod tests {
                 "b.png",
                 "e.jpg",
                 "empty-sidecar.jpg",
+                "g.jpg",
                 "noext",
                 "sub/c.gif",
                 "sub/deeper/d.webp",
@@ -546,6 +550,11 @@ mod tests {
         assert_eq!(
             sidecar_names(candidate(&crawl, "a.jpg")),
             [("a.txt", SidecarKind::Text)]
+        );
+        assert_eq!(
+            sidecar_names(candidate(&crawl, "g.jpg")),
+            [("g.txt", SidecarKind::Text)],
+            "a sidecar is known by its name, whatever its first bytes look like"
         );
         assert_eq!(
             sidecar_names(candidate(&crawl, "b.png")),

@@ -199,11 +199,20 @@ pub fn scan(
     store.update_items(&[], &undecodable)?;
     skipped_files.extend(failures.into_iter().map(|(_, skip)| skip));
     // Pictures new since the last training get their codes from the stored model.
-    let coded = match TrainedModel::load(store)? {
-        Some(model) => code_missing(store, &model, &mut |done, total| {
+    let coded = match TrainedModel::load(store) {
+        Ok(Some(model)) => code_missing(store, &model, &mut |done, total| {
             progress(ScanProgress::Coding { done, total })
         })?,
-        None => 0,
+        Ok(None) => 0,
+        // A model from another tagweave version cannot code; the scan itself is fine.
+        Err(error @ IndexError::ModelFormat { .. }) => {
+            notes.push(Note {
+                path: store.dir().to_path_buf(),
+                message: error.to_string(),
+            });
+            0
+        }
+        Err(error) => return Err(error),
     };
 
     let items = store.items()?;

@@ -22,7 +22,7 @@ pub const MODEL_BLOB: &str = "tag_model";
 /// Vector kind of each picture's code (shared-layer probabilities).
 pub const CODES: &str = "code";
 /// Bumped when [`TrainedModel`] changes shape; an older model is retrained, not guessed at.
-pub const MODEL_FORMAT: u32 = 1;
+pub const MODEL_FORMAT: u32 = 2;
 
 /// Pictures coded per store write.
 const CODE_BATCH: usize = 256;
