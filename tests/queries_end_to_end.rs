@@ -23,7 +23,10 @@ fn succeeded(out: &std::process::Output) -> Value {
 }
 
 fn truth_by_file() -> BTreeMap<String, TruthRow> {
-    demo_truth().into_iter().map(|r| (r.file.clone(), r)).collect()
+    demo_truth()
+        .into_iter()
+        .map(|r| (r.file.clone(), r))
+        .collect()
 }
 
 fn carries_all(row: &TruthRow, tags: &[&str]) -> bool {
@@ -49,7 +52,11 @@ fn the_whole_job_on_the_demo_archive() {
 
     let out = tagweave(&folder, &["find", "night"]);
     assert_eq!(out.status.code(), Some(1));
-    assert!(stderr_of(&out).contains("tagweave scan"), "{}", stderr_of(&out));
+    assert!(
+        stderr_of(&out).contains("tagweave scan"),
+        "{}",
+        stderr_of(&out)
+    );
     succeeded(&tagweave(&folder, &["scan", ".", "--json"]));
     let out = tagweave(&folder, &["find", "night"]);
     assert!(
@@ -60,7 +67,10 @@ fn the_whole_job_on_the_demo_archive() {
 
     // ---- train
     let report = succeeded(&tagweave(&folder, &["train", "--json"]));
-    let tagged = truth.values().filter(|r| !r.written_tags.is_empty()).count();
+    let tagged = truth
+        .values()
+        .filter(|r| !r.written_tags.is_empty())
+        .count();
     assert_eq!(report["pictures"], tagged, "{report}");
     assert_eq!(report["untagged"], truth.len() - tagged, "{report}");
     assert_eq!(report["coded"], truth.len(), "every picture gets a code");
@@ -95,14 +105,19 @@ fn the_whole_job_on_the_demo_archive() {
         total += precision(&found, &truth, &pair);
     }
     let mean_precision = total / pairs.len() as f64;
-    eprintln!("find: mean precision@10 over {} pairs {mean_precision:.3}", pairs.len());
+    eprintln!(
+        "find: mean precision@10 over {} pairs {mean_precision:.3}",
+        pairs.len()
+    );
     assert!(mean_precision >= 0.6, "find precision@10 {mean_precision}");
     let untagged = succeeded(&tagweave(
         &folder,
         &["find", "night", "--untagged-only", "--json", "--limit", "5"],
     ));
     for f in untagged.as_array().unwrap() {
-        assert!(truth[f["picture"].as_str().unwrap()].written_tags.is_empty());
+        assert!(truth[f["picture"].as_str().unwrap()]
+            .written_tags
+            .is_empty());
         assert_eq!(f["carries"], false);
     }
     let out = tagweave(&folder, &["find", "volcano"]);
@@ -147,7 +162,10 @@ fn the_whole_job_on_the_demo_archive() {
     args.extend(with_removed.iter().map(|r| r.file.as_str()));
     let answer = succeeded(&tagweave(&folder, &args));
     let (mut back, mut removed) = (0, 0);
-    for (row, a) in with_removed.iter().zip(answer["pictures"].as_array().unwrap()) {
+    for (row, a) in with_removed
+        .iter()
+        .zip(answer["pictures"].as_array().unwrap())
+    {
         let got: BTreeSet<&str> = a["suggestions"]
             .as_array()
             .unwrap()
@@ -178,7 +196,10 @@ fn the_whole_job_on_the_demo_archive() {
     ));
     assert_eq!(answer["pictures"][0]["indexed"], false);
     assert_eq!(
-        answer["pictures"][0]["suggestions"].as_array().unwrap().len(),
+        answer["pictures"][0]["suggestions"]
+            .as_array()
+            .unwrap()
+            .len(),
         5
     );
 
@@ -186,7 +207,14 @@ fn the_whole_job_on_the_demo_archive() {
     // Measured: ROC AUC 0.83 over the 359 tagged pictures (15 falsified).
     let audit = succeeded(&tagweave(
         &folder,
-        &["audit", "--json", "--limit", "100000", "--sheet", "review.csv"],
+        &[
+            "audit",
+            "--json",
+            "--limit",
+            "100000",
+            "--sheet",
+            "review.csv",
+        ],
     ));
     let queue: Vec<&str> = audit["queue"]
         .as_array()
@@ -208,7 +236,13 @@ fn the_whole_job_on_the_demo_archive() {
     let sheet_path = folder.join("suggestions.csv");
     succeeded(&tagweave(
         &folder,
-        &["suggest", "--untagged", "--json", "--sheet", "suggestions.csv"],
+        &[
+            "suggest",
+            "--untagged",
+            "--json",
+            "--sheet",
+            "suggestions.csv",
+        ],
     ));
     let sheet = std::fs::read_to_string(&sheet_path).unwrap();
     let mut filled = String::new();
@@ -235,11 +269,20 @@ fn the_whole_job_on_the_demo_archive() {
         .find(|r| r.sidecar == "txt" && !r.false_tags.is_empty())
         .map(|r| (r.file.clone(), r.false_tags[0].clone()))
         .unwrap();
-    filled.push_str(&format!("{false_picture},{false_tag},0.1,disputed,remove\n"));
+    filled.push_str(&format!(
+        "{false_picture},{false_tag},0.1,disputed,remove\n"
+    ));
     std::fs::write(&sheet_path, &filled).unwrap();
     let before = sidecar_snapshot(&folder);
-    let dry = succeeded(&tagweave(&folder, &["apply", "suggestions.csv", "--dry-run", "--json"]));
-    assert_eq!(sidecar_snapshot(&folder), before, "a dry run writes nothing");
+    let dry = succeeded(&tagweave(
+        &folder,
+        &["apply", "suggestions.csv", "--dry-run", "--json"],
+    ));
+    assert_eq!(
+        sidecar_snapshot(&folder),
+        before,
+        "a dry run writes nothing"
+    );
     let done = succeeded(&tagweave(&folder, &["apply", "suggestions.csv", "--json"]));
     assert_eq!(done["pictures_changed"], dry["pictures_changed"]);
     assert_eq!(done["tags_removed"], 1, "{done}");
@@ -276,7 +319,13 @@ fn the_whole_job_on_the_demo_archive() {
     assert_eq!(rescan["coded"], 1, "{rescan}");
     let found = succeeded(&tagweave(
         &folder,
-        &["shift", "1950s/added-later.jpg", "--toward", "night", "--json"],
+        &[
+            "shift",
+            "1950s/added-later.jpg",
+            "--toward",
+            "night",
+            "--json",
+        ],
     ));
     assert_eq!(found.as_array().unwrap().len(), 10);
 }

@@ -56,7 +56,9 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
         let plan = match planner.plan(change) {
             Ok(plan) => plan,
             Err(error) => {
-                report.refused.push((change.picture.clone(), error.to_string()));
+                report
+                    .refused
+                    .push((change.picture.clone(), error.to_string()));
                 continue;
             }
         };
@@ -71,7 +73,9 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
                 }
             }
         } else if let Err(error) = commit_plan(&plan) {
-            report.refused.push((change.picture.clone(), error.to_string()));
+            report
+                .refused
+                .push((change.picture.clone(), error.to_string()));
             continue;
         }
         report.pictures_changed += 1;

@@ -126,7 +126,13 @@ fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
         } else {
             "inferred*"
         };
-        println!("{:>4}  {:>10.3}  {:<9}  {}", i + 1, f.similarity, how, f.picture);
+        println!(
+            "{:>4}  {:>10.3}  {:<9}  {}",
+            i + 1,
+            f.similarity,
+            how,
+            f.picture
+        );
     }
     if found.iter().any(|f| !f.carries && !f.tagged) {
         println!("  * untagged picture: the tags are the model's guess, not anybody's record");
@@ -146,11 +152,11 @@ pub fn shift(args: &ShiftArgs) -> anyhow::Result<Outcome> {
         bail!("say what to change: --away TAG… and/or --toward TAG…");
     }
     let (_store, queries) = open(&args.common.store)?;
-    let row = queries
-        .row_of_path(&args.picture)
-        .ok_or_else(|| tagweave_query::QueryError::NotIndexed {
+    let row = queries.row_of_path(&args.picture).ok_or_else(|| {
+        tagweave_query::QueryError::NotIndexed {
             path: args.picture.clone(),
-        })?;
+        }
+    })?;
     let found = queries.shift(row, &args.away, &args.toward, args.common.ranking())?;
     print_found(&found, args.common.json, "toward")?;
     Ok(Outcome::Done)
@@ -236,7 +242,11 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
             println!(
                 "{}{}",
                 a.picture,
-                if a.indexed { "" } else { "  (not in the index)" }
+                if a.indexed {
+                    ""
+                } else {
+                    "  (not in the index)"
+                }
             );
             if !a.carried.is_empty() {
                 println!("  carries   {}", a.carried.join(", "));

@@ -99,7 +99,9 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
         json: false,
     })?;
     println!();
-    println!("== Step 4: how good is it? (a quarter of the tagged pictures held back, scored blind)");
+    println!(
+        "== Step 4: how good is it? (a quarter of the tagged pictures held back, scored blind)"
+    );
     let truth = folder.join("TRUTH.csv");
     crate::eval::run(&crate::eval::EvalArgs {
         folder,
@@ -108,6 +110,7 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
         known_mislabels: truth.is_file().then_some(truth),
         json: false,
         markdown: false,
+        tag_layer: crate::eval::TagLayerChoice::Binary,
     })?;
     println!();
     println!(

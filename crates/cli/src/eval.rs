@@ -6,6 +6,7 @@ use tagweave_eval::{
     audit_out_of_fold, baselines, evaluate, EvalOptions, JointScorer, Progress, TagScorer,
 };
 use tagweave_indexer::FeatureTable;
+use tagweave_model::{JointOptions, TagUnits};
 
 use crate::exit::Outcome;
 use crate::progress;
@@ -43,6 +44,17 @@ pub struct EvalArgs {
     /// Print a Markdown table (for BENCHMARKS.md).
     #[arg(long)]
     pub markdown: bool,
+    /// How the joint model's tag pathway sees a bag of tags (an experiment switch).
+    #[arg(long, value_enum, default_value_t = TagLayerChoice::Binary)]
+    pub tag_layer: TagLayerChoice,
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+pub enum TagLayerChoice {
+    /// One logistic unit per tag.
+    Binary,
+    /// Replicated softmax over the vocabulary.
+    Softmax,
 }
 
 pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
@@ -76,7 +88,7 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         train_fraction: args.train_fraction,
         ..EvalOptions::default()
     };
-    let mut methods = all_methods();
+    let mut methods = all_methods(args.tag_layer);
     let bar = progress::bar("evaluating");
     let mut on_progress = |event: Progress| {
         let (done, total) = match event {
@@ -131,9 +143,15 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
 }
 
 /// The baselines and tagweave's joint model, in report order.
-fn all_methods() -> Vec<Box<dyn TagScorer>> {
+fn all_methods(tag_layer: TagLayerChoice) -> Vec<Box<dyn TagScorer>> {
     let mut all = baselines();
-    all.push(Box::new(JointScorer::default()));
+    all.push(Box::new(JointScorer::with_options(JointOptions {
+        tag_units: match tag_layer {
+            TagLayerChoice::Binary => TagUnits::Binary,
+            TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
+        },
+        ..JointOptions::default()
+    })));
     all
 }
 

@@ -8,6 +8,7 @@ mod eval;
 mod exit;
 mod progress;
 mod scan;
+mod serve;
 mod store_path;
 mod tags;
 mod train;
@@ -50,6 +51,8 @@ enum Command {
     Apply(apply::ApplyArgs),
     /// Run the whole job on the bundled invented archive (demo-collection/).
     Demo(demo::DemoArgs),
+    /// A review page in your browser: search, look at pictures, accept or reject tags.
+    Serve(serve::ServeArgs),
 }
 
 /// Options every command that reads a store shares.
@@ -74,6 +77,7 @@ fn main() -> ExitCode {
         Command::Apply(args) => apply::run(&args),
         Command::Eval(args) => eval::run(&args),
         Command::Demo(args) => demo::run(&args),
+        Command::Serve(args) => serve::run(&args),
     };
     match result {
         Ok(code) => code.into(),

@@ -93,7 +93,10 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
         .map(|(layer, e)| format!("{layer} {e:.4}"))
         .collect();
     if !pretrain.is_empty() {
-        println!("  pretraining reconstruction error after the last epoch: {}", pretrain.join(", "));
+        println!(
+            "  pretraining reconstruction error after the last epoch: {}",
+            pretrain.join(", ")
+        );
     }
     println!(
         "  fine-tuning {} epochs (chosen on held-out pictures{}), final loss {}",

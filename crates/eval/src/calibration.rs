@@ -186,7 +186,9 @@ mod tests {
     #[test]
     fn isotonic_fit_matches_scikit_learn() {
         let x = [0.1f32, 0.2, 0.3, 0.35, 0.5, 0.6, 0.7, 0.8, 0.9, 0.95];
-        let y = [false, true, false, false, true, false, true, true, false, true];
+        let y = [
+            false, true, false, false, true, false, true, true, false, true,
+        ];
         let cal = Calibration::fit(&x, &y).unwrap();
         let want = [0.0f32, 1.0 / 6.0, 7.0 / 18.0, 7.0 / 12.0, 2.0 / 3.0, 1.0];
         for (q, w) in [0.0f32, 0.15, 0.4, 0.65, 0.85, 1.0].iter().zip(want) {
@@ -212,8 +214,12 @@ mod tests {
     // [.10667, .25, .5, .65, .90667] (run by hand, 2026-12-02).
     #[test]
     fn reliability_bins_match_scikit_learn() {
-        let p = [0.05f32, 0.15, 0.25, 0.45, 0.55, 0.65, 0.85, 0.95, 0.92, 0.12];
-        let t = [false, false, true, false, true, true, true, true, false, false];
+        let p = [
+            0.05f32, 0.15, 0.25, 0.45, 0.55, 0.65, 0.85, 0.95, 0.92, 0.12,
+        ];
+        let t = [
+            false, false, true, false, true, true, true, true, false, false,
+        ];
         let r = Reliability::measure(&p, &t, 5);
         let filled: Vec<&ReliabilityBin> = r.bins.iter().filter(|b| b.count > 0).collect();
         let want_true = [0.0, 1.0, 0.5, 1.0, 2.0 / 3.0];
@@ -223,7 +229,11 @@ mod tests {
             assert!((b.mean_probability.unwrap() - p).abs() < 1e-6, "{b:?}");
         }
         // by hand: ECE = (3·.10667 + 1·.75 + 2·0 + 1·.35 + 3·.24) / 10 = 0.214
-        assert!((r.expected_error - 0.214).abs() < 1e-6, "{}", r.expected_error);
+        assert!(
+            (r.expected_error - 0.214).abs() < 1e-6,
+            "{}",
+            r.expected_error
+        );
         assert!(r.to_table().contains("expected calibration error 0.214"));
     }
 }

@@ -122,13 +122,9 @@ impl TagSuggester {
             max_epochs: epochs,
             ..options
         };
-        let (model, _) = JointModel::fit(
-            train.features,
-            y.view(),
-            None,
-            &all,
-            &mut |p| progress(TrainingRun::Final, p),
-        )
+        let (model, _) = JointModel::fit(train.features, y.view(), None, &all, &mut |p| {
+            progress(TrainingRun::Final, p)
+        })
         .map_err(fail)?;
         let suggester = TagSuggester {
             model,
@@ -323,7 +319,10 @@ mod tests {
             "joint {got}, prior {prior}"
         );
         let settings = joint.settings().unwrap();
-        assert!(settings.starts_with("h=") && settings.contains(" w="), "{settings}");
+        assert!(
+            settings.starts_with("h=") && settings.contains(" w="),
+            "{settings}"
+        );
         assert!(joint.calibrated());
         assert_eq!(got, lrap(&mut JointScorer::default()));
     }

@@ -25,8 +25,8 @@ pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
 pub use baselines::{
     knn_leave_one_out_scores, KnnScorer, PriorScorer, RidgeScorer, TagScorer, TrainSet,
 };
-pub use error::EvalError;
 pub use calibration::{Calibration, Reliability, ReliabilityBin};
+pub use error::EvalError;
 pub use joint::{JointScorer, TagSuggester, TrainingRun};
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use report::{MethodReport, Report, SplitSummary};

@@ -157,7 +157,10 @@ impl Report {
             out += &markdown_table(&known.columns(), &known.rows());
         }
         for (name, reliability) in self.reliabilities() {
-            out += &format!("\nreliability of {name}'s probabilities on the test pictures:\n\n```\n{}```\n", reliability.to_table());
+            out += &format!(
+                "\nreliability of {name}'s probabilities on the test pictures:\n\n```\n{}```\n",
+                reliability.to_table()
+            );
         }
         out
     }

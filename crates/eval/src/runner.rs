@@ -13,8 +13,8 @@ use crate::metrics::{
 };
 use crate::split::group_ids;
 use crate::{
-    inject_mislabels, split, EvalError, Injection, KnnScorer, MethodReport, PriorScorer, Reliability, Report,
-    RidgeScorer, SplitSummary, Standardiser, TagScorer, TrainSet, Vocabulary,
+    inject_mislabels, split, EvalError, Injection, KnnScorer, MethodReport, PriorScorer,
+    Reliability, Report, RidgeScorer, SplitSummary, Standardiser, TagScorer, TrainSet, Vocabulary,
 };
 
 /// Tags suggested per picture for P@5, R@5 and per-tag annotation.

@@ -268,12 +268,19 @@ fn centroids(codes: ArrayView2<f32>, tags: &[Vec<usize>], n_tags: usize) -> Vec<
     for (code, carried) in codes.outer_iter().zip(tags) {
         for &t in carried {
             counts[t] += 1;
-            sums[t].iter_mut().zip(code).for_each(|(s, &c)| *s += f64::from(c));
+            sums[t]
+                .iter_mut()
+                .zip(code)
+                .for_each(|(s, &c)| *s += f64::from(c));
         }
     }
     sums.into_iter()
         .zip(counts)
-        .map(|(sum, n)| sum.into_iter().map(|s| (s / n.max(1) as f64) as f32).collect())
+        .map(|(sum, n)| {
+            sum.into_iter()
+                .map(|s| (s / n.max(1) as f64) as f32)
+                .collect()
+        })
         .collect()
 }
 

@@ -30,6 +30,13 @@ pub enum ModelError {
         col: usize,
         value: f32,
     },
+    #[error("{what} holds {value} at row {row}, column {col}; replicated-softmax visible units are word counts: pass non-negative whole numbers (0 or 1 per tag)")]
+    NotACount {
+        what: &'static str,
+        row: usize,
+        col: usize,
+        value: f32,
+    },
     #[error("exact enumeration handles at most {max} hidden units but the model has {got}; use log_partition_ais for larger models")]
     TooManyHidden { max: usize, got: usize },
     #[error("option {name} = {value} is invalid: {fix}")]

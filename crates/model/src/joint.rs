@@ -13,10 +13,11 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
 use crate::rbm::{sigmoid, softplus};
+use crate::train::sealed::Cd;
 use crate::train::KeepBest;
 use crate::{
-    train, BinaryRbm, EpochReport, GaussianBernoulliRbm, ModelError, Rbm, TrainOptions,
-    VisibleUnits,
+    train, BinaryRbm, EpochReport, GaussianBernoulliRbm, ModelError, ReplicatedSoftmaxRbm,
+    TrainOptions, Trainable,
 };
 
 /// Layer sizes; `None` picks a size from the data (see [`JointOptions::sizes_for`]).
@@ -44,6 +45,22 @@ pub struct JointOptions {
     pub patience: usize,
     /// Seeds initialisation, pretraining, shuffles and modality dropout (default 0).
     pub seed: u64,
+    /// Units of the tag pathway's visible layer (default binary; see [`TagUnits`]).
+    pub tag_units: TagUnits,
+}
+
+/// How the tag pathway sees a bag of tags.
+///
+/// Measured (seed 7, `tagweave eval`, LRAP emoji / stamps / demo): see BENCHMARKS.md,
+/// "Tag layer". Binary stays the default because it measured no worse.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub enum TagUnits {
+    /// One logistic unit per tag.
+    #[default]
+    Binary,
+    /// Replicated softmax: the tags as draws from one softmax over the vocabulary,
+    /// hidden biases scaled by the number of tags.
+    ReplicatedSoftmax,
 }
 
 impl Default for JointOptions {
@@ -60,6 +77,7 @@ impl Default for JointOptions {
             tags_only_fraction: 0.1,
             patience: 8,
             seed: 0,
+            tag_units: TagUnits::Binary,
         }
     }
 }
@@ -147,12 +165,71 @@ pub struct JointModel {
     /// Standardised picture features → image hidden units.
     pub image: GaussianBernoulliRbm,
     /// Bag of tags (0/1) → tag hidden units.
-    pub tags: BinaryRbm,
+    pub tags: TagLayer,
     /// [image hidden ; tag hidden] → shared units.
     pub shared: BinaryRbm,
     /// Shared units → tag logits, `n_shared × n_tags`.
     pub readout_weights: Array2<f32>,
     pub readout_bias: Array1<f32>,
+}
+
+/// The tag pathway's first layer, of either kind of [`TagUnits`].
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub enum TagLayer {
+    Binary(BinaryRbm),
+    ReplicatedSoftmax(ReplicatedSoftmaxRbm),
+}
+
+impl TagLayer {
+    pub fn n_visible(&self) -> usize {
+        self.weights().nrows()
+    }
+
+    pub fn n_hidden(&self) -> usize {
+        self.weights().ncols()
+    }
+
+    pub fn weights(&self) -> &Array2<f32> {
+        match self {
+            TagLayer::Binary(r) => &r.weights,
+            TagLayer::ReplicatedSoftmax(r) => &r.weights,
+        }
+    }
+
+    pub fn hidden_probabilities(&self, v: ArrayView2<f32>) -> Array2<f32> {
+        match self {
+            TagLayer::Binary(r) => r.hidden_probabilities(v),
+            TagLayer::ReplicatedSoftmax(r) => r.hidden_probabilities(v),
+        }
+    }
+
+    fn check_rows(&self, what: &'static str, v: ArrayView2<f32>) -> Result<(), ModelError> {
+        match self {
+            TagLayer::Binary(r) => Cd::check_rows(r, what, v),
+            TagLayer::ReplicatedSoftmax(r) => Cd::check_rows(r, what, v),
+        }
+    }
+
+    /// Per row, the multiplier of the hidden bias in the hidden input.
+    fn bias_scales(&self, v: ArrayView2<f32>) -> Array1<f32> {
+        match self {
+            TagLayer::Binary(_) => Array1::ones(v.nrows()),
+            TagLayer::ReplicatedSoftmax(_) => v.sum_axis(Axis(1)),
+        }
+    }
+
+    fn parameters_mut(&mut self) -> (ArrayViewMutD<'_, f32>, ArrayViewMutD<'_, f32>) {
+        match self {
+            TagLayer::Binary(r) => (
+                r.weights.view_mut().into_dyn(),
+                r.hidden_bias.view_mut().into_dyn(),
+            ),
+            TagLayer::ReplicatedSoftmax(r) => (
+                r.weights.view_mut().into_dyn(),
+                r.hidden_bias.view_mut().into_dyn(),
+            ),
+        }
+    }
 }
 
 /// Activations of one forward pass, kept for the backward pass.
@@ -210,13 +287,27 @@ impl JointModel {
         let mut image =
             GaussianBernoulliRbm::new(features.ncols(), n_image, init(features.ncols()), seed);
         image.check_rows("training features", features)?;
-        let mut tag_rbm = BinaryRbm::new(tags.ncols(), n_tag, init(tags.ncols()), seed ^ 1);
+        let mut tag_rbm =
+            match opts.tag_units {
+                TagUnits::Binary => TagLayer::Binary(BinaryRbm::new(
+                    tags.ncols(),
+                    n_tag,
+                    init(tags.ncols()),
+                    seed ^ 1,
+                )),
+                TagUnits::ReplicatedSoftmax => TagLayer::ReplicatedSoftmax(
+                    ReplicatedSoftmaxRbm::new(tags.ncols(), n_tag, init(tags.ncols()), seed ^ 1),
+                ),
+            };
         tag_rbm.check_rows("training tags", tags)?;
         let mut shared = BinaryRbm::new(n_image + n_tag, n_shared, init(n_image + n_tag), seed ^ 2);
         if opts.pretrain_epochs > 0 {
             // Gaussian visible units need a rate one or two orders below binary ones.
             pretrain(&mut image, features, "image", 0.001, opts, progress)?;
-            pretrain(&mut tag_rbm, tags, "tags", 0.05, opts, progress)?;
+            match &mut tag_rbm {
+                TagLayer::Binary(r) => pretrain(r, tags, "tags", 0.05, opts, progress)?,
+                TagLayer::ReplicatedSoftmax(r) => pretrain(r, tags, "tags", 0.05, opts, progress)?,
+            }
             let joint = concatenate(
                 Axis(1),
                 &[
@@ -300,11 +391,12 @@ impl JointModel {
 
     /// Parameters the network trains, in a fixed order shared with [`Self::gradients`].
     fn parameters_mut(&mut self) -> [ArrayViewMutD<'_, f32>; 8] {
+        let (tag_weights, tag_bias) = self.tags.parameters_mut();
         [
             self.image.weights.view_mut().into_dyn(),
             self.image.hidden_bias.view_mut().into_dyn(),
-            self.tags.weights.view_mut().into_dyn(),
-            self.tags.hidden_bias.view_mut().into_dyn(),
+            tag_weights,
+            tag_bias,
             self.shared.weights.view_mut().into_dyn(),
             self.shared.hidden_bias.view_mut().into_dyn(),
             self.readout_weights.view_mut().into_dyn(),
@@ -326,7 +418,7 @@ impl JointModel {
         let mut loss = cross_entropy(pass.logits.view(), target) / f64::from(n);
         let weights = [
             &self.image.weights,
-            &self.tags.weights,
+            self.tags.weights(),
             &self.shared.weights,
             &self.readout_weights,
         ];
@@ -346,12 +438,15 @@ impl JointModel {
         let d_image = &d_joint.slice(ndarray::s![.., ..n_image]) * &sigmoid_slope(&pass.image);
         let d_tags = &d_joint.slice(ndarray::s![.., n_image..]) * &sigmoid_slope(&pass.tags);
         let d_image_w = features.t().dot(&d_image) + &self.image.weights * decay;
-        let d_tags_w = tag_input.t().dot(&d_tags) + &self.tags.weights * decay;
+        let d_tags_w = tag_input.t().dot(&d_tags) + self.tags.weights() * decay;
+        // The hidden bias enters each row's input scaled (by its tag count for the
+        // replicated softmax), so its gradient is scaled alike.
+        let d_tags_bias = self.tags.bias_scales(tag_input).dot(&d_tags);
         let grads = vec![
             d_image_w.into_dyn(),
             d_image.sum_axis(Axis(0)).into_dyn(),
             d_tags_w.into_dyn(),
-            d_tags.sum_axis(Axis(0)).into_dyn(),
+            d_tags_bias.into_dyn(),
             d_shared_w.into_dyn(),
             d_shared.sum_axis(Axis(0)).into_dyn(),
             d_readout.into_dyn(),
@@ -431,8 +526,8 @@ impl JointModel {
     }
 }
 
-fn pretrain<V: VisibleUnits>(
-    rbm: &mut Rbm<V>,
+fn pretrain<M: Trainable>(
+    rbm: &mut M,
     data: ArrayView2<f32>,
     layer: &'static str,
     learning_rate: f32,
@@ -585,12 +680,18 @@ mod tests {
     // tiny network with random (not pretrained) weights large enough to be non-linear.
     #[test]
     fn backprop_matches_finite_differences() {
+        backprop_check(TagUnits::Binary);
+        backprop_check(TagUnits::ReplicatedSoftmax);
+    }
+
+    fn backprop_check(tag_units: TagUnits) {
         let (x, t) = synthetic(5, 4, 6, 1);
         let opts = JointOptions {
             image_hidden: Some(3),
             tag_hidden: Some(2),
             shared_hidden: Some(3),
             pretrain_epochs: 0,
+            tag_units,
             ..JointOptions::default()
         };
         let mut model = JointModel::pretrained(x.view(), t.view(), &opts, &mut |_| {}).unwrap();
@@ -629,7 +730,7 @@ mod tests {
                 let analytic = grad.iter().nth(idx).copied().unwrap();
                 assert!(
                     (numeric - analytic).abs() < 2e-3 + 0.02 * analytic.abs(),
-                    "parameter block {k}, entry {idx}: numeric {numeric}, backprop {analytic}"
+                    "{tag_units:?}: parameter block {k}, entry {idx}: numeric {numeric}, backprop {analytic}"
                 );
                 checked += 1;
             }

@@ -16,6 +16,7 @@ mod error;
 mod exact;
 mod joint;
 mod rbm;
+mod softmax;
 mod train;
 
 #[cfg(test)]
@@ -27,8 +28,13 @@ pub use exact::{
     log_likelihood_exact, log_likelihood_gradient_exact, log_partition_exact, RbmGradient,
     MAX_EXACT_HIDDEN,
 };
-pub use joint::{FineTuneReport, JointModel, JointOptions, JointProgress, JointSummary};
+pub use joint::{
+    FineTuneReport, JointModel, JointOptions, JointProgress, JointSummary, TagLayer, TagUnits,
+};
 pub use rbm::{
     Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits, SAMPLE_CHUNK_ROWS,
 };
-pub use train::{train, EpochReport, LearningRateSchedule, Sparsity, TrainOptions, TrainSummary};
+pub use softmax::ReplicatedSoftmaxRbm;
+pub use train::{
+    train, EpochReport, LearningRateSchedule, Sparsity, TrainOptions, TrainSummary, Trainable,
+};

@@ -3,17 +3,24 @@
 use std::fmt::Debug;
 use std::marker::PhantomData;
 
-use ndarray::{Array1, Array2, ArrayView2, Axis};
+use ndarray::linalg::general_mat_mul;
+use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut2, Axis};
 use rand::{Rng, RngCore, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+use crate::train::{sealed, Trainable};
 use crate::ModelError;
 
 /// Rows per independently seeded sampling chunk. Fixed (not derived from the thread
 /// count) so that the same seed gives the same samples on any machine.
 pub const SAMPLE_CHUNK_ROWS: usize = 32;
+
+/// Below this many elements a row pass (sigmoids, draws) runs on the calling thread:
+/// waking another thread costs more than it saves (measured on digits-sized batches, 16k
+/// values, where even the draws ran faster on one thread).
+const PAR_MIN_ELEMENTS: usize = 1 << 15;
 
 /// What kind of value a visible unit takes; the hidden units are always Bernoulli.
 pub trait VisibleUnits: Clone + Copy + Debug + Default + PartialEq + Send + Sync + 'static {
@@ -23,6 +30,20 @@ pub trait VisibleUnits: Clone + Copy + Debug + Default + PartialEq + Send + Sync
     fn sample(mean: f32, rng: &mut ChaCha8Rng) -> f32;
     /// The visible unit's own term in the energy (and free energy): value `v`, bias `b`.
     fn bias_energy(v: f64, b: f64) -> f64;
+    /// `row[i] ← mean(row[i] + bias[i])` for a whole row: the hot loop of every visible
+    /// step, so kinds may override it with a vectorised version.
+    fn means_in_place(row: &mut [f32], bias: &[f32]) {
+        for (x, &b) in row.iter_mut().zip(bias) {
+            *x = Self::mean(*x + b);
+        }
+    }
+    /// Replace a row of means by draws, in order (the same draws as [`Self::sample`] on
+    /// each entry in turn); kinds may override it with a faster equivalent.
+    fn sample_in_place(row: &mut [f32], rng: &mut ChaCha8Rng) {
+        for x in row {
+            *x = Self::sample(*x, rng);
+        }
+    }
 }
 
 /// Binary units: p(v_i = 1 | h) = σ(b_i + Σ_j W_ij h_j).
@@ -38,18 +59,27 @@ pub struct Bernoulli;
 pub struct Gaussian;
 
 impl VisibleUnits for Bernoulli {
+    #[inline]
     fn mean(input: f32) -> f32 {
         sigmoid(input)
     }
+    #[inline]
     fn sample(mean: f32, rng: &mut ChaCha8Rng) -> f32 {
         f32::from(rng.random::<f32>() < mean)
     }
     fn bias_energy(v: f64, b: f64) -> f64 {
         -b * v
     }
+    fn means_in_place(row: &mut [f32], bias: &[f32]) {
+        sigmoid_of_sum(row, bias, 1.0);
+    }
+    fn sample_in_place(row: &mut [f32], rng: &mut ChaCha8Rng) {
+        bernoulli_in_place(row, rng);
+    }
 }
 
 impl VisibleUnits for Gaussian {
+    #[inline]
     fn mean(input: f32) -> f32 {
         input
     }
@@ -120,17 +150,21 @@ impl<V: VisibleUnits> Rbm<V> {
     }
 
     /// p(h_j = 1 | v) = σ(c_j + Σ_i v_i W_ij) for each row of `v`.
-    /// Panics (inside ndarray's `dot`) if `v` does not have `n_visible` columns.
+    /// Panics (inside ndarray's matrix product) if `v` does not have `n_visible` columns.
     pub fn hidden_probabilities(&self, v: ArrayView2<f32>) -> Array2<f32> {
-        let mut x = v.dot(&self.weights) + &self.hidden_bias;
-        x.par_mapv_inplace(sigmoid);
+        let mut x = Array2::zeros((v.nrows(), self.n_hidden()));
+        par_gemm(1.0, &v, &self.weights.view(), 0.0, &mut x.view_mut());
+        hidden_activation(&mut x, &self.hidden_bias, None);
         x
     }
 
     /// E[v_i | h] (for binary units, the probability that v_i = 1) for each row of `h`.
     pub fn visible_means(&self, h: ArrayView2<f32>) -> Array2<f32> {
-        let mut x = h.dot(&self.weights.t()) + &self.visible_bias;
-        x.par_mapv_inplace(V::mean);
+        let mut x = Array2::zeros((h.nrows(), self.n_visible()));
+        par_gemm(1.0, &h, &self.weights.t(), 0.0, &mut x.view_mut());
+        for_each_row(&mut x, |_, row| {
+            sealed::Cd::visible_means_row(self, row, 1.0)
+        });
         x
     }
 
@@ -191,8 +225,210 @@ impl<V: VisibleUnits> Rbm<V> {
     }
 }
 
+impl<V: VisibleUnits> Trainable for Rbm<V> {}
+
+impl<V: VisibleUnits> sealed::Cd for Rbm<V> {
+    fn parameters(&self) -> (&Array2<f32>, &Array1<f32>, &Array1<f32>) {
+        (&self.weights, &self.visible_bias, &self.hidden_bias)
+    }
+
+    fn parameters_mut(&mut self) -> (&mut Array2<f32>, &mut Array1<f32>, &mut Array1<f32>) {
+        (
+            &mut self.weights,
+            &mut self.visible_bias,
+            &mut self.hidden_bias,
+        )
+    }
+
+    fn check_rows(&self, what: &'static str, v: ArrayView2<f32>) -> Result<(), ModelError> {
+        Rbm::check_rows(self, what, v)
+    }
+
+    #[inline]
+    fn visible_means_row(&self, row: &mut [f32], _scale: f32) {
+        let bias = self.visible_bias.as_standard_layout();
+        V::means_in_place(row, bias.as_slice().expect("standard layout"));
+    }
+
+    #[inline]
+    fn sample_visible_row(&self, row: &mut [f32], _scale: f32, rng: &mut ChaCha8Rng) {
+        V::sample_in_place(row, rng);
+    }
+
+    fn reconstruction_error(&self, v: ArrayView2<f32>) -> f32 {
+        Rbm::reconstruction_error(self, v)
+    }
+}
+
+/// e^x in plain f32 arithmetic: Cody–Waite reduction x = n·ln 2 + r and the degree-5
+/// polynomial of the Cephes `expf` (about 1 ulp), with x clamped to [−87, 87] so results
+/// stay normal. Unlike a libm call, loops over it vectorise, and they give the same bits at
+/// any vector width, so results do not depend on the machine's SIMD level.
+#[inline(always)]
+pub(crate) fn exp_approx(x: f32) -> f32 {
+    // Adding 1.5·2²³ rounds to an integer, which lands in the low mantissa bits.
+    const SHIFT: f32 = 12_582_912.0;
+    let x = x.clamp(-87.0, 87.0);
+    let t = x * std::f32::consts::LOG2_E + SHIFT;
+    let n = t - SHIFT;
+    let r = x - n * 0.693_359_4 - n * -2.121_944_4e-4;
+    let p = ((((1.987_569_1e-4 * r + 1.398_199_9e-3) * r + 8.333_452e-3) * r + 4.166_579_6e-2) * r
+        + 1.666_666_5e-1)
+        * r
+        + 0.5;
+    let e_r = p * (r * r) + r + 1.0;
+    // 2ⁿ built from the exponent bits: n sits in t's mantissa, offset by SHIFT's bits.
+    let n_bits = t.to_bits().wrapping_sub(SHIFT.to_bits());
+    e_r * f32::from_bits(n_bits.wrapping_add(127) << 23)
+}
+
+#[inline(always)]
 pub(crate) fn sigmoid(x: f32) -> f32 {
-    1.0 / (1.0 + (-x).exp())
+    1.0 / (1.0 + exp_approx(-x))
+}
+
+/// `row[i] ← σ(row[i] + scale·bias[i])`, on AVX2 when the CPU has it: the same
+/// arithmetic on wider vectors, so the same bits as the baseline path.
+pub(crate) fn sigmoid_of_sum(row: &mut [f32], bias: &[f32], scale: f32) {
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx2") {
+        // SAFETY: the CPU supports AVX2, checked just above; the function itself only
+        // does safe slice arithmetic.
+        unsafe { sigmoid_of_sum_avx2(row, bias, scale) };
+        return;
+    }
+    sigmoid_of_sum_portable(row, bias, scale);
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn sigmoid_of_sum_avx2(row: &mut [f32], bias: &[f32], scale: f32) {
+    sigmoid_of_sum_portable(row, bias, scale);
+}
+
+#[inline(always)]
+fn sigmoid_of_sum_portable(row: &mut [f32], bias: &[f32], scale: f32) {
+    for (x, &c) in row.iter_mut().zip(bias) {
+        *x = sigmoid(*x + scale * c);
+    }
+}
+
+/// Replace probabilities by 0/1 draws, u < p with u = (32 random bits >> 8)·2⁻²⁴: the
+/// same draws as [`Bernoulli::sample`] entry by entry, but the bits come 64 at a time so
+/// the comparison loop vectorises.
+pub(crate) fn bernoulli_in_place(row: &mut [f32], rng: &mut ChaCha8Rng) {
+    let mut bits = [0u32; 64];
+    for piece in row.chunks_mut(64) {
+        let bits = &mut bits[..piece.len()];
+        rng.fill(bits);
+        for (x, &u) in piece.iter_mut().zip(bits.iter()) {
+            *x = f32::from(((u >> 8) as f32) * (1.0 / 16_777_216.0) < *x);
+        }
+    }
+}
+
+/// Applies `f(row index, row)` to every row of a standard-layout matrix, over chunks of
+/// [`SAMPLE_CHUNK_ROWS`] rows, on rayon threads when the matrix is large enough.
+pub(crate) fn for_each_row(x: &mut Array2<f32>, f: impl Fn(usize, &mut [f32]) + Sync) {
+    let cols = x.ncols();
+    let flat = x
+        .as_slice_mut()
+        .expect("owned matrices are in standard layout");
+    rows_apply(flat, cols, |first, block| {
+        for (i, row) in block.chunks_exact_mut(cols).enumerate() {
+            f(first + i, row);
+        }
+    });
+}
+
+/// Like [`for_each_row`] on a flat row-major buffer of `cols` columns, with one generator
+/// per chunk, seeded from `rng` in chunk order: the draws do not depend on the thread count.
+pub(crate) fn for_each_row_seeded(
+    flat: &mut [f32],
+    cols: usize,
+    rng: &mut impl RngCore,
+    f: impl Fn(usize, &mut [f32], &mut ChaCha8Rng) + Sync,
+) {
+    let chunk = SAMPLE_CHUNK_ROWS * cols;
+    if chunk == 0 {
+        return;
+    }
+    let seeds: Vec<u64> = flat.chunks(chunk).map(|_| rng.next_u64()).collect();
+    rows_apply(flat, cols, |first, block| {
+        let mut r = ChaCha8Rng::seed_from_u64(seeds[first / SAMPLE_CHUNK_ROWS]);
+        for (i, row) in block.chunks_exact_mut(cols).enumerate() {
+            f(first + i, row, &mut r);
+        }
+    });
+}
+
+/// Runs `f(first row, block)` over blocks of [`SAMPLE_CHUNK_ROWS`] rows.
+pub(crate) fn rows_apply(flat: &mut [f32], cols: usize, f: impl Fn(usize, &mut [f32]) + Sync) {
+    let chunk = SAMPLE_CHUNK_ROWS * cols;
+    if chunk == 0 {
+        return;
+    }
+    let run = |(k, block): (usize, &mut [f32])| f(k * SAMPLE_CHUNK_ROWS, block);
+    if flat.len() >= PAR_MIN_ELEMENTS {
+        flat.par_chunks_mut(chunk).enumerate().for_each(run);
+    } else {
+        flat.chunks_mut(chunk).enumerate().for_each(run);
+    }
+}
+
+/// Products smaller than this many multiply–adds run as one call: on digits-sized steps
+/// (64 × 64 × 256) splitting measured slower than not.
+const PAR_GEMM_MIN_MACS: usize = 1 << 21;
+
+/// c ← α·a·b + β·c, split into column (or row) blocks of c computed on rayon threads.
+///
+/// matrixmultiply runs on one thread; this lets a product use every core without a second
+/// thread pool. The blocks depend only on the shapes, never on the thread count, so the
+/// result does not either.
+pub(crate) fn par_gemm(
+    alpha: f32,
+    a: &ArrayView2<f32>,
+    b: &ArrayView2<f32>,
+    beta: f32,
+    c: &mut ArrayViewMut2<f32>,
+) {
+    let (m, k) = a.dim();
+    let n = b.ncols();
+    let blocks = (m * n * k / PAR_GEMM_MIN_MACS).min(8);
+    if blocks < 2 || m.max(n) < 64 {
+        general_mat_mul(alpha, a, b, beta, c);
+        return;
+    }
+    // Split the longer side of c; blocks a multiple of 32 wide so the kernels' tiles fit.
+    let (axis, len) = if n >= m { (Axis(1), n) } else { (Axis(0), m) };
+    let width = len.div_ceil(blocks).div_ceil(32) * 32;
+    if axis == Axis(1) {
+        let pieces: Vec<_> = c
+            .axis_chunks_iter_mut(Axis(1), width)
+            .zip(b.axis_chunks_iter(Axis(1), width))
+            .collect();
+        pieces.into_par_iter().for_each(|(mut c, b)| {
+            general_mat_mul(alpha, a, &b, beta, &mut c);
+        });
+    } else {
+        let pieces: Vec<_> = c
+            .axis_chunks_iter_mut(Axis(0), width)
+            .zip(a.axis_chunks_iter(Axis(0), width))
+            .collect();
+        pieces.into_par_iter().for_each(|(mut c, a)| {
+            general_mat_mul(alpha, &a, b, beta, &mut c);
+        });
+    }
+}
+
+/// x ← σ(x + s_r·c) row by row: hidden probabilities from the inputs Σ_i v_i W_ij, with
+/// each row's hidden-bias multiplier s_r (1 when `scales` is None).
+pub(crate) fn hidden_activation(x: &mut Array2<f32>, bias: &Array1<f32>, scales: Option<&[f32]>) {
+    let c = bias.as_standard_layout();
+    let c = c.as_slice().expect("standard layout");
+    for_each_row(x, |r, row| {
+        sigmoid_of_sum(row, c, scales.map_or(1.0, |s| s[r]));
+    });
 }
 
 /// log(1 + eˣ) without overflow.
@@ -213,32 +449,23 @@ pub(crate) fn standard_normal(rng: &mut impl Rng) -> f32 {
 
 /// Draw every entry independently; rows are split into fixed chunks, each with its own
 /// generator seeded from `rng` in order, so the thread count cannot change the result.
-fn par_sample(
-    means: &Array2<f32>,
-    rng: &mut impl RngCore,
-    draw: impl Fn(f32, &mut ChaCha8Rng) -> f32 + Sync,
-) -> Array2<f32> {
-    let mut out = means.clone();
-    let chunks: Vec<_> = out
-        .axis_chunks_iter_mut(Axis(0), SAMPLE_CHUNK_ROWS)
-        .map(|chunk| (chunk, rng.next_u64()))
-        .collect();
-    chunks.into_par_iter().for_each(|(mut chunk, seed)| {
-        let mut r = ChaCha8Rng::seed_from_u64(seed);
-        chunk.mapv_inplace(|m| draw(m, &mut r));
-    });
+fn par_sample<V: VisibleUnits>(means: &Array2<f32>, rng: &mut impl RngCore) -> Array2<f32> {
+    let mut out = means.as_standard_layout().into_owned();
+    let cols = out.ncols();
+    let flat = out.as_slice_mut().expect("standard layout");
+    for_each_row_seeded(flat, cols, rng, |_, row, r| V::sample_in_place(row, r));
     out
 }
 
 pub(crate) fn sample_bernoulli(p: &Array2<f32>, rng: &mut impl RngCore) -> Array2<f32> {
-    par_sample(p, rng, Bernoulli::sample)
+    par_sample::<Bernoulli>(p, rng)
 }
 
 pub(crate) fn sample_visible_from_means<V: VisibleUnits>(
     means: &Array2<f32>,
     rng: &mut impl RngCore,
 ) -> Array2<f32> {
-    par_sample(means, rng, V::sample)
+    par_sample::<V>(means, rng)
 }
 
 #[cfg(test)]

@@ -200,7 +200,10 @@ impl Queries {
         let raw = Array2::from_shape_vec((1, n), raw)
             .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
         let x = self.model.scale(raw.view())?;
-        let p = self.model.suggester.suggest(x.view(), &self.neighbours, &[])?;
+        let p = self
+            .model
+            .suggester
+            .suggest(x.view(), &self.neighbours, &[])?;
         Ok(p.row(0).to_vec())
     }
 
@@ -260,7 +263,8 @@ impl Queries {
         for c in &chosen {
             code.iter_mut().zip(c.iter()).for_each(|(a, &b)| *a += b);
         }
-        code.iter_mut().for_each(|v| *v /= chosen.len().max(1) as f32);
+        code.iter_mut()
+            .for_each(|v| *v /= chosen.len().max(1) as f32);
         Ok(code)
     }
 

@@ -20,6 +20,11 @@ pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATE
 /// Bumped whenever the on-disk layout changes in a way older code cannot read.
 pub const FORMAT_VERSION: u32 = 1;
 
+/// sled's page cache. Its default (about 1 GiB) made loading 1,000,000 codes peak at 1.25 GB
+/// of RAM; with 64 MiB the peak was 542 MB and loading was faster (3.7 s against 6.8 s),
+/// measured with tools/code-search-bench.
+const PAGE_CACHE_BYTES: u64 = 64 << 20;
+
 /// Name of the store folder placed inside a collection by default.
 pub const DEFAULT_DIR_NAME: &str = ".tagweave";
 
@@ -132,6 +137,7 @@ impl Store {
         let db = sled::Config::new()
             .path(dir.join("db"))
             .mode(sled::Mode::LowSpace)
+            .cache_capacity(PAGE_CACHE_BYTES)
             .open()
             .map_err(|source| StoreError::Database {
                 dir: dir.to_path_buf(),

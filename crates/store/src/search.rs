@@ -24,9 +24,10 @@ use rayon::prelude::*;
 
 use crate::{Result, Store, StoreError};
 
-/// Candidates kept by the Hamming pre-filter when the caller has no better idea. Measured on
-/// 1,000,000 synthetic 256-unit codes (`tools/code-search-bench`): recall@10 against exact
-/// search ≥ 0.95 while re-ranking stays a small part of the query time.
+/// Candidates kept by the Hamming pre-filter when the caller has no better idea. On
+/// 1,000,000 synthetic 256-unit codes (`tools/code-search-bench`) recall@10 against exact
+/// search was 0.969 / 0.992 / 0.999 / 1.0 at 2k / 5k / 10k / 20k candidates; 10k leaves
+/// margin for real codes that cluster less, for about 1.3 ms of re-ranking.
 pub const DEFAULT_CANDIDATES: usize = 10_000;
 
 /// Largest code length accepted; far above any model we train, it keeps the integer dot

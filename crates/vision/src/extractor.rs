@@ -147,7 +147,6 @@ impl FeatureExtractor {
 mod tests {
     use super::*;
     use crate::patches::tests::synthetic_pictures;
-    use ndarray::Array2;
 
     fn opts() -> FeatureOptions {
         FeatureOptions {

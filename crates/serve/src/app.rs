@@ -1,0 +1,746 @@
+//! What each address answers. Kept apart from the HTTP server so every decision (which
+//! route, which status, who may write) is plain code over plain values.
+
+use std::collections::{BTreeSet, HashMap};
+use std::path::PathBuf;
+use std::sync::{Mutex, MutexGuard, OnceLock};
+
+use tagweave_collection::{normalize_tag, CrawlOptions, ItemRecord};
+use tagweave_query::{Dispute, Queries, QueryError, Ranking};
+use tagweave_store::Store;
+use tagweave_writeback::{commit_plan, diff, original_path, Planner, TagChange};
+
+use crate::guard::{host_allowed, loopback_hosts, same_origin, SessionToken};
+use crate::pages::{self, Card, Page, Written};
+use crate::renditions::{Rendition, Renditions};
+use crate::text::{first, pairs, tag_words};
+use crate::ServeError;
+
+/// The request methods the pages use; anything else is refused with 405.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Method {
+    Get,
+    Head,
+    Post,
+    Other,
+}
+
+/// One request, as far as the app cares.
+#[derive(Debug, Clone, Copy)]
+pub struct Incoming<'a> {
+    pub method: Method,
+    /// The request target exactly as sent (path and query, not decoded).
+    pub target: &'a str,
+    pub host: Option<&'a str>,
+    pub origin: Option<&'a str>,
+    pub fetch_site: Option<&'a str>,
+    pub body: &'a [u8],
+}
+
+/// One answer.
+#[derive(Debug, Clone)]
+pub struct Reply {
+    pub status: u16,
+    pub content_type: &'static str,
+    pub body: Vec<u8>,
+    /// Seconds a browser may keep it; `None`: never stored (pages carry the token).
+    pub max_age: Option<u32>,
+    /// For 303 answers.
+    pub location: Option<String>,
+    /// For 405 answers.
+    pub allow: Option<&'static str>,
+}
+
+const HTML: &str = "text/html; charset=utf-8";
+const CSS: &str = "text/css; charset=utf-8";
+const JPEG: &str = "image/jpeg";
+
+/// Our own look, embedded in the binary.
+const STYLE: &str = include_str!("assets/style.css");
+
+/// Pictures in a grid unless the address asks for another number.
+const GRID: usize = 24;
+const GRID_MAX: usize = 200;
+/// Suggestions listed on a picture's page.
+const SUGGESTIONS: usize = 8;
+/// Review-queue entries per page.
+const QUEUE_PAGE: usize = 20;
+/// Longest tag accepted from a form (in characters).
+const TAG_MAX: usize = 100;
+
+impl Reply {
+    fn new(status: u16, content_type: &'static str, body: Vec<u8>) -> Reply {
+        Reply {
+            status,
+            content_type,
+            body,
+            max_age: None,
+            location: None,
+            allow: None,
+        }
+    }
+}
+
+/// What happened to one picture during this run of the server.
+#[derive(Debug, Default)]
+struct PictureNotes {
+    /// Normalised tags written into its sidecars.
+    added: BTreeSet<String>,
+    /// Normalised tags taken out of its sidecars.
+    removed: BTreeSet<String>,
+    /// Suggestions or doubts set aside (nothing written).
+    set_aside: BTreeSet<String>,
+}
+
+/// The running review page.
+pub(crate) struct App {
+    /// Held for the server's life: its lock keeps a scan from reading sidecars mid-change.
+    store: Store,
+    queries: Queries,
+    root: PathBuf,
+    row_of_id: HashMap<String, usize>,
+    row_of_path: HashMap<String, usize>,
+    token: SessionToken,
+    read_only: bool,
+    hosts: Vec<String>,
+    renditions: Renditions,
+    audit: OnceLock<Result<Vec<Dispute>, String>>,
+    /// Also serialises writes, so two clicks never plan from the same old bytes.
+    session: Mutex<HashMap<String, PictureNotes>>,
+}
+
+/// A routed request that needs an indexed picture.
+enum PictureRoute {
+    Page,
+    Thumbnail,
+    Large,
+    Like,
+    Tags,
+    SetAside,
+}
+
+impl App {
+    pub(crate) fn new(store: Store, queries: Queries, port: u16, read_only: bool) -> App {
+        let root = store.collection_root().to_path_buf();
+        let items = queries.items();
+        let row_of_id = items
+            .iter()
+            .enumerate()
+            .map(|(i, item)| (item.id.clone(), i))
+            .collect();
+        let row_of_path = items
+            .iter()
+            .enumerate()
+            .map(|(i, item)| (item.rel_path.clone(), i))
+            .collect();
+        App {
+            renditions: Renditions::new(&root, store.dir()),
+            root,
+            row_of_id,
+            row_of_path,
+            token: SessionToken::new(),
+            read_only,
+            hosts: loopback_hosts(port),
+            audit: OnceLock::new(),
+            session: Mutex::new(HashMap::new()),
+            store,
+            queries,
+        }
+    }
+
+    pub fn respond(&self, request: &Incoming) -> Reply {
+        if !host_allowed(request.host, &self.hosts) {
+            return self.message(
+                403,
+                "Unknown host",
+                "This review page answers only to 127.0.0.1, localhost or [::1] with its own \
+                 port in the address. Open the address `tagweave serve` printed.",
+            );
+        }
+        let (path, query) = request
+            .target
+            .split_once('?')
+            .unwrap_or((request.target, ""));
+        let Some(path) = path.strip_prefix('/') else {
+            return self.not_found();
+        };
+        let segments: Vec<&str> = path.split('/').collect();
+        let query = pairs(query);
+        match segments.as_slice() {
+            [""] => self.get_only(request, || self.search(&query)),
+            ["review"] => self.get_only(request, || self.review(&query)),
+            ["style.css"] => self.get_only(request, || {
+                let mut reply = Reply::new(200, CSS, STYLE.as_bytes().to_vec());
+                reply.max_age = Some(3600);
+                reply
+            }),
+            ["picture", id] => self.picture_route(request, id, PictureRoute::Page, &query),
+            ["picture", id, "thumbnail"] => {
+                self.picture_route(request, id, PictureRoute::Thumbnail, &query)
+            }
+            ["picture", id, "large"] => {
+                self.picture_route(request, id, PictureRoute::Large, &query)
+            }
+            ["picture", id, "like"] => self.picture_route(request, id, PictureRoute::Like, &query),
+            ["picture", id, "tags"] => self.picture_route(request, id, PictureRoute::Tags, &query),
+            ["picture", id, "set-aside"] => {
+                self.picture_route(request, id, PictureRoute::SetAside, &query)
+            }
+            _ => self.not_found(),
+        }
+    }
+
+    /// The answer to a request the HTTP layer could not take (malformed, too large, or
+    /// too many at once).
+    pub(crate) fn refused(&self, status: u16) -> Reply {
+        let text = if status == 503 {
+            "Too many connections at once; reload the page in a moment."
+        } else {
+            "The review page takes small requests from a browser only."
+        };
+        self.message(status, "Request refused", text)
+    }
+
+    fn get_only(&self, request: &Incoming, answer: impl FnOnce() -> Reply) -> Reply {
+        match request.method {
+            Method::Get | Method::Head => answer(),
+            _ => self.wrong_method("GET, HEAD"),
+        }
+    }
+
+    fn wrong_method(&self, allow: &'static str) -> Reply {
+        let mut reply = self.message(
+            405,
+            "Not here",
+            &format!("This address answers only {allow}."),
+        );
+        reply.allow = Some(allow);
+        reply
+    }
+
+    fn picture_route(
+        &self,
+        request: &Incoming,
+        id: &str,
+        route: PictureRoute,
+        query: &[(String, String)],
+    ) -> Reply {
+        let writes = matches!(route, PictureRoute::Tags | PictureRoute::SetAside);
+        if writes {
+            if request.method != Method::Post {
+                return self.wrong_method("POST");
+            }
+            if let Some(refusal) = self.refuse_change(request) {
+                return refusal;
+            }
+        } else if !matches!(request.method, Method::Get | Method::Head) {
+            return self.wrong_method("GET, HEAD");
+        }
+        let Some(row) = self.row_of(id) else {
+            return self.not_found();
+        };
+        match route {
+            PictureRoute::Page => self.picture(row),
+            PictureRoute::Thumbnail => self.jpeg(row, Rendition::Thumbnail),
+            PictureRoute::Large => self.jpeg(row, Rendition::Large),
+            PictureRoute::Like => self.like(row, query),
+            PictureRoute::Tags => self.change_tags(row, &form(request.body)),
+            PictureRoute::SetAside => self.set_aside(row, &form(request.body)),
+        }
+    }
+
+    /// Why a change request may not go ahead, if it may not.
+    fn refuse_change(&self, request: &Incoming) -> Option<Reply> {
+        if self.read_only {
+            return Some(self.message(
+                403,
+                "Read-only",
+                "This review page was started with --read-only: it changes nothing. Start \
+                 `tagweave serve` without --read-only to accept or remove tags.",
+            ));
+        }
+        let form = form(request.body);
+        let token_ok = first(&form, "token").is_some_and(|t| self.token.matches(t));
+        if !token_ok || !same_origin(request.origin, request.fetch_site, &self.hosts) {
+            return Some(self.message(
+                403,
+                "Refused",
+                "A change must come from a form of this review page (it carries this \
+                 session's token). Reload the page and try again; a page from another \
+                 site cannot change your tags.",
+            ));
+        }
+        None
+    }
+
+    /// The row of an indexed picture by its id: exactly 16 lower-case hex digits, and known.
+    fn row_of(&self, id: &str) -> Option<usize> {
+        let well_formed =
+            id.len() == 16 && id.bytes().all(|b| matches!(b, b'0'..=b'9' | b'a'..=b'f'));
+        if !well_formed {
+            return None;
+        }
+        self.row_of_id.get(id).copied()
+    }
+
+    fn item(&self, row: usize) -> &ItemRecord {
+        &self.queries.items()[row]
+    }
+
+    fn page(&self, status: u16, page: Page) -> Reply {
+        let html = pages::layout(&page, self.read_only, &self.root.display().to_string());
+        Reply::new(status, HTML, html.into_bytes())
+    }
+
+    fn message(&self, status: u16, title: &str, text: &str) -> Reply {
+        self.page(
+            status,
+            Page {
+                title: title.to_string(),
+                body: pages::message(title, text),
+            },
+        )
+    }
+
+    fn not_found(&self) -> Reply {
+        self.message(
+            404,
+            "Not found",
+            "Nothing here. Pictures are shown by the id of an indexed picture; start from the \
+             search page.",
+        )
+    }
+
+    fn failed(&self, error: &dyn std::fmt::Display) -> Reply {
+        self.message(500, "Something went wrong", &error.to_string())
+    }
+
+    fn session(&self) -> MutexGuard<'_, HashMap<String, PictureNotes>> {
+        self.session.lock().unwrap_or_else(|p| p.into_inner())
+    }
+
+    /// The picture's tags as they stand in its sidecars now: indexed tags with this
+    /// session's writes applied. The flag marks tags written in this session.
+    fn tags_now(&self, row: usize, notes: Option<&PictureNotes>) -> Vec<(String, bool)> {
+        let item = self.item(row);
+        let mut tags: Vec<(String, bool)> = item
+            .tags
+            .iter()
+            .filter(|t| notes.is_none_or(|n| !n.removed.contains(*t)))
+            .map(|t| (t.clone(), false))
+            .collect();
+        if let Some(notes) = notes {
+            for t in &notes.added {
+                if !item.tags.contains(t) {
+                    tags.push((t.clone(), true));
+                }
+            }
+        }
+        tags
+    }
+
+    fn card(&self, row: usize, badge: Option<&'static str>, similarity: Option<f32>) -> Card {
+        let item = self.item(row);
+        Card {
+            id: item.id.clone(),
+            picture: item.rel_path.clone(),
+            badge,
+            untagged: item.tags.is_empty(),
+            similarity,
+        }
+    }
+
+    fn search(&self, query: &[(String, String)]) -> Reply {
+        let typed = first(query, "q").unwrap_or("").trim().to_string();
+        let untagged_only = first(query, "untagged").is_some_and(|v| !v.is_empty());
+        let limit = limit_of(query);
+        let vocabulary = self.queries.vocabulary();
+        let tagged = self
+            .queries
+            .items()
+            .iter()
+            .filter(|i| !i.tags.is_empty())
+            .count();
+        let mut view = pages::SearchView {
+            typed: typed.clone(),
+            untagged_only,
+            vocabulary,
+            pictures: self.queries.items().len(),
+            tagged,
+            problem: None,
+            cards: None,
+        };
+        let tags = tag_words(&typed);
+        if tags.is_empty() {
+            return self.page(200, pages::search(&view));
+        }
+        let ranking = Ranking {
+            limit,
+            untagged_only,
+            exact: false,
+        };
+        match self.queries.find(&tags, ranking) {
+            Ok(found) => {
+                let cards = found
+                    .iter()
+                    .filter_map(|f| {
+                        let row = *self.row_of_path.get(&f.picture)?;
+                        let badge = if f.carries { "carries" } else { "inferred" };
+                        Some(self.card(row, Some(badge), Some(f.similarity)))
+                    })
+                    .collect();
+                view.cards = Some(cards);
+                self.page(200, pages::search(&view))
+            }
+            Err(error @ (QueryError::UnknownTags { .. } | QueryError::NoTags)) => {
+                view.problem = Some(error.to_string());
+                self.page(400, pages::search(&view))
+            }
+            Err(error) => self.failed(&error),
+        }
+    }
+
+    fn like(&self, row: usize, query: &[(String, String)]) -> Reply {
+        let away = tag_words(first(query, "away").unwrap_or(""));
+        let toward = tag_words(first(query, "toward").unwrap_or(""));
+        let start = self.card(row, None, None);
+        let mut view = pages::LikeView {
+            start,
+            away: away.clone(),
+            toward: toward.clone(),
+            vocabulary: self.queries.vocabulary(),
+            problem: None,
+            cards: Vec::new(),
+        };
+        if away.is_empty() && toward.is_empty() {
+            view.problem =
+                Some("Say what to change: tags to move away from, toward, or both.".into());
+            return self.page(400, pages::like(&view));
+        }
+        let ranking = Ranking {
+            limit: limit_of(query),
+            ..Ranking::default()
+        };
+        match self.queries.shift(row, &away, &toward, ranking) {
+            Ok(found) => {
+                view.cards = found
+                    .iter()
+                    .filter_map(|f| {
+                        let r = *self.row_of_path.get(&f.picture)?;
+                        let badge = if toward.is_empty() {
+                            None
+                        } else if f.carries {
+                            Some("carries")
+                        } else {
+                            Some("inferred")
+                        };
+                        Some(self.card(r, badge, Some(f.similarity)))
+                    })
+                    .collect();
+                self.page(200, pages::like(&view))
+            }
+            Err(error @ (QueryError::UnknownTags { .. } | QueryError::NoTags)) => {
+                view.problem = Some(error.to_string());
+                self.page(400, pages::like(&view))
+            }
+            Err(error) => self.failed(&error),
+        }
+    }
+
+    fn picture(&self, row: usize) -> Reply {
+        let item = self.item(row);
+        let probabilities = match self.queries.suggest_rows(&[row]) {
+            Ok(p) => p.row(0).to_vec(),
+            Err(error) => return self.failed(&error),
+        };
+        let shares = match self.queries.neighbour_shares(&[row]) {
+            Ok(s) => s.row(0).to_vec(),
+            Err(error) => return self.failed(&error),
+        };
+        let vocabulary = self.queries.vocabulary();
+        let share_of = |tag: &str| {
+            vocabulary
+                .iter()
+                .position(|t| t == tag)
+                .and_then(|c| shares.get(c).copied())
+        };
+        let session = self.session();
+        let notes = session.get(&item.id);
+        let now = self.tags_now(row, notes);
+        let carried: Vec<String> = now.iter().map(|(t, _)| t.clone()).collect();
+        let suggestions = self
+            .queries
+            .tag_scores(&probabilities, &carried)
+            .into_iter()
+            .filter(|s| !s.carried && notes.is_none_or(|n| !n.set_aside.contains(&s.tag)))
+            .take(SUGGESTIONS)
+            .map(|s| (s.tag, s.probability))
+            .collect();
+        let view = pages::PictureView {
+            id: item.id.clone(),
+            picture: item.rel_path.clone(),
+            sidecars: item.sidecars.iter().map(|s| s.rel_path.clone()).collect(),
+            tags: now
+                .into_iter()
+                .map(|(tag, written)| {
+                    let share = share_of(&tag);
+                    (tag, written, share)
+                })
+                .collect(),
+            suggestions,
+            vocabulary,
+            token: self.writable_token(),
+            changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),
+        };
+        drop(session);
+        self.page(200, pages::picture(&view))
+    }
+
+    /// The token to put in forms, or `None` when the page must offer no changes.
+    fn writable_token(&self) -> Option<&str> {
+        (!self.read_only).then(|| self.token.as_str())
+    }
+
+    fn disputes(&self) -> &Result<Vec<Dispute>, String> {
+        self.audit
+            .get_or_init(|| self.queries.audit().map_err(|e| e.to_string()))
+    }
+
+    fn review(&self, query: &[(String, String)]) -> Reply {
+        let disputes = match self.disputes() {
+            Ok(d) => d,
+            Err(error) => return self.failed(error),
+        };
+        let flagged: Vec<&Dispute> = disputes.iter().filter(|d| !d.disputed.is_empty()).collect();
+        let pages_total = flagged.len().div_ceil(QUEUE_PAGE).max(1);
+        let page = first(query, "page")
+            .and_then(|p| p.parse::<usize>().ok())
+            .unwrap_or(1)
+            .clamp(1, pages_total);
+        let session = self.session();
+        let entries = flagged
+            .iter()
+            .enumerate()
+            .skip((page - 1) * QUEUE_PAGE)
+            .take(QUEUE_PAGE)
+            .filter_map(|(rank, d)| {
+                let row = *self.row_of_path.get(&d.picture)?;
+                let item = self.item(row);
+                let notes = session.get(&item.id);
+                let acted = |tag: &str| {
+                    notes.is_some_and(|n| {
+                        n.added.contains(tag)
+                            || n.removed.contains(tag)
+                            || n.set_aside.contains(tag)
+                    })
+                };
+                Some(pages::QueueEntry {
+                    rank: rank + 1,
+                    card: self.card(row, None, None),
+                    doubtful: d
+                        .disputed
+                        .iter()
+                        .filter(|t| !acted(&t.tag))
+                        .map(|t| (t.tag.clone(), t.neighbours_carrying))
+                        .collect(),
+                    proposed: d
+                        .proposed
+                        .iter()
+                        .filter(|t| !acted(&t.tag))
+                        .map(|t| (t.tag.clone(), t.probability))
+                        .collect(),
+                    changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),
+                })
+            })
+            .collect();
+        drop(session);
+        let view = pages::QueueView {
+            judged: disputes.len(),
+            flagged: flagged.len(),
+            page,
+            pages: pages_total,
+            entries,
+            token: self.writable_token(),
+        };
+        self.page(200, pages::review(&view))
+    }
+
+    fn jpeg(&self, row: usize, size: Rendition) -> Reply {
+        match self.renditions.jpeg(self.item(row), size) {
+            Ok(bytes) => {
+                let mut reply = Reply::new(200, JPEG, bytes);
+                reply.max_age = Some(3600);
+                reply
+            }
+            Err(error @ ServeError::PictureGone { .. }) => {
+                self.message(404, "Picture gone", &error.to_string())
+            }
+            Err(error) => self.failed(&error),
+        }
+    }
+
+    /// Writes one accepted or removed tag into the picture's sidecars, the way `apply`
+    /// does, and shows what was written.
+    fn change_tags(&self, row: usize, form: &[(String, String)]) -> Reply {
+        let item = self.item(row);
+        let add = first(form, "add").map(str::trim).filter(|t| !t.is_empty());
+        let remove = first(form, "remove")
+            .map(str::trim)
+            .filter(|t| !t.is_empty());
+        let (spelling, adding) = match (add, remove) {
+            (Some(t), None) => (t, true),
+            (None, Some(t)) => (t, false),
+            _ => {
+                return self.message(
+                    400,
+                    "Which tag?",
+                    "Send exactly one tag, to add or to remove.",
+                )
+            }
+        };
+        let normal = match normalize_tag(spelling) {
+            Some(n) if n.chars().count() <= TAG_MAX => n,
+            _ => {
+                return self.message(
+                    400,
+                    "Not a tag",
+                    &format!("A tag has 1 to {TAG_MAX} characters besides spaces."),
+                )
+            }
+        };
+        let change = TagChange {
+            picture: item.rel_path.clone(),
+            add: if adding {
+                vec![spelling.to_string()]
+            } else {
+                Vec::new()
+            },
+            remove: if adding {
+                Vec::new()
+            } else {
+                vec![spelling.to_string()]
+            },
+        };
+        let mut session = self.session();
+        let planned = Planner::new(
+            &self.root,
+            &CrawlOptions {
+                skip_dirs: vec![self.store.dir().to_path_buf()],
+                ..CrawlOptions::default()
+            },
+        )
+        .and_then(|planner| planner.plan(&change));
+        let plan = match planned.and_then(|plan| commit_plan(&plan).map(|()| plan)) {
+            Ok(plan) => plan,
+            Err(error) => return self.message(409, "Not written", &error.to_string()),
+        };
+        let notes = session.entry(item.id.clone()).or_default();
+        if adding {
+            notes.removed.remove(&normal);
+            notes.added.insert(normal.clone());
+        } else {
+            notes.added.remove(&normal);
+            notes.removed.insert(normal.clone());
+        }
+        drop(session);
+        let written = Written {
+            card: self.card(row, None, None),
+            tag: normal,
+            adding,
+            edits: plan
+                .edits
+                .iter()
+                .map(|e| pages::WrittenFile {
+                    sidecar: e.sidecar_rel.clone(),
+                    created: e.created,
+                    original: (!e.created).then(|| {
+                        original_path(std::path::Path::new(&e.sidecar_rel))
+                            .to_string_lossy()
+                            .into_owned()
+                    }),
+                    diff: diff(e),
+                })
+                .collect(),
+            already: !plan.already_present.is_empty() || !plan.not_present.is_empty(),
+            back: back_link(form, &item.id),
+        };
+        self.page(200, pages::written(&written))
+    }
+
+    /// Sets a suggestion or doubt aside for this session (nothing is written), then goes
+    /// back to the page the button was on.
+    fn set_aside(&self, row: usize, form: &[(String, String)]) -> Reply {
+        let item = self.item(row);
+        let Some(tag) = first(form, "tag").and_then(normalize_tag) else {
+            return self.message(400, "Which tag?", "Send the tag to set aside.");
+        };
+        self.session()
+            .entry(item.id.clone())
+            .or_default()
+            .set_aside
+            .insert(tag);
+        let mut reply = Reply::new(303, HTML, Vec::new());
+        reply.location = Some(back_link(form, &item.id));
+        reply
+    }
+}
+
+fn form(body: &[u8]) -> Vec<(String, String)> {
+    pairs(&String::from_utf8_lossy(body))
+}
+
+fn limit_of(query: &[(String, String)]) -> usize {
+    first(query, "limit")
+        .and_then(|l| l.parse::<usize>().ok())
+        .unwrap_or(GRID)
+        .clamp(1, GRID_MAX)
+}
+
+/// Where a form's "back" goes: the review queue (at its page) or the picture's page.
+/// Built from a fixed word, a number and the id, never echoed from the request.
+fn back_link(form: &[(String, String)], id: &str) -> String {
+    match first(form, "back") {
+        Some("review") => {
+            let page = first(form, "page")
+                .and_then(|p| p.parse::<usize>().ok())
+                .unwrap_or(1);
+            format!("/review?page={page}")
+        }
+        _ => format!("/picture/{id}"),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn back_links_never_echo_the_request() {
+        let f = |s: &str| pairs(s);
+        assert_eq!(
+            back_link(&f("back=review&page=3"), "00000000000000ab"),
+            "/review?page=3"
+        );
+        assert_eq!(
+            back_link(&f("back=review&page=x"), "00000000000000ab"),
+            "/review?page=1"
+        );
+        assert_eq!(
+            back_link(&f("back=https%3A%2F%2Fevil.example"), "00000000000000ab"),
+            "/picture/00000000000000ab"
+        );
+        assert_eq!(
+            back_link(&f(""), "00000000000000ab"),
+            "/picture/00000000000000ab"
+        );
+    }
+
+    #[test]
+    fn grid_sizes_are_bounded() {
+        assert_eq!(limit_of(&pairs("")), GRID);
+        assert_eq!(limit_of(&pairs("limit=5")), 5);
+        assert_eq!(limit_of(&pairs("limit=0")), 1);
+        assert_eq!(limit_of(&pairs("limit=999999999")), GRID_MAX);
+        assert_eq!(limit_of(&pairs("limit=-3")), GRID);
+    }
+}

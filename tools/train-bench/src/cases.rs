@@ -1,0 +1,290 @@
+//! The measured cases: the digits set at scikit-learn's example sizes, then tool-sized
+//! shapes and the joint model's picture layer.
+
+use std::hint::black_box;
+use std::time::Instant;
+
+use anyhow::{Context, Result};
+use ndarray::linalg::general_mat_mul;
+use ndarray::{s, Array2, ArrayView2, Axis};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+use tagweave_model::{train, BinaryRbm, GaussianBernoulliRbm, Rbm, TrainOptions, VisibleUnits};
+
+use crate::{median, Row};
+
+#[derive(Clone, Copy)]
+pub enum Units {
+    Binary,
+    Gaussian,
+}
+
+pub struct Case {
+    pub name: String,
+    units: Units,
+    data: Data,
+    hidden: usize,
+    opts: TrainOptions,
+}
+
+#[derive(Clone, Copy)]
+enum Data {
+    Digits,
+    /// Rows × visible; binary at density 0.2 or standard normal.
+    Random {
+        rows: usize,
+        visible: usize,
+    },
+}
+
+/// The 1,797 UCI optical digits (8×8, values 0–16), scaled to [0, 1] as scikit-learn's
+/// RBM example does.
+fn digits() -> Result<Array2<f32>> {
+    let text = include_str!("../../../crates/model/testdata/digits.csv");
+    let mut values = Vec::new();
+    for (n, line) in text.lines().enumerate().skip(1) {
+        for x in line.split(',').take(64) {
+            let v: f32 = x
+                .parse()
+                .with_context(|| format!("digits.csv line {}: bad pixel {x:?}", n + 1))?;
+            values.push(v / 16.0);
+        }
+    }
+    Ok(Array2::from_shape_vec((values.len() / 64, 64), values)?)
+}
+
+fn random_rows(units: Units, rows: usize, visible: usize, seed: u64) -> Array2<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    match units {
+        Units::Binary => {
+            Array2::from_shape_simple_fn((rows, visible), || f32::from(rng.random::<f32>() < 0.2))
+        }
+        Units::Gaussian => Array2::from_shape_simple_fn((rows, visible), || {
+            // Sum of 12 uniforms − 6: unit variance, close enough to normal for timing.
+            (0..12).map(|_| rng.random::<f32>()).sum::<f32>() - 6.0
+        }),
+    }
+}
+
+pub fn all(rows: usize, epochs: usize) -> Vec<Case> {
+    let digits_opts = TrainOptions {
+        epochs: 20,
+        batch_size: 64,
+        learning_rate: 0.05,
+        ..TrainOptions::default()
+    };
+    // scikit-learn's BernoulliRBM: persistent CD-1, no momentum, no weight decay.
+    let like_sklearn = TrainOptions {
+        persistent: true,
+        initial_momentum: 0.0,
+        final_momentum: 0.0,
+        weight_decay: 0.0,
+        ..digits_opts.clone()
+    };
+    let mut cases = vec![
+        Case {
+            name: "digits".into(),
+            units: Units::Binary,
+            data: Data::Digits,
+            hidden: 256,
+            opts: digits_opts,
+        },
+        Case {
+            name: "digits-pcd".into(),
+            units: Units::Binary,
+            data: Data::Digits,
+            hidden: 256,
+            opts: like_sklearn,
+        },
+    ];
+    let shaped = |units, name: &str, rows, visible, hidden, batch, lr| Case {
+        name: name.into(),
+        units,
+        data: Data::Random { rows, visible },
+        hidden,
+        opts: TrainOptions {
+            epochs,
+            batch_size: batch,
+            learning_rate: lr,
+            ..TrainOptions::default()
+        },
+    };
+    cases.push(shaped(
+        Units::Gaussian,
+        "tool-gauss",
+        rows,
+        1024,
+        1024,
+        256,
+        0.001,
+    ));
+    cases.push(shaped(
+        Units::Binary,
+        "tool-binary",
+        rows,
+        1024,
+        1024,
+        256,
+        0.05,
+    ));
+    for batch in [32, 64, 256] {
+        cases.push(shaped(
+            Units::Gaussian,
+            &format!("joint-b{batch}"),
+            rows / 2,
+            3700,
+            512,
+            batch,
+            0.001,
+        ));
+    }
+    cases
+}
+
+impl Case {
+    pub fn run(&self) -> Result<Row> {
+        let data = match self.data {
+            Data::Digits => digits()?,
+            Data::Random { rows, visible } => random_rows(self.units, rows, visible, 1),
+        };
+        let (n, visible) = data.dim();
+        let (epoch_ms, reconstruction_error, weights) = match self.units {
+            Units::Binary => {
+                let mut rbm = BinaryRbm::new(visible, self.hidden, 0.01, 0);
+                let ms = timed_train(&mut rbm, data.view(), &self.opts)?;
+                (ms, rbm.reconstruction_error(data.view()), rbm.weights)
+            }
+            Units::Gaussian => {
+                let mut rbm = GaussianBernoulliRbm::new(visible, self.hidden, 0.01, 0);
+                let ms = timed_train(&mut rbm, data.view(), &self.opts)?;
+                (ms, rbm.reconstruction_error(data.view()), rbm.weights)
+            }
+        };
+        let ms_per_epoch = median(epoch_ms);
+
+        let persistent = self.opts.persistent;
+        let products_per_step = if persistent { 6 } else { 5 };
+        // Every product is rows·v·h multiply–adds per epoch, summed over the batches.
+        let gflop_per_epoch =
+            products_per_step as f64 * 2.0 * (n * visible * self.hidden) as f64 / 1e9;
+        let passes = self.opts.epochs.clamp(3, 5);
+        let gemm: Vec<f64> = (0..passes)
+            .map(|_| gemm_epoch(data.view(), &weights, self.opts.batch_size, persistent, dot))
+            .collect();
+        let gemm_ms_per_epoch = median(gemm);
+        let split: Vec<f64> = (0..passes)
+            .map(|_| {
+                gemm_epoch(
+                    data.view(),
+                    &weights,
+                    self.opts.batch_size,
+                    persistent,
+                    split_dot,
+                )
+            })
+            .collect();
+        let split_ms_per_epoch = median(split);
+        let gflops = gflop_per_epoch / ms_per_epoch * 1e3;
+        let gemm_gflops = gflop_per_epoch / gemm_ms_per_epoch * 1e3;
+        Ok(Row {
+            name: self.name.clone(),
+            units: match self.units {
+                Units::Binary => "binary",
+                Units::Gaussian => "gaussian",
+            },
+            method: if persistent { "PCD-1" } else { "CD-1" },
+            rows: n,
+            batch: self.opts.batch_size,
+            visible,
+            hidden: self.hidden,
+            epochs: self.opts.epochs,
+            ms_per_epoch,
+            products_per_step,
+            gflop_per_epoch,
+            gflops,
+            gemm_ms_per_epoch,
+            gemm_gflops,
+            ratio: gflops / gemm_gflops,
+            split_gemm_gflops: gflop_per_epoch / split_ms_per_epoch * 1e3,
+            split_ratio: ms_per_epoch.recip() * split_ms_per_epoch,
+            reconstruction_error,
+        })
+    }
+}
+
+/// Trains and returns each epoch's wall time in milliseconds.
+fn timed_train<V: VisibleUnits>(
+    rbm: &mut Rbm<V>,
+    data: ArrayView2<f32>,
+    opts: &TrainOptions,
+) -> Result<Vec<f64>> {
+    let mut epoch_ms = Vec::new();
+    let mut last = Instant::now();
+    train(rbm, data, None, opts, &mut |_| {
+        epoch_ms.push(last.elapsed().as_secs_f64() * 1e3);
+        last = Instant::now();
+    })?;
+    Ok(epoch_ms)
+}
+
+/// One epoch's worth of a CD-1 step's products with `mul`, in milliseconds:
+/// v→h, h→v (through Wᵀ), v'→h', and the two gradient products vᵀh; PCD adds the
+/// chains' own v→h. Operands are contiguous batches, so nothing but the products is timed.
+fn gemm_epoch(
+    data: ArrayView2<f32>,
+    w: &Array2<f32>,
+    batch: usize,
+    persistent: bool,
+    mul: fn(ArrayView2<f32>, ArrayView2<f32>) -> Array2<f32>,
+) -> f64 {
+    let chains = data.slice(s![..batch.min(data.nrows()), ..]).to_owned();
+    let (w, wt) = (w.view(), w.t());
+    let start = Instant::now();
+    for x in data.axis_chunks_iter(Axis(0), batch) {
+        let h0 = mul(x, w);
+        let vk = if persistent {
+            mul(mul(chains.view(), w).view(), wt)
+        } else {
+            mul(h0.view(), wt)
+        };
+        let hk = mul(vk.view(), w);
+        let g0 = mul(x.t(), h0.view());
+        let gk = mul(vk.t(), hk.view());
+        black_box((g0, gk));
+    }
+    start.elapsed().as_secs_f64() * 1e3
+}
+
+/// Plain ndarray product (matrixmultiply, one thread).
+fn dot(a: ArrayView2<f32>, b: ArrayView2<f32>) -> Array2<f32> {
+    a.dot(&b)
+}
+
+/// The same product with the output's longer side cut into one block per rayon thread:
+/// the most a product can get from this machine's cores without another GEMM library.
+fn split_dot(a: ArrayView2<f32>, b: ArrayView2<f32>) -> Array2<f32> {
+    let (m, n) = (a.nrows(), b.ncols());
+    let mut c = Array2::zeros((m, n));
+    let threads = rayon::current_num_threads().max(1);
+    if n >= m {
+        let width = n.div_ceil(threads).max(1);
+        let pieces: Vec<_> = c
+            .axis_chunks_iter_mut(Axis(1), width)
+            .zip(b.axis_chunks_iter(Axis(1), width))
+            .collect();
+        pieces
+            .into_par_iter()
+            .for_each(|(mut c, b)| general_mat_mul(1.0, &a, &b, 0.0, &mut c));
+    } else {
+        let width = m.div_ceil(threads).max(1);
+        let pieces: Vec<_> = c
+            .axis_chunks_iter_mut(Axis(0), width)
+            .zip(a.axis_chunks_iter(Axis(0), width))
+            .collect();
+        pieces
+            .into_par_iter()
+            .for_each(|(mut c, a)| general_mat_mul(1.0, &a, &b, 0.0, &mut c));
+    }
+    c
+}
