@@ -4,8 +4,9 @@
 //! callback. Everything random is driven by seeded ChaCha generators and split into
 //! fixed row chunks, so results do not depend on the number of rayon threads.
 //!
-//! Layers: [`BinaryRbm`] (tags, upper layers) and [`GaussianBernoulliRbm`]
-//! (standardised picture features); one trainer ([`train`]) for both; check values
+//! Layers: [`BinaryRbm`] (tags, upper layers), [`GaussianBernoulliRbm`]
+//! (standardised picture features) and [`ReplicatedSoftmaxRbm`] (a bag of tags as
+//! draws from one softmax); one trainer ([`train`]) for all three; check values
 //! for tiny models ([`log_partition_exact`], [`log_likelihood_exact`],
 //! [`log_likelihood_gradient_exact`]) and an AIS estimate of log Z
 //! ([`log_partition_ais`]) for models too large to enumerate. [`JointModel`] stacks
