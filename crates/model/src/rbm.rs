@@ -106,6 +106,30 @@ pub struct Rbm<V: VisibleUnits> {
     units: PhantomData<V>,
 }
 
+/// Weights drawn N(0, weight_std²) from a generator seeded with `seed`: every RBM kind
+/// starts this way.
+pub(crate) fn random_weights(
+    n_visible: usize,
+    n_hidden: usize,
+    weight_std: f32,
+    seed: u64,
+) -> Array2<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    Array2::from_shape_simple_fn((n_visible, n_hidden), || {
+        weight_std * standard_normal(&mut rng)
+    })
+}
+
+/// Panics when the bias lengths do not match the weight matrix (a programming error).
+pub(crate) fn assert_shapes(
+    weights: &Array2<f32>,
+    visible_bias: &Array1<f32>,
+    hidden_bias: &Array1<f32>,
+) {
+    assert_eq!(weights.nrows(), visible_bias.len(), "visible bias length");
+    assert_eq!(weights.ncols(), hidden_bias.len(), "hidden bias length");
+}
+
 /// Bernoulli visible, Bernoulli hidden: tags and upper layers.
 pub type BinaryRbm = Rbm<Bernoulli>;
 /// Gaussian (unit-variance) visible, Bernoulli hidden: standardised picture features.
@@ -115,11 +139,11 @@ impl<V: VisibleUnits> Rbm<V> {
     /// Small random weights N(0, weight_std²) and zero biases (Hinton's guide suggests
     /// weight_std ≈ 0.01 so hidden units start near 0.5 and learn different features).
     pub fn new(n_visible: usize, n_hidden: usize, weight_std: f32, seed: u64) -> Self {
-        let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let weights = Array2::from_shape_simple_fn((n_visible, n_hidden), || {
-            weight_std * standard_normal(&mut rng)
-        });
-        Self::from_parts(weights, Array1::zeros(n_visible), Array1::zeros(n_hidden))
+        Self::from_parts(
+            random_weights(n_visible, n_hidden, weight_std, seed),
+            Array1::zeros(n_visible),
+            Array1::zeros(n_hidden),
+        )
     }
 
     /// Assemble a model from known parameters.
@@ -131,8 +155,7 @@ impl<V: VisibleUnits> Rbm<V> {
         visible_bias: Array1<f32>,
         hidden_bias: Array1<f32>,
     ) -> Self {
-        assert_eq!(weights.nrows(), visible_bias.len(), "visible bias length");
-        assert_eq!(weights.ncols(), hidden_bias.len(), "hidden bias length");
+        assert_shapes(&weights, &visible_bias, &hidden_bias);
         Self {
             weights,
             visible_bias,

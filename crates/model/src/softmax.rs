@@ -11,13 +11,13 @@
 //! rows of any length: binary units over tags would instead treat "few tags" as evidence.
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
-use rand::{Rng, RngCore, SeedableRng};
+use rand::{Rng, RngCore};
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
 use crate::rbm::{
-    bernoulli_in_place, exp_approx, for_each_row, for_each_row_seeded, hidden_activation, par_gemm,
-    softplus, squared_error, standard_normal,
+    assert_shapes, bernoulli_in_place, exp_approx, for_each_row, for_each_row_seeded,
+    hidden_activation, par_gemm, random_weights, softplus, squared_error,
 };
 use crate::train::{sealed, Trainable};
 use crate::{ModelError, MAX_EXACT_HIDDEN};
@@ -37,11 +37,11 @@ pub struct ReplicatedSoftmaxRbm {
 impl ReplicatedSoftmaxRbm {
     /// Small random weights N(0, weight_std²) and zero biases, as for [`crate::Rbm::new`].
     pub fn new(n_visible: usize, n_hidden: usize, weight_std: f32, seed: u64) -> Self {
-        let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let weights = Array2::from_shape_simple_fn((n_visible, n_hidden), || {
-            weight_std * standard_normal(&mut rng)
-        });
-        Self::from_parts(weights, Array1::zeros(n_visible), Array1::zeros(n_hidden))
+        Self::from_parts(
+            random_weights(n_visible, n_hidden, weight_std, seed),
+            Array1::zeros(n_visible),
+            Array1::zeros(n_hidden),
+        )
     }
 
     /// Assemble a model from known parameters.
@@ -53,8 +53,7 @@ impl ReplicatedSoftmaxRbm {
         visible_bias: Array1<f32>,
         hidden_bias: Array1<f32>,
     ) -> Self {
-        assert_eq!(weights.nrows(), visible_bias.len(), "visible bias length");
-        assert_eq!(weights.ncols(), hidden_bias.len(), "hidden bias length");
+        assert_shapes(&weights, &visible_bias, &hidden_bias);
         Self {
             weights,
             visible_bias,
@@ -355,8 +354,10 @@ fn ln_factorial(n: u64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::rbm::standard_normal;
     use crate::{train, TrainOptions};
     use ndarray::{array, Axis};
+    use rand::SeedableRng;
 
     /// Hand-built 3 words × 2 hidden model.
     /// W = [[1, −1], [0.5, 2], [−2, 0]], b = [0.2, −0.1, 0.3], a = [0.1, −0.4].
