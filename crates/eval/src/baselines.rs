@@ -289,10 +289,15 @@ impl KnnScorer {
     /// A kNN with `k` already chosen (e.g. by an earlier `fit` on the same kind of
     /// data), ready to score: no cross-validation.
     pub fn with_fixed_k(k: usize, train: &TrainSet) -> Self {
+        KnnScorer::fitted(vec![k], k, unit_rows(train.features), train)
+    }
+
+    /// Ready to score: `unit` = the train features scaled to unit length.
+    fn fitted(candidates: Vec<usize>, k: usize, unit: Array2<f32>, train: &TrainSet) -> Self {
         KnnScorer {
-            candidates: vec![k],
+            candidates,
             k: Some(k),
-            train_unit: unit_rows(train.features),
+            train_unit: unit,
             train_tags: train.tags.to_vec(),
             frequency: tag_frequencies(train.tags.iter(), train.n_tags).to_vec(),
         }
@@ -332,9 +337,9 @@ impl TagScorer for KnnScorer {
                 })
                 .collect())
         })?;
+        let k = self.candidates[choice];
         let candidates = std::mem::take(&mut self.candidates);
-        *self = KnnScorer::with_fixed_k(candidates[choice], train);
-        self.candidates = candidates;
+        *self = KnnScorer::fitted(candidates, k, unit, train);
         Ok(())
     }
 

@@ -97,8 +97,10 @@ pub struct Queries {
     items: Vec<ItemRecord>,
     /// Their features, scaled for the model (same row order).
     scaled: Array2<f32>,
-    row_of_id: HashMap<String, usize>,
     codes: CodeIndex,
+    /// Item row of each code-index row (the index is in id order, items in path order);
+    /// built once at open, not per query: at a million pictures it is a million lookups.
+    item_of_code: Vec<Option<usize>>,
     neighbours: KnnScorer,
     /// For each item row, its row among the neighbours' pictures (tagged ones only).
     neighbour_row: Vec<Option<usize>>,
@@ -125,6 +127,9 @@ impl Queries {
             }
         }
         let codes = CodeIndex::load(store, CODES, &model.hash_thresholds)?;
+        let item_of_code = (0..codes.len())
+            .map(|r| row_of_id.get(codes.id(r)).copied())
+            .collect();
         let tag_column = model
             .vocabulary
             .iter()
@@ -136,8 +141,8 @@ impl Queries {
             extractor: store.blob(EXTRACTOR_BLOB)?,
             items: table.items,
             scaled,
-            row_of_id,
             codes,
+            item_of_code,
             neighbours,
             neighbour_row,
             tag_column,
@@ -330,10 +335,7 @@ impl Queries {
         } else {
             SearchMode::default()
         };
-        // Code-index rows → item rows (the index is in id order, items in path order).
-        let item_of_code: Vec<Option<usize>> = (0..self.codes.len())
-            .map(|r| self.row_of_id.get(self.codes.id(r)).copied())
-            .collect();
+        let item_of_code = &self.item_of_code;
         let hits = self.codes.search_where(query, ranking.limit, mode, |r| {
             item_of_code[r].is_some_and(|i| {
                 Some(i) != skip && (!ranking.untagged_only || self.items[i].tags.is_empty())
