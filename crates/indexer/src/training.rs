@@ -309,21 +309,26 @@ fn model_error(source: tagweave_model::ModelError) -> tagweave_eval::EvalError {
 
 impl TrainedModel {
     /// The store's model; `None` before the first `tagweave train`.
+    ///
+    /// Read once; only when that fails is the format number read on its own, so that
+    /// a model of another shape is reported as "train again", not as damage.
     pub fn load(store: &Store) -> Result<Option<TrainedModel>, IndexError> {
         #[derive(Deserialize)]
         struct FormatOnly {
             format: u32,
         }
-        let Some(header) = store.blob::<FormatOnly>(MODEL_BLOB)? else {
-            return Ok(None);
+        let outdated = |found| IndexError::ModelFormat {
+            found,
+            expected: MODEL_FORMAT,
         };
-        if header.format != MODEL_FORMAT {
-            return Err(IndexError::ModelFormat {
-                found: header.format,
-                expected: MODEL_FORMAT,
-            });
+        match store.blob::<TrainedModel>(MODEL_BLOB) {
+            Ok(Some(model)) if model.format != MODEL_FORMAT => Err(outdated(model.format)),
+            Ok(model) => Ok(model),
+            Err(error) => match store.blob::<FormatOnly>(MODEL_BLOB) {
+                Ok(Some(header)) if header.format != MODEL_FORMAT => Err(outdated(header.format)),
+                _ => Err(error.into()),
+            },
         }
-        Ok(store.blob(MODEL_BLOB)?)
     }
 
     /// Raw feature rows (as stored) scaled for the model.
