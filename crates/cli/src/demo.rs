@@ -111,6 +111,7 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
         json: false,
         markdown: false,
         tag_layer: crate::eval::TagLayerChoice::Binary,
+        mean_field_steps: tagweave_model::JointOptions::default().mean_field_steps,
     })?;
     println!();
     println!(

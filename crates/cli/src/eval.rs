@@ -47,6 +47,10 @@ pub struct EvalArgs {
     /// How the joint model's tag pathway sees a bag of tags (an experiment switch).
     #[arg(long, value_enum, default_value_t = TagLayerChoice::Binary)]
     pub tag_layer: TagLayerChoice,
+    /// Mean-field steps of the joint model's fill-in (an experiment switch; the default
+    /// is the one `train` uses).
+    #[arg(long, value_name = "N", default_value_t = JointOptions::default().mean_field_steps)]
+    pub mean_field_steps: usize,
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -88,7 +92,7 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         train_fraction: args.train_fraction,
         ..EvalOptions::default()
     };
-    let mut methods = all_methods(args.tag_layer);
+    let mut methods = all_methods(args.tag_layer, args.mean_field_steps);
     let bar = progress::bar("evaluating");
     let mut on_progress = |event: Progress| {
         let (done, total) = match event {
@@ -143,13 +147,14 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
 }
 
 /// The baselines and tagweave's joint model, in report order.
-fn all_methods(tag_layer: TagLayerChoice) -> Vec<Box<dyn TagScorer>> {
+fn all_methods(tag_layer: TagLayerChoice, mean_field_steps: usize) -> Vec<Box<dyn TagScorer>> {
     let mut all = baselines();
     all.push(Box::new(JointScorer::with_options(JointOptions {
         tag_units: match tag_layer {
             TagLayerChoice::Binary => TagUnits::Binary,
             TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
         },
+        mean_field_steps,
         ..JointOptions::default()
     })));
     all

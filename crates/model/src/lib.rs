@@ -33,7 +33,8 @@ pub use joint::{
     FineTuneReport, JointModel, JointOptions, JointProgress, JointSummary, TagLayer, TagUnits,
 };
 pub use rbm::{
-    Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits, SAMPLE_CHUNK_ROWS,
+    matmul, Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits,
+    SAMPLE_CHUNK_ROWS,
 };
 pub use softmax::ReplicatedSoftmaxRbm;
 pub use train::{

@@ -1,6 +1,7 @@
 //! Measures tagweave's RBM trainer: time per epoch, the GFLOP/s its matrix products reach,
-//! and beside it a plain ndarray `dot` of the same shapes in the same run (the ratio says
-//! how much of a step goes to anything but the products).
+//! and beside it a plain ndarray `dot` of the same shapes in the same run, and the same
+//! products through the trainer's own `matmul` (the ratio to that says how much of a step
+//! goes to anything but the counted products).
 //!
 //!   train-bench [--json] [--epochs 3] [--rows 4096] [--only NAME]
 //!
@@ -63,6 +64,10 @@ pub struct Row {
     pub split_gemm_gflops: f64,
     /// gflops / split_gemm_gflops.
     pub split_ratio: f64,
+    /// The same products through the trainer's own `matmul` (AVX-512 for small shapes).
+    pub own_gemm_gflops: f64,
+    /// gflops / own_gemm_gflops: the share of a step spent in its counted products.
+    pub own_ratio: f64,
     /// Mean-field reconstruction MSE over the training rows after the last epoch.
     pub reconstruction_error: f32,
 }
@@ -107,16 +112,18 @@ fn main() -> Result<()> {
 
 fn print_table(report: &Report) {
     println!(
-        "rayon threads: {} (dot = ndarray/matrixmultiply on 1 thread; split dot = the same cut into one block per thread)",
+        "rayon threads: {} (dot = ndarray/matrixmultiply on 1 thread; split dot = the same cut into one block per thread; own = the trainer's matmul)",
         report.threads
     );
     println!(
-        "| case | method | batch | v×h | ms/epoch | GFLOP/epoch | GFLOP/s | dot ms/epoch | dot GFLOP/s | ratio | split dot GFLOP/s | ratio to split | recon. MSE |"
+        "| case | method | batch | v×h | ms/epoch | GFLOP/epoch | GFLOP/s | dot ms/epoch | dot GFLOP/s | ratio | split dot GFLOP/s | ratio to split | own GFLOP/s | ratio to own | recon. MSE |"
     );
-    println!("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |");
+    println!(
+        "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |"
+    );
     for r in &report.rows {
         println!(
-            "| {} | {} | {} | {}×{} | {:.1} | {:.2} | {:.1} | {:.1} | {:.1} | {:.2} | {:.1} | {:.2} | {:.4} |",
+            "| {} | {} | {} | {}×{} | {:.1} | {:.2} | {:.1} | {:.1} | {:.1} | {:.2} | {:.1} | {:.2} | {:.1} | {:.2} | {:.4} |",
             r.name,
             r.method,
             r.batch,
@@ -130,6 +137,8 @@ fn print_table(report: &Report) {
             r.ratio,
             r.split_gemm_gflops,
             r.split_ratio,
+            r.own_gemm_gflops,
+            r.own_ratio,
             r.reconstruction_error,
         );
     }
