@@ -332,6 +332,36 @@ fn build_corpus(root: &Path, port: u16, secret: &Path) -> Vec<Case> {
     cases
 }
 
+/// `skipped_files` of a `scan --json` report as (path, reason) pairs, after checking that
+/// it lists as many files as `skipped` counts and that a bad sidecar's entry names its
+/// sidecar (same stem as the picture) while no other entry names one.
+fn listed_skips(report: &serde_json::Value) -> BTreeSet<(String, String)> {
+    let entries = report["skipped_files"].as_array().expect("skipped_files");
+    let counted: u64 = report["skipped"]
+        .as_object()
+        .unwrap()
+        .values()
+        .map(|v| v.as_u64().unwrap())
+        .sum();
+    assert_eq!(entries.len() as u64, counted, "{report}");
+    let mut listed = BTreeSet::new();
+    for entry in entries {
+        let path = entry["path"].as_str().unwrap().to_string();
+        let reason = entry["reason"].as_str().unwrap().to_string();
+        assert!(!entry["message"].as_str().unwrap().is_empty(), "{entry}");
+        match entry.get("sidecar") {
+            Some(sidecar) => {
+                assert_eq!(reason, "bad sidecar", "{entry}");
+                let stem = |p: &str| Path::new(p).with_extension("");
+                assert_eq!(stem(sidecar.as_str().unwrap()), stem(&path), "{entry}");
+            }
+            None => assert_ne!(reason, "bad sidecar", "{entry}"),
+        }
+        assert!(listed.insert((path, reason)), "listed twice: {entry}");
+    }
+    listed
+}
+
 /// The summary lines (skips and notes) that name `file`.
 fn lines_naming<'t>(text: &'t str, file: &str) -> Vec<&'t str> {
     let key = format!("/{file}:");
@@ -374,6 +404,15 @@ fn every_kind_of_bad_input_is_named_counted_and_passed_over() {
         .map(|(k, v)| (k.clone(), v.as_u64().unwrap()))
         .collect();
     assert_eq!(counted, expected_skips, "{report}");
+    // ...and listed file by file, relative to the folder, with the same reason words.
+    let expected_listed: BTreeSet<(String, String)> = cases
+        .iter()
+        .filter_map(|case| match case.expect {
+            Expect::Skipped { label, .. } => Some((case.file.to_string(), label.to_string())),
+            _ => None,
+        })
+        .collect();
+    assert_eq!(listed_skips(&report), expected_listed, "{report}");
 
     // The run went on: every acceptable picture is indexed and described, no other.
     let expected_items: BTreeMap<&str, usize> = cases
@@ -602,6 +641,14 @@ fn followed_symlink_loops_and_dangling_links_are_named_and_skipped() {
         serde_json::json!({"symlink loop": 1, "unreadable": 1}),
         "{report}"
     );
+    assert_eq!(
+        listed_skips(&report),
+        BTreeSet::from([
+            ("dangling.jpg".to_string(), "unreadable".to_string()),
+            ("sub/loop".to_string(), "symlink loop".to_string()),
+        ]),
+        "{report}"
+    );
     let text = stdout_of(&tagweave(
         root,
         &["scan", ".", "--verbose", "--follow-symlinks"],
@@ -797,6 +844,15 @@ fn unreadable_files_and_folders_are_named_and_skipped() {
     assert_eq!(
         report["skipped"],
         serde_json::json!({"unreadable": 2, "bad sidecar": 1}),
+        "{report}"
+    );
+    assert_eq!(
+        listed_skips(&report),
+        BTreeSet::from([
+            ("locked-folder".to_string(), "unreadable".to_string()),
+            ("locked-sidecar.jpg".to_string(), "bad sidecar".to_string()),
+            ("unreadable.jpg".to_string(), "unreadable".to_string()),
+        ]),
         "{report}"
     );
     let text = stdout_of(&listing);

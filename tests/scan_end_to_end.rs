@@ -182,6 +182,31 @@ fn bad_files_are_named_counted_and_passed_over() {
     assert_eq!(skipped["sidecar without picture"], 1, "{report}");
     assert_eq!(skipped["damaged picture"], 1, "{report}");
 
+    // The same files, listed one by one for scripts, with the reason words of the counts.
+    let listed: Vec<(&str, &str, Option<&str>)> = report["skipped_files"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|e| {
+            (
+                e["path"].as_str().unwrap(),
+                e["reason"].as_str().unwrap(),
+                e.get("sidecar").map(|s| s.as_str().unwrap()),
+            )
+        })
+        .collect();
+    assert_eq!(
+        listed,
+        [
+            ("cut-short.jpg", "damaged picture", None),
+            ("empty.jpg", "empty file", None),
+            ("latin1.jpg", "bad sidecar", Some("latin1.txt")),
+            ("letter.jpg", "not an image", None),
+            ("lonely.txt", "sidecar without picture", None),
+        ],
+        "{report}"
+    );
+
     let table = tagweave(folder, &["scan", ".", "--verbose"]);
     let text = String::from_utf8_lossy(&table.stdout);
     for name in [
@@ -196,6 +221,102 @@ fn bad_files_are_named_counted_and_passed_over() {
             "{name} is named in the summary:\n{text}"
         );
     }
+}
+
+#[test]
+fn json_lists_skipped_files_relative_to_the_folder() {
+    let temp = tempfile::tempdir().unwrap();
+    let folder = temp.path();
+    let truth = demo_truth();
+    let demo = repo_root().join("demo-collection");
+    let jpegs: Vec<&TruthRow> = truth
+        .iter()
+        .filter(|r| r.file.ends_with(".jpg"))
+        .take(4)
+        .collect();
+    for (i, row) in jpegs.iter().enumerate() {
+        std::fs::copy(demo.join(&row.file), folder.join(format!("good-{i}.jpg"))).unwrap();
+    }
+    let trip = folder.join("trip 2024");
+    std::fs::create_dir(&trip).unwrap();
+    let whole = std::fs::read(demo.join(&jpegs[0].file)).unwrap();
+    std::fs::write(trip.join("cut-short.jpg"), &whole[..whole.len() / 3]).unwrap();
+    std::fs::copy(demo.join(&jpegs[1].file), trip.join("pier.jpg")).unwrap();
+    std::fs::write(
+        trip.join("pier.xmp"),
+        "<rdf:RDF xmlns:rdf=\"http://www.w3.org/1999/02/22-rdf-syntax-ns#\"><rdf:li>x</rdf:Bag>",
+    )
+    .unwrap();
+    #[cfg(unix)]
+    {
+        use std::os::unix::ffi::OsStrExt;
+        let name = std::ffi::OsStr::from_bytes(b"caf\xe9.jpg");
+        std::fs::copy(demo.join(&jpegs[2].file), trip.join(name)).unwrap();
+    }
+
+    let out = tagweave(folder, &["scan", ".", "--json"]);
+    assert_eq!(out.status.code(), Some(3), "3 = done with skipped files");
+    let report = json(&out);
+    // The fields scripts already read are all still there, and one more.
+    let keys: BTreeSet<&str> = report
+        .as_object()
+        .unwrap()
+        .keys()
+        .map(String::as_str)
+        .collect();
+    let expected_keys: BTreeSet<&str> = [
+        "items",
+        "tagged",
+        "untagged",
+        "tags",
+        "added",
+        "refreshed",
+        "unchanged",
+        "removed",
+        "other_files",
+        "skipped",
+        "features",
+        "coded",
+        "seconds",
+        "skipped_files",
+    ]
+    .into();
+    assert_eq!(keys, expected_keys, "{report}");
+    assert_eq!(report["items"], 4, "{report}");
+
+    let mut expected = vec![
+        serde_json::json!({"path": "trip 2024/cut-short.jpg", "reason": "damaged picture"}),
+        serde_json::json!({"path": "trip 2024/pier.jpg", "reason": "bad sidecar",
+                           "sidecar": "trip 2024/pier.xmp"}),
+    ];
+    if cfg!(unix) {
+        // Not UTF-8: the invalid byte shows as U+FFFD REPLACEMENT CHARACTER.
+        expected.insert(
+            0,
+            serde_json::json!({"path": "trip 2024/caf\u{fffd}.jpg", "reason": "bad file name"}),
+        );
+    }
+    let listed = report["skipped_files"].as_array().unwrap();
+    let without_messages: Vec<serde_json::Value> = listed
+        .iter()
+        .map(|e| {
+            let mut e = e.clone();
+            let message = e.as_object_mut().unwrap().remove("message");
+            assert!(
+                message.is_some_and(|m| m.as_str().is_some_and(|m| m.contains("skipped"))),
+                "{e}"
+            );
+            e
+        })
+        .collect();
+    assert_eq!(without_messages, expected, "{report}");
+    assert!(
+        listed[listed.len() - 1]["message"]
+            .as_str()
+            .unwrap()
+            .contains("not well-formed"),
+        "{report}"
+    );
 }
 
 #[test]

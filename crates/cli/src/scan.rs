@@ -1,6 +1,8 @@
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
+use serde::Serialize;
+use tagweave_collection::SkipReason;
 use tagweave_indexer::{ScanOptions, ScanProgress, ScanReport};
 use tagweave_store::Store;
 
@@ -37,7 +39,8 @@ pub fn run(args: &ScanArgs) -> anyhow::Result<Outcome> {
     let store = open_for_scan(args)?;
     let report = scan_with_progress(&store, &args.options())?;
     if args.json {
-        println!("{}", serde_json::to_string(&report)?);
+        let json = ScanJson::new(store.collection_root(), &report);
+        println!("{}", serde_json::to_string(&json)?);
     } else {
         print_summary(&store, &report, args.verbose);
     }
@@ -103,6 +106,72 @@ pub fn scan_with_progress(store: &Store, options: &ScanOptions) -> anyhow::Resul
     })?;
     bar.finish_and_clear();
     Ok(report)
+}
+
+/// The `--json` summary: the report's own fields, unchanged, plus every skipped file.
+#[derive(Serialize)]
+struct ScanJson<'r> {
+    #[serde(flatten)]
+    report: &'r ScanReport,
+    /// All of them, never capped (`skipped` counts the same files by reason), sorted by path.
+    skipped_files: Vec<SkippedJson>,
+}
+
+/// One skipped file for scripts.
+#[derive(Serialize, PartialEq, Eq, PartialOrd, Ord)]
+struct SkippedJson {
+    /// Relative to the collection folder, `/`-separated. A name that is not UTF-8 (reason
+    /// "bad file name") is shown lossily: each invalid byte sequence becomes U+FFFD, so
+    /// such a path names the file for a person but may not open it.
+    path: String,
+    /// The key the summary counts it under (`SkipReason::label`), e.g. "damaged picture".
+    reason: &'static str,
+    /// For "bad sidecar": the sidecar that could not be read (the path is its picture).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    sidecar: Option<String>,
+    /// The line `--verbose` prints for it: what went wrong and what to do.
+    message: String,
+}
+
+impl<'r> ScanJson<'r> {
+    fn new(root: &Path, report: &'r ScanReport) -> ScanJson<'r> {
+        let mut skipped_files: Vec<SkippedJson> = report
+            .skipped_files
+            .iter()
+            .map(|skip| SkippedJson {
+                path: relative_name(root, &skip.path),
+                reason: skip.reason.label(),
+                sidecar: match &skip.reason {
+                    SkipReason::BadSidecar { sidecar, .. } => Some(relative_name(root, sidecar)),
+                    _ => None,
+                },
+                message: skip.to_string(),
+            })
+            .collect();
+        skipped_files.sort();
+        ScanJson {
+            report,
+            skipped_files,
+        }
+    }
+}
+
+/// `path` relative to `root`, `/`-separated, lossy where not UTF-8; `.` for the root itself
+/// (a walk error can be reported there). A path outside `root` (the crawl reports none)
+/// is given whole rather than misnamed.
+fn relative_name(root: &Path, path: &Path) -> String {
+    let Ok(relative) = path.strip_prefix(root) else {
+        return path.to_string_lossy().into_owned();
+    };
+    let parts: Vec<_> = relative
+        .components()
+        .map(|part| part.as_os_str().to_string_lossy())
+        .collect();
+    if parts.is_empty() {
+        ".".to_string()
+    } else {
+        parts.join("/")
+    }
 }
 
 /// How many skipped files are listed by name without --verbose.

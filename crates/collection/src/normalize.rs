@@ -2,11 +2,34 @@
 
 use unicode_normalization::UnicodeNormalization;
 
-/// Unicode NFC, trimmed, lower-cased, inner whitespace runs joined by a single `-`.
-/// `None` when nothing is left. Applying it twice changes nothing.
+/// Invisible format characters that make two tags look identical while they differ; they
+/// are dropped wherever they stand. A byte-order mark reaches a tag when an editor writes one
+/// at the top of a sidecar or files are joined; the others come from pasted web text.
+///
+/// U+200D ZERO WIDTH JOINER and U+200C ZERO WIDTH NON-JOINER stay: they change what is shown
+/// (emoji sequences such as U+1F468 U+200D U+1F469, cursive joining in Persian or Indic text).
+// source: Unicode 15.0 Standard, chapter 23 "Special Areas and Format Characters" (23.2
+// Layout Controls: ZWSP, WJ, SHY, ZWJ/ZWNJ; 23.8 Specials: U+FEFF as byte-order mark) and
+// the Unicode Character Database names (UnicodeData.txt); section numbers from memory.
+const INVISIBLE: [char; 4] = [
+    '\u{FEFF}', // ZERO WIDTH NO-BREAK SPACE (byte-order mark)
+    '\u{200B}', // ZERO WIDTH SPACE
+    '\u{2060}', // WORD JOINER
+    '\u{00AD}', // SOFT HYPHEN
+];
+
+/// Unicode NFC without the `INVISIBLE` characters, trimmed, lower-cased, inner whitespace runs
+/// joined by a single `-`. `None` when nothing is left. Applying it twice changes nothing.
 pub fn normalize_tag(raw: &str) -> Option<String> {
+    // Invisibles go first, so marks on either side of one compose under NFC.
+    let visible: String = raw.chars().filter(|c| !INVISIBLE.contains(c)).collect();
     // NFC again after lower-casing: case mapping can yield sequences that compose further.
-    let lowered: String = raw.nfc().collect::<String>().to_lowercase().nfc().collect();
+    let lowered: String = visible
+        .nfc()
+        .collect::<String>()
+        .to_lowercase()
+        .nfc()
+        .collect();
     let joined = lowered.split_whitespace().collect::<Vec<_>>().join("-");
     (!joined.is_empty()).then_some(joined)
 }
@@ -79,12 +102,77 @@ mod tests {
         assert_eq!(normalize_tag(""), None);
     }
 
+    #[test]
+    fn invisible_format_characters_are_dropped_anywhere() {
+        // source: Unicode Character Database (UnicodeData.txt) names and General_Category
+        // Cf: U+FEFF ZERO WIDTH NO-BREAK SPACE, U+200B ZERO WIDTH SPACE, U+2060 WORD JOINER,
+        // U+00AD SOFT HYPHEN; Unicode 15.0 Standard chapter 23 "Special Areas and Format
+        // Characters" (23.2, 23.8). From memory.
+        for invisible in [0xFEFF, 0x200B, 0x2060, 0xAD] {
+            let c = cps(&[invisible]);
+            for raw in [
+                format!("{c}harbour"),
+                format!("har{c}bour"),
+                format!("harbour{c}"),
+                format!("{c}{c}Harbour{c}"),
+            ] {
+                assert_eq!(
+                    normalize_tag(&raw).as_deref(),
+                    Some("harbour"),
+                    "U+{invisible:04X} in {raw:?}"
+                );
+            }
+            assert_eq!(normalize_tag(&c), None, "U+{invisible:04X} alone");
+            assert_eq!(normalize_tag(&format!(" {c} ")), None);
+            // Next to whitespace it leaves one separator, never two.
+            assert_eq!(
+                normalize_tag(&format!("old {c} town")).as_deref(),
+                Some("old-town")
+            );
+        }
+        // A byte-order mark between a letter and its combining mark no longer blocks NFC.
+        assert_eq!(
+            normalize_tag("Cafe\u{FEFF}\u{301}").as_deref(),
+            Some("caf\u{e9}")
+        );
+    }
+
+    #[test]
+    fn joiners_that_change_what_is_shown_are_kept() {
+        // source: Unicode 15.0 Standard chapter 23.2 (ZWJ/ZWNJ) and Unicode Technical
+        // Standard #51, emoji-zwj-sequences.txt: U+1F468 U+200D U+1F469 U+200D U+1F467 is
+        // "family: man, woman, girl". U+200C ZERO WIDTH NON-JOINER inside a Persian word
+        // (U+0645 U+06CC U+200C U+062E U+0648 U+0631 U+0645, "I eat"); from memory.
+        let family = cps(&[0x1F468, 0x200D, 0x1F469, 0x200D, 0x1F467]);
+        assert_eq!(normalize_tag(&family), Some(family.clone()));
+        let persian = cps(&[0x645, 0x6CC, 0x200C, 0x62E, 0x648, 0x631, 0x645]);
+        assert_eq!(normalize_tag(&persian), Some(persian.clone()));
+        assert_ne!(
+            normalize_tag(&family),
+            normalize_tag(&cps(&[0x1F468, 0x1F469, 0x1F467]))
+        );
+    }
+
     proptest! {
+        #[test]
+        fn idempotent_and_invisible_free_on_format_characters(
+            raw in "[a-zA-Z \u{301}\u{AD}\u{200B}\u{200C}\u{200D}\u{2060}\u{FEFF}]{0,24}"
+        ) {
+            if let Some(once) = normalize_tag(&raw) {
+                prop_assert_eq!(normalize_tag(&once), Some(once.clone()));
+                prop_assert!(!once.contains(INVISIBLE), "{:?}", once);
+                // The joiners are never dropped.
+                let joiners = |s: &str| s.chars().filter(|c| matches!(c, '\u{200C}' | '\u{200D}')).count();
+                prop_assert_eq!(joiners(&once), joiners(&raw));
+            }
+        }
+
         #[test]
         fn never_panics_and_is_idempotent(raw in any::<String>()) {
             if let Some(once) = normalize_tag(&raw) {
                 prop_assert_eq!(normalize_tag(&once), Some(once.clone()));
                 prop_assert!(!once.chars().any(char::is_whitespace));
+                prop_assert!(!once.contains(INVISIBLE), "{:?}", once);
             }
         }
 

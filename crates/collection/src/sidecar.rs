@@ -10,7 +10,8 @@ use crate::item::SidecarKind;
 pub use crate::xmp::parse_xmp;
 
 /// Tags of a plain-text sidecar: one per line, commas also separate, `#` comments out the
-/// rest of the line. A leading byte-order mark is ignored.
+/// rest of the line. A leading byte-order mark is the file's and is skipped; one anywhere
+/// else is dropped from its tag by [`normalize_tag`](crate::normalize_tag).
 pub fn parse_text(text: &str) -> Vec<String> {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     let pieces = text.lines().flat_map(|line| {
@@ -95,6 +96,26 @@ mod tests {
     fn text_tolerates_bom_and_crlf() {
         assert_eq!(parse_text("\u{feff}alpha\r\nBeta\r\n"), ["alpha", "beta"]);
         assert!(parse_text("").is_empty());
+        // source: Unicode Character Database name of U+FEFF, ZERO WIDTH NO-BREAK SPACE
+        // (the byte-order mark); two files joined leave one at the start of a later line.
+        assert_eq!(
+            parse_text("\u{feff}harbour\nquay\n\u{feff}harbour, \u{feff}pier\r\n\u{feff}# note\n"),
+            ["harbour", "quay", "pier"]
+        );
+        assert!(parse_text("\u{feff}").is_empty());
+        assert!(parse_text("\u{feff}\u{feff}\n").is_empty());
+    }
+
+    #[test]
+    fn bom_sidecar_file_reads_like_one_without() {
+        let dir = tempfile::tempdir().unwrap();
+        let with = dir.path().join("with.txt");
+        let without = dir.path().join("without.txt");
+        std::fs::write(&with, b"\xEF\xBB\xBFharbour\r\nboats\r\n").unwrap();
+        std::fs::write(&without, b"harbour\nboats\n").unwrap();
+        let read = |p: &Path| read_sidecar(p, SidecarKind::Text).unwrap();
+        assert_eq!(read(&with), ["harbour", "boats"]);
+        assert_eq!(read(&with), read(&without));
     }
 
     #[test]

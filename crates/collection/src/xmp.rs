@@ -327,6 +327,20 @@ mod tests {
     }
 
     #[test]
+    fn byte_order_marks_and_invisibles_do_not_split_a_keyword() {
+        // A BOM before the packet (file level) and U+FEFF / U+200B inside items, written
+        // raw and as character references, all read as the one keyword.
+        // source: Unicode Character Database names: U+FEFF ZERO WIDTH NO-BREAK SPACE,
+        // U+200B ZERO WIDTH SPACE (from memory).
+        let packet = "\u{feff}<rdf:RDF xmlns:rdf=\"http://www.w3.org/1999/02/22-rdf-syntax-ns#\" \
+            xmlns:dc=\"http://purl.org/dc/elements/1.1/\"><rdf:Description><dc:subject><rdf:Bag>\
+            <rdf:li>\u{feff}Harbour</rdf:li><rdf:li>harbour</rdf:li><rdf:li>&#xFEFF;harbour</rdf:li>\
+            <rdf:li>har&#x200B;bour</rdf:li><rdf:li>gull</rdf:li>\
+            </rdf:Bag></dc:subject></rdf:Description></rdf:RDF>";
+        assert_eq!(keywords(packet), ["harbour", "gull"]);
+    }
+
+    #[test]
     fn entity_bomb_is_refused_not_expanded() {
         // The classic exponential entity expansion; refused at the DOCTYPE.
         let bomb = r#"<?xml version="1.0"?>

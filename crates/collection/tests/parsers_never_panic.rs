@@ -147,9 +147,9 @@ proptest! {
         }
     }
 
-    /// `,` and `#` cannot be written in a text sidecar (they separate and comment), and a
-    /// leading U+FEFF would be taken for the file's byte-order mark; every other tag reads
-    /// back as written, whichever separator is used.
+    /// `,` and `#` cannot be written in a text sidecar (they separate and comment); every
+    /// other tag reads back as written, whichever separator is used. (A normalised tag never
+    /// holds U+FEFF, so none can be taken for the file's byte-order mark.)
     #[test]
     fn text_sidecar_of_normalised_tags_reads_back_the_same_tags(
         raw in proptest::collection::vec(any::<String>(), 0..24),
@@ -158,8 +158,7 @@ proptest! {
             .into_iter()
             .filter(|t| !t.contains([',', '#']))
             .collect();
-        let first_is_not_a_bom = tags.first().is_none_or(|t| !t.starts_with('\u{feff}'));
-        prop_assume!(first_is_not_a_bom);
+        prop_assert!(tags.iter().all(|t| !t.contains('\u{feff}')), "{:?}", tags);
         for separator in ["\n", "\r\n", ", ", ","] {
             prop_assert_eq!(&parse_text(&tags.join(separator)), &tags, "{:?}", separator);
         }
@@ -181,14 +180,13 @@ proptest! {
 }
 
 #[test]
-fn the_separators_and_a_leading_byte_order_mark_are_the_only_round_trip_losses() {
-    // by hand: the three tags the properties above leave out, and what becomes of them.
+fn the_separators_are_the_only_round_trip_losses() {
+    // by hand: the two tags the properties above leave out, and what becomes of them.
     assert_eq!(parse_text("rock,roll"), ["rock", "roll"]);
     assert_eq!(parse_text("c#"), ["c"]);
-    assert_eq!(
-        normalize_tag("\u{feff}pier").as_deref(),
-        Some("\u{feff}pier")
-    );
+    // A byte-order mark is no loss: it is never part of a tag, wherever it stands.
+    // source: Unicode Character Database name of U+FEFF, ZERO WIDTH NO-BREAK SPACE.
+    assert_eq!(normalize_tag("\u{feff}pier").as_deref(), Some("pier"));
     assert_eq!(parse_text("\u{feff}pier"), ["pier"]);
-    assert_eq!(parse_text("quay\n\u{feff}pier"), ["quay", "\u{feff}pier"]);
+    assert_eq!(parse_text("quay\n\u{feff}pier"), ["quay", "pier"]);
 }
