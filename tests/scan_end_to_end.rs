@@ -146,26 +146,31 @@ fn scanning_the_shared_evaluation_sets_counts_every_picture() {
     }
 }
 
+/// The first `n` JPEG pictures of the demo archive, by TRUTH.csv order.
+fn demo_jpegs(n: usize) -> Vec<std::path::PathBuf> {
+    let demo = repo_root().join("demo-collection");
+    demo_truth()
+        .iter()
+        .filter(|r| r.file.ends_with(".jpg"))
+        .take(n)
+        .map(|r| demo.join(&r.file))
+        .collect()
+}
+
 #[test]
 fn bad_files_are_named_counted_and_passed_over() {
     let temp = tempfile::tempdir().unwrap();
     let folder = temp.path();
-    let truth = demo_truth();
-    let demo = repo_root().join("demo-collection");
-    let jpegs: Vec<&TruthRow> = truth
-        .iter()
-        .filter(|r| r.file.ends_with(".jpg"))
-        .take(6)
-        .collect();
-    for (i, row) in jpegs.iter().enumerate() {
-        std::fs::copy(demo.join(&row.file), folder.join(format!("good-{i}.jpg"))).unwrap();
+    let jpegs = demo_jpegs(6);
+    for (i, jpeg) in jpegs.iter().enumerate() {
+        std::fs::copy(jpeg, folder.join(format!("good-{i}.jpg"))).unwrap();
         std::fs::write(folder.join(format!("good-{i}.txt")), "harbour\n").unwrap();
     }
-    let whole = std::fs::read(demo.join(&jpegs[0].file)).unwrap();
+    let whole = std::fs::read(&jpegs[0]).unwrap();
     std::fs::write(folder.join("cut-short.jpg"), &whole[..whole.len() / 3]).unwrap();
     std::fs::write(folder.join("empty.jpg"), b"").unwrap();
     std::fs::write(folder.join("letter.jpg"), b"Dear keeper of the archive,\n").unwrap();
-    std::fs::copy(demo.join(&jpegs[1].file), folder.join("latin1.jpg")).unwrap();
+    std::fs::copy(&jpegs[1], folder.join("latin1.jpg")).unwrap();
     std::fs::write(folder.join("latin1.txt"), b"caf\xe9\n").unwrap();
     std::fs::write(folder.join("lonely.txt"), "night\n").unwrap();
     std::fs::write(folder.join("notes.md"), "about this folder\n").unwrap();
@@ -227,21 +232,15 @@ fn bad_files_are_named_counted_and_passed_over() {
 fn json_lists_skipped_files_relative_to_the_folder() {
     let temp = tempfile::tempdir().unwrap();
     let folder = temp.path();
-    let truth = demo_truth();
-    let demo = repo_root().join("demo-collection");
-    let jpegs: Vec<&TruthRow> = truth
-        .iter()
-        .filter(|r| r.file.ends_with(".jpg"))
-        .take(4)
-        .collect();
-    for (i, row) in jpegs.iter().enumerate() {
-        std::fs::copy(demo.join(&row.file), folder.join(format!("good-{i}.jpg"))).unwrap();
+    let jpegs = demo_jpegs(4);
+    for (i, jpeg) in jpegs.iter().enumerate() {
+        std::fs::copy(jpeg, folder.join(format!("good-{i}.jpg"))).unwrap();
     }
     let trip = folder.join("trip 2024");
     std::fs::create_dir(&trip).unwrap();
-    let whole = std::fs::read(demo.join(&jpegs[0].file)).unwrap();
+    let whole = std::fs::read(&jpegs[0]).unwrap();
     std::fs::write(trip.join("cut-short.jpg"), &whole[..whole.len() / 3]).unwrap();
-    std::fs::copy(demo.join(&jpegs[1].file), trip.join("pier.jpg")).unwrap();
+    std::fs::copy(&jpegs[1], trip.join("pier.jpg")).unwrap();
     std::fs::write(
         trip.join("pier.xmp"),
         "<rdf:RDF xmlns:rdf=\"http://www.w3.org/1999/02/22-rdf-syntax-ns#\"><rdf:li>x</rdf:Bag>",
@@ -251,7 +250,7 @@ fn json_lists_skipped_files_relative_to_the_folder() {
     {
         use std::os::unix::ffi::OsStrExt;
         let name = std::ffi::OsStr::from_bytes(b"caf\xe9.jpg");
-        std::fs::copy(demo.join(&jpegs[2].file), trip.join(name)).unwrap();
+        std::fs::copy(&jpegs[2], trip.join(name)).unwrap();
     }
 
     let out = tagweave(folder, &["scan", ".", "--json"]);
