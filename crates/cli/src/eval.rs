@@ -3,9 +3,10 @@ use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
 use tagweave_eval::{
-    audit_out_of_fold, baselines, evaluate, EvalOptions, JointScorer, Progress, TagScorer,
+    audit_out_of_fold, baselines, evaluate_with_views, EvalOptions, JointScorer, Progress,
+    TagScorer,
 };
-use tagweave_indexer::FeatureTable;
+use tagweave_indexer::{view_features, FeatureTable};
 use tagweave_model::{JointOptions, TagUnits};
 
 use crate::exit::Outcome;
@@ -51,6 +52,15 @@ pub struct EvalArgs {
     /// is the one `train` uses).
     #[arg(long, value_name = "N", default_value_t = JointOptions::default().mean_field_steps)]
     pub mean_field_steps: usize,
+    /// Chance that the joint model sees a training picture through a view (mirror or
+    /// centre crop) instead of the original, each epoch (an experiment switch; 0 = off).
+    #[arg(long, value_name = "X", default_value_t = JointOptions::default().view_share)]
+    pub view_share: f32,
+    /// Whether the joint model also trains on every view as an example of its own (an
+    /// experiment switch).
+    #[arg(long, value_name = "BOOL", action = clap::ArgAction::Set,
+          default_value_t = JointOptions::default().view_rows)]
+    pub view_rows: bool,
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -92,7 +102,36 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         train_fraction: args.train_fraction,
         ..EvalOptions::default()
     };
-    let mut methods = all_methods(args.tag_layer, args.mean_field_steps);
+    let joint = JointOptions {
+        tag_units: match args.tag_layer {
+            TagLayerChoice::Binary => TagUnits::Binary,
+            TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
+        },
+        mean_field_steps: args.mean_field_steps,
+        view_share: args.view_share,
+        view_rows: args.view_rows,
+        ..JointOptions::default()
+    };
+    // Views of every picture, decoded again from the folder; only the train pictures'
+    // reach the joint model. A picture that no longer decodes trains as itself.
+    let views = if joint.view_share > 0.0 || joint.view_rows {
+        let bar = progress::bar("describing views");
+        let (views, _) = view_features(
+            &store,
+            &table.items,
+            table.features.view(),
+            &mut |done, total| {
+                bar.set_length(total as u64);
+                bar.set_position(done as u64);
+            },
+        )?;
+        bar.finish_and_clear();
+        views
+    } else {
+        Vec::new()
+    };
+    let views: Vec<_> = views.iter().map(|v| v.view()).collect();
+    let mut methods = all_methods(joint);
     let bar = progress::bar("evaluating");
     let mut on_progress = |event: Progress| {
         let (done, total) = match event {
@@ -103,8 +142,9 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         bar.set_length(total as u64);
         bar.set_position(done as u64);
     };
-    let mut report = evaluate(
+    let mut report = evaluate_with_views(
         table.features.view(),
+        &views,
         &tags,
         &keys,
         &options,
@@ -147,16 +187,9 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
 }
 
 /// The baselines and tagweave's joint model, in report order.
-fn all_methods(tag_layer: TagLayerChoice, mean_field_steps: usize) -> Vec<Box<dyn TagScorer>> {
+fn all_methods(joint: JointOptions) -> Vec<Box<dyn TagScorer>> {
     let mut all = baselines();
-    all.push(Box::new(JointScorer::with_options(JointOptions {
-        tag_units: match tag_layer {
-            TagLayerChoice::Binary => TagUnits::Binary,
-            TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
-        },
-        mean_field_steps,
-        ..JointOptions::default()
-    })));
+    all.push(Box::new(JointScorer::with_options(joint)));
     all
 }
 

@@ -66,6 +66,11 @@ pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainRep
             bar.set_length(max_epochs);
             bar.set_position(r.epoch as u64 + 1);
         }
+        TrainProgress::Views { done, total } => {
+            bar.set_message("describing views");
+            bar.set_length(total as u64);
+            bar.set_position(done as u64);
+        }
         TrainProgress::Coding { done, total } => {
             bar.set_message("coding pictures");
             bar.set_length(total as u64);
@@ -120,6 +125,13 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
             "too few held-out pictures to calibrate: scores are not probabilities"
         }
     );
+    if report.without_views > 0 {
+        println!(
+            "  views       {} tagged pictures could not be read again; they trained without \
+             mirrored and cropped views",
+            report.without_views
+        );
+    }
     println!(
         "  codes       {} pictures, {} values and a {}-bit hash each",
         report.coded, report.layers[2], report.hash_bits

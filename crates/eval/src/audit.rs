@@ -87,6 +87,7 @@ pub fn audit_out_of_fold(
             n_tags: vocabulary.len(),
             groups: &train_groups,
             seed,
+            views: &[],
         };
         let mut methods = make_methods();
         check_method_names(&methods)?;

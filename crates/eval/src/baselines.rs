@@ -29,6 +29,10 @@ pub struct TrainSet<'a> {
     pub groups: &'a [usize],
     /// Seed for any randomness inside `fit`.
     pub seed: u64,
+    /// Views of the train pictures (mirrored, cropped…), standardised like `features`:
+    /// `views[v]` row `i` is view `v` of row `i` and carries its tags. Only the joint
+    /// model trains on them; the baselines ignore them. Empty = none.
+    pub views: &'a [Array2<f32>],
 }
 
 /// A method that scores every vocabulary tag for pictures it sees only as features.
@@ -610,6 +614,7 @@ pub(crate) mod tests {
             n_tags,
             groups: &groups,
             seed,
+            views: &[],
         };
         method.fit(&train).unwrap();
         let scores = method.score(x.slice(ndarray::s![180.., ..])).unwrap();
@@ -667,6 +672,7 @@ pub(crate) mod tests {
             n_tags: 3,
             groups: &[0, 1, 2],
             seed: 0,
+            views: &[],
         };
         knn.fit(&set).unwrap();
         let s = knn.score(array![[1.0f32, 0.0]].view()).unwrap();

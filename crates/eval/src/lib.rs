@@ -30,5 +30,5 @@ pub use error::EvalError;
 pub use joint::{JointScorer, TagSuggester, TrainingRun};
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use report::{MethodReport, Report, SplitSummary};
-pub use runner::{baselines, evaluate, EvalOptions, Progress, SUGGESTIONS};
+pub use runner::{baselines, evaluate, evaluate_with_views, EvalOptions, Progress, SUGGESTIONS};
 pub use split::{group_ids, split, Split, Standardiser, Vocabulary};

@@ -129,6 +129,29 @@ fn check_inputs(
     Ok(())
 }
 
+/// Every view matrix must match the features in shape and hold finite values.
+fn check_views(features: ArrayView2<f32>, views: &[ArrayView2<f32>]) -> Result<(), EvalError> {
+    for view in views {
+        if view.nrows() != features.nrows() {
+            return Err(EvalError::LengthMismatch {
+                what: "a view matrix",
+                got: view.nrows(),
+                expected: features.nrows(),
+            });
+        }
+        if view.ncols() != features.ncols() {
+            return Err(EvalError::ViewWidth {
+                got: view.ncols(),
+                expected: features.ncols(),
+            });
+        }
+        if let Some(((row, col), _)) = view.indexed_iter().find(|(_, v)| !v.is_finite()) {
+            return Err(EvalError::NonFiniteFeature { row, col });
+        }
+    }
+    Ok(())
+}
+
 /// What every method is measured against: the held-out truth, prepared once.
 struct TestTruth {
     lists: Vec<Vec<usize>>,
@@ -211,7 +234,32 @@ pub fn evaluate(
     methods: &mut [Box<dyn TagScorer>],
     on_progress: &mut dyn FnMut(Progress),
 ) -> Result<Report, EvalError> {
+    evaluate_with_views(
+        features,
+        &[],
+        tags,
+        content_keys,
+        options,
+        methods,
+        on_progress,
+    )
+}
+
+/// [`evaluate`] with views of every picture (`views[v]` row `i`: view `v` of feature
+/// row `i`, raw like `features`). The train pictures' views, standardised with the
+/// features' standardiser, reach the methods as [`TrainSet::views`]; test pictures are
+/// scored on their originals only.
+pub fn evaluate_with_views(
+    features: ArrayView2<f32>,
+    views: &[ArrayView2<f32>],
+    tags: &[Vec<String>],
+    content_keys: &[String],
+    options: &EvalOptions,
+    methods: &mut [Box<dyn TagScorer>],
+    on_progress: &mut dyn FnMut(Progress),
+) -> Result<Report, EvalError> {
     check_inputs(features, tags, content_keys, options, methods)?;
+    check_views(features, views)?;
     let parts = split(
         features.nrows(),
         content_keys,
@@ -244,6 +292,10 @@ pub fn evaluate(
     let standardiser = Standardiser::fit(features.select(Axis(0), &train_rows).view());
     let train_x = standardiser.apply(features.select(Axis(0), &train_rows).view());
     let test_x = standardiser.apply(features.select(Axis(0), &test_rows).view());
+    let train_views: Vec<Array2<f32>> = views
+        .iter()
+        .map(|v| standardiser.apply(v.select(Axis(0), &train_rows).view()))
+        .collect();
     let all_groups = group_ids(content_keys);
     let train_groups: Vec<usize> = train_rows.iter().map(|&i| all_groups[i]).collect();
 
@@ -275,6 +327,7 @@ pub fn evaluate(
         n_tags,
         groups: &train_groups,
         seed: options.seed,
+        views: &train_views,
     };
     let total = methods.len();
     let mut reports = BTreeMap::new();
@@ -421,6 +474,87 @@ mod tests {
             Ok(Array2::from_shape_fn((features.nrows(), 12), |(i, j)| {
                 ((i * 7 + j) % 5) as f32
             }))
+        }
+    }
+
+    /// Records the views the runner hands a method.
+    struct ViewRecorder(Rc<RefCell<Vec<Array2<f32>>>>);
+
+    impl TagScorer for ViewRecorder {
+        fn name(&self) -> &str {
+            "views"
+        }
+        fn fit(&mut self, train: &TrainSet) -> Result<(), EvalError> {
+            assert!(train.views.iter().all(|v| v.dim() == train.features.dim()));
+            self.0.borrow_mut().extend(train.views.iter().cloned());
+            Ok(())
+        }
+        fn score(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, EvalError> {
+            Ok(Array2::from_shape_fn((features.nrows(), 12), |(i, j)| {
+                ((i * 7 + j) % 5) as f32
+            }))
+        }
+    }
+
+    #[test]
+    fn views_of_train_pictures_reach_methods_scaled_like_the_features() {
+        let (x, tags, keys) = collection(100, 2);
+        let seed = 9;
+        let parts = split(100, &keys, 0.75, seed).unwrap();
+        let mirror = x.mapv(|v| 3.0 * v + 1.0);
+        let crop = x.mapv(|v| -v);
+        let seen = Rc::new(RefCell::new(Vec::new()));
+        let mut methods: Vec<Box<dyn TagScorer>> = vec![Box::new(ViewRecorder(seen.clone()))];
+        let options = EvalOptions {
+            seed,
+            ..EvalOptions::default()
+        };
+        let views = [mirror.view(), crop.view()];
+        evaluate_with_views(
+            x.view(),
+            &views,
+            &tags,
+            &keys,
+            &options,
+            &mut methods,
+            &mut |_| {},
+        )
+        .unwrap();
+        // the features' standardiser (fitted on train originals), train rows only
+        let standardiser = Standardiser::fit(x.select(Axis(0), &parts.train).view());
+        let want: Vec<Array2<f32>> = [&mirror, &crop]
+            .iter()
+            .map(|v| standardiser.apply(v.select(Axis(0), &parts.train).view()))
+            .collect();
+        assert_eq!(*seen.borrow(), want);
+        // without views the methods get none
+        seen.borrow_mut().clear();
+        evaluate(x.view(), &tags, &keys, &options, &mut methods, &mut |_| {}).unwrap();
+        assert!(seen.borrow().is_empty());
+        // views of the wrong shape are refused
+        let short = x.slice(ndarray::s![..10, ..]);
+        let narrow = x.slice(ndarray::s![.., ..3]);
+        for (bad, wrong_rows) in [(short, true), (narrow, false)] {
+            let e = evaluate_with_views(
+                x.view(),
+                &[bad],
+                &tags,
+                &keys,
+                &options,
+                &mut methods,
+                &mut |_| {},
+            )
+            .unwrap_err();
+            assert_eq!(
+                matches!(e, EvalError::LengthMismatch { got: 10, .. }),
+                wrong_rows,
+                "{e}"
+            );
+            assert_eq!(
+                matches!(e, EvalError::ViewWidth { got: 3, .. }),
+                !wrong_rows,
+                "{e}"
+            );
         }
     }
 

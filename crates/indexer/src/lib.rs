@@ -19,8 +19,8 @@ mod features;
 mod training;
 pub use features::{FeatureSummary, FeatureTable, EXTRACTOR_BLOB, FEATURES};
 pub use training::{
-    code_missing, train, TrainOptions, TrainProgress, TrainReport, TrainedModel, TrainingData,
-    TrainingHistory, CODES, MODEL_BLOB, MODEL_FORMAT,
+    code_missing, train, view_features, TrainOptions, TrainProgress, TrainReport, TrainedModel,
+    TrainingData, TrainingHistory, CODES, MODEL_BLOB, MODEL_FORMAT,
 };
 
 /// How many pictures are read between two flushes of the store.
@@ -252,12 +252,12 @@ pub fn scan(
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use std::path::Path;
 
     /// A small real collection: the first pictures of the bundled demo archive.
-    fn small_collection(dir: &Path, count: usize) {
+    pub(crate) fn small_collection(dir: &Path, count: usize) {
         let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../demo-collection/1970s");
         let mut pictures: Vec<_> = std::fs::read_dir(&demo)
             .unwrap()
@@ -274,7 +274,7 @@ mod tests {
         }
     }
 
-    fn quick_options() -> ScanOptions {
+    pub(crate) fn quick_options() -> ScanOptions {
         let mut options = ScanOptions::default();
         options.features.learn_images = 8;
         options

@@ -7,6 +7,7 @@
 use std::time::Instant;
 
 use ndarray::{Array2, ArrayView2, Axis};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use tagweave_collection::ItemRecord;
 use tagweave_eval::{
@@ -14,8 +15,9 @@ use tagweave_eval::{
 };
 use tagweave_model::{JointOptions, JointProgress};
 use tagweave_store::Store;
+use tagweave_vision::{FeatureExtractor, TRAINING_VIEWS};
 
-use crate::{FeatureTable, IndexError, FEATURES};
+use crate::{FeatureTable, IndexError, BATCH, EXTRACTOR_BLOB, FEATURES};
 
 /// Store blob holding the [`TrainedModel`].
 pub const MODEL_BLOB: &str = "tag_model";
@@ -88,6 +90,11 @@ pub enum TrainProgress {
         done: usize,
         total: usize,
     },
+    /// Tagged pictures decoded again so far for their training views.
+    Views {
+        done: usize,
+        total: usize,
+    },
 }
 
 /// What `train` did.
@@ -95,6 +102,9 @@ pub enum TrainProgress {
 pub struct TrainReport {
     /// Tagged pictures the model learned from.
     pub pictures: usize,
+    /// Of those, pictures that could not be decoded again for their training views
+    /// (they trained as themselves only); 0 when views were not used.
+    pub without_views: usize,
     /// Pictures without tags (coded, not learned from).
     pub untagged: usize,
     pub tags: usize,
@@ -116,6 +126,8 @@ pub struct TrainReport {
 /// The store's tagged pictures in model columns, with features scaled for the model.
 pub struct TrainingData {
     pub items: Vec<ItemRecord>,
+    /// Row of each item in the [`FeatureTable`] it was picked from.
+    pub table_rows: Vec<usize>,
     /// Standardised features, one row per item.
     pub features: Array2<f32>,
     pub tags: Vec<Vec<usize>>,
@@ -130,6 +142,7 @@ impl TrainingData {
             n_tags,
             groups: &self.groups,
             seed,
+            views: &[],
         }
     }
 }
@@ -156,6 +169,7 @@ fn tagged_rows(
         features: standardiser.apply(table.features.select(Axis(0), &rows).view()),
         groups: group_ids(&keys),
         items,
+        table_rows: rows,
         tags,
     }
 }
@@ -187,7 +201,23 @@ pub fn train(
         .collect();
     let standardiser = Standardiser::fit(table.features.select(Axis(0), &tagged_features).view());
     let data = tagged_rows(&table, &vocabulary, &standardiser);
-    let train_set = data.train_set(vocabulary.len(), options.seed);
+    let uses_views = options.joint.view_share > 0.0 || options.joint.view_rows;
+    let (raw_views, without_views) = if uses_views {
+        let raw = table.features.select(Axis(0), &data.table_rows);
+        view_features(store, &data.items, raw.view(), &mut |done, total| {
+            progress(TrainProgress::Views { done, total })
+        })?
+    } else {
+        (Vec::new(), 0)
+    };
+    let views: Vec<Array2<f32>> = raw_views
+        .iter()
+        .map(|v| standardiser.apply(v.view()))
+        .collect();
+    let train_set = TrainSet {
+        views: &views,
+        ..data.train_set(vocabulary.len(), options.seed)
+    };
 
     let mut history = TrainingHistory::default();
     let (suggester, _) = TagSuggester::train(&train_set, &options.joint, &mut |run, p| {
@@ -221,6 +251,7 @@ pub fn train(
     let m = &model.suggester.model;
     Ok(TrainReport {
         pictures: data.items.len(),
+        without_views,
         untagged: table.items.len() - data.items.len(),
         tags: model.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
@@ -239,6 +270,59 @@ pub fn train(
         best_validation_lrap: h.validation_lrap.iter().copied().reduce(f32::max),
         seconds: started.elapsed().as_secs_f64(),
     })
+}
+
+/// The raw feature rows of the training views of `items` (`features`: their stored
+/// rows, same order): `views[v]` row `i` is view `v` of `items[i]`, decoded again from
+/// the collection folder. A picture that no longer decodes keeps its own features in
+/// every view (so it trains as itself only) and is counted in the second value.
+pub fn view_features(
+    store: &Store,
+    items: &[ItemRecord],
+    features: ArrayView2<f32>,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<(Vec<Array2<f32>>, usize), IndexError> {
+    let Some(extractor) = store.blob::<FeatureExtractor>(EXTRACTOR_BLOB)? else {
+        return Ok((Vec::new(), 0));
+    };
+    if items.len() != features.nrows() {
+        return Err(IndexError::Inconsistent(format!(
+            "{} pictures but {} feature rows given for their views",
+            items.len(),
+            features.nrows()
+        )));
+    }
+    if extractor.dimension() != features.ncols() {
+        return Err(IndexError::Inconsistent(format!(
+            "stored features have {} values but the feature extractor makes {}; rebuild \
+             features with `tagweave scan FOLDER --relearn`",
+            features.ncols(),
+            extractor.dimension()
+        )));
+    }
+    let root = store.collection_root();
+    let mut views = vec![features.to_owned(); TRAINING_VIEWS.len()];
+    let mut failed = 0;
+    let mut done = 0;
+    for (chunk_index, chunk) in items.chunks(BATCH).enumerate() {
+        let described: Vec<_> = chunk
+            .par_iter()
+            .map(|item| extractor.training_views(&root.join(&item.rel_path)).ok())
+            .collect();
+        for (offset, rows) in described.into_iter().enumerate() {
+            let i = chunk_index * BATCH + offset;
+            match rows {
+                Some(rows) => views.iter_mut().zip(&rows).for_each(|(view, row)| {
+                    view.row_mut(i)
+                        .assign(&ndarray::ArrayView1::from(row.as_slice()))
+                }),
+                None => failed += 1,
+            }
+        }
+        done += chunk.len();
+        progress(done, items.len());
+    }
+    Ok((views, failed))
 }
 
 fn record(history: &mut TrainingHistory, run: TrainingRun, p: &JointProgress) {
@@ -400,6 +484,68 @@ pub fn code_missing(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::tests::{quick_options, small_collection};
+
+    #[test]
+    fn views_are_described_again_and_an_unreadable_picture_only_loses_its_views() {
+        let temp = tempfile::tempdir().unwrap();
+        small_collection(temp.path(), 10);
+        let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
+        crate::scan(&store, &quick_options(), &|_| {}).unwrap();
+        let table = FeatureTable::load(&store).unwrap();
+        assert_eq!(table.items.len(), 10);
+        let extractor: FeatureExtractor = store.blob(EXTRACTOR_BLOB).unwrap().unwrap();
+        // Damage one tagged picture after the scan: it keeps its stored features.
+        let b = table.items.iter().position(|i| !i.tags.is_empty()).unwrap();
+        let broken = &table.items[b];
+        std::fs::write(temp.path().join(&broken.rel_path), b"no longer a picture").unwrap();
+        let mut reported = Vec::new();
+        let (views, failed) = view_features(
+            &store,
+            &table.items,
+            table.features.view(),
+            &mut |done, total| reported.push((done, total)),
+        )
+        .unwrap();
+        assert_eq!(failed, 1);
+        assert_eq!(reported.last(), Some(&(10, 10)));
+        assert_eq!(views.len(), TRAINING_VIEWS.len());
+        for (i, item) in table.items.iter().enumerate() {
+            if i == b {
+                for view in &views {
+                    assert_eq!(view.row(i), table.features.row(i));
+                }
+                continue;
+            }
+            let want = extractor
+                .training_views(&temp.path().join(&item.rel_path))
+                .unwrap();
+            for (view, row) in views.iter().zip(&want) {
+                assert_eq!(view.row(i).to_vec(), *row);
+                assert_ne!(view.row(i), table.features.row(i));
+            }
+        }
+        // Training with views goes on without that picture's views and says so.
+        let options = TrainOptions {
+            joint: JointOptions {
+                max_epochs: 3,
+                pretrain_epochs: 1,
+                view_share: 0.5,
+                ..JointOptions::default()
+            },
+            ..TrainOptions::default()
+        };
+        let mut events = Vec::new();
+        let report = train(&store, &options, &mut |p| {
+            if let TrainProgress::Views { done, total } = p {
+                events.push((done, total));
+            }
+        })
+        .unwrap();
+        assert!(report.pictures >= 2, "{report:?}");
+        assert_eq!(report.without_views, 1);
+        assert_eq!(events.last(), Some(&(report.pictures, report.pictures)));
+    }
 
     // by hand: tag 0 on rows 0 and 2 → mean of [1, 0] and [3, 2] = [2, 1]; tag 1 on row 1 only.
     #[test]

@@ -69,6 +69,55 @@ impl WorkingImage {
     pub fn rgb(&self) -> &[u8] {
         &self.rgb
     }
+
+    /// The picture flipped left to right: a view of the same scene that keeps its tags,
+    /// used as an extra training example.
+    pub fn mirrored(&self) -> WorkingImage {
+        let row_len = self.width as usize * 3;
+        let rgb = self
+            .rgb
+            .chunks_exact(row_len)
+            .flat_map(|row| row.chunks_exact(3).rev().flatten().copied())
+            .collect();
+        WorkingImage { rgb, ..*self }
+    }
+
+    /// The centre `fraction` of each side, resized back to this picture's size (bilinear,
+    /// the resize path of decoding): a slightly closer view of the same scene. `fraction`
+    /// must lie in (0, 1]; 1 gives the picture unchanged.
+    pub fn centre_crop(&self, fraction: f32) -> Result<WorkingImage, VisionError> {
+        if !(fraction > 0.0 && fraction <= 1.0) {
+            return Err(VisionError::InvalidOptions(format!(
+                "a centre crop keeps a share of each side in (0, 1], got {fraction}"
+            )));
+        }
+        if fraction == 1.0 {
+            return Ok(self.clone());
+        }
+        let (w, h) = (f64::from(self.width), f64::from(self.height));
+        let (cw, ch) = (w * f64::from(fraction), h * f64::from(fraction));
+        let failed = |e: &dyn std::fmt::Display| {
+            VisionError::InvalidOptions(format!("cannot crop a {w}x{h} picture: {e}"))
+        };
+        let src = fr::images::Image::from_vec_u8(
+            self.width,
+            self.height,
+            self.rgb.clone(),
+            fr::PixelType::U8x3,
+        )
+        .map_err(|e| failed(&e))?;
+        let mut dst = fr::images::Image::new(self.width, self.height, fr::PixelType::U8x3);
+        let options = fr::ResizeOptions::new()
+            .resize_alg(fr::ResizeAlg::Convolution(fr::FilterType::Bilinear))
+            .crop((w - cw) / 2.0, (h - ch) / 2.0, cw, ch);
+        fr::Resizer::new()
+            .resize(&src, &mut dst, &options)
+            .map_err(|e| failed(&e))?;
+        Ok(WorkingImage {
+            rgb: dst.into_vec(),
+            ..*self
+        })
+    }
 }
 
 /// Reads and decodes one picture at working size; the format is sniffed from the bytes.
@@ -325,6 +374,79 @@ mod tests {
         RgbImage::from_fn(w, h, |x, y| {
             Rgb([(x * 255 / w) as u8, (y * 255 / h) as u8, 128])
         })
+    }
+
+    /// Left half red, right half blue, a green pixel at (1, 2): nothing symmetric.
+    fn asymmetric(w: u32, h: u32) -> WorkingImage {
+        let rgb = (0..w * h)
+            .flat_map(|i| match (i % w, i / w) {
+                (1, 2) => [0, 255, 0],
+                (x, _) if x < w / 2 => [255, 0, 0],
+                _ => [0, 0, 255],
+            })
+            .collect();
+        WorkingImage::from_rgb8(w, h, rgb).unwrap()
+    }
+
+    fn pixel(img: &WorkingImage, x: u32, y: u32) -> [u8; 3] {
+        let i = ((y * img.width() + x) * 3) as usize;
+        [img.rgb()[i], img.rgb()[i + 1], img.rgb()[i + 2]]
+    }
+
+    #[test]
+    fn mirror_swaps_left_and_right_and_twice_is_identity() {
+        let img = asymmetric(10, 6);
+        let m = img.mirrored();
+        assert_eq!((m.width(), m.height()), (10, 6));
+        assert_ne!(m, img);
+        for y in 0..6 {
+            for x in 0..10 {
+                assert_eq!(pixel(&m, x, y), pixel(&img, 9 - x, y), "({x}, {y})");
+            }
+        }
+        assert_eq!(pixel(&m, 0, 0), [0, 0, 255]);
+        assert_eq!(pixel(&m, 8, 2), [0, 255, 0]);
+        assert_eq!(m.mirrored(), img);
+    }
+
+    #[test]
+    fn centre_crop_enlarges_the_middle() {
+        let img = asymmetric(40, 30);
+        assert_eq!(img.centre_crop(1.0).unwrap(), img);
+        // A white picture with a red centre square of half each side: cropped to that
+        // half, the square fills the picture (edges may blend a little).
+        let (w, h) = (40u32, 40u32);
+        let framed = WorkingImage::from_rgb8(
+            w,
+            h,
+            (0..w * h)
+                .flat_map(|i| {
+                    let (x, y) = (i % w, i / w);
+                    if (10..30).contains(&x) && (10..30).contains(&y) {
+                        [255, 0, 0]
+                    } else {
+                        [255, 255, 255]
+                    }
+                })
+                .collect(),
+        )
+        .unwrap();
+        let crop = framed.centre_crop(0.5).unwrap();
+        assert_eq!((crop.width(), crop.height()), (w, h));
+        let red = crop.rgb().chunks_exact(3).filter(|p| p[1] < 40).count();
+        assert!(red > 36 * 36, "{red} of 1600 pixels red");
+        assert_eq!(pixel(&crop, 20, 20), [255, 0, 0]);
+        // a 90 % crop keeps the halves where they were
+        let near = img.centre_crop(0.9).unwrap();
+        assert_eq!(pixel(&near, 3, 15), [255, 0, 0]);
+        assert_eq!(pixel(&near, 36, 15), [0, 0, 255]);
+        assert_ne!(near, img);
+        for bad in [0.0, -0.5, 1.5, f32::NAN] {
+            assert!(matches!(
+                img.centre_crop(bad),
+                Err(VisionError::InvalidOptions(_))
+            ));
+        }
     }
 
     #[test]

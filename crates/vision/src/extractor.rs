@@ -13,6 +13,20 @@ use crate::{
     VisionError, WorkingImage,
 };
 
+/// A view of a picture that keeps what it shows (and so its tags).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum View {
+    /// Flipped left to right.
+    Mirrored,
+    /// The centre share of each side, enlarged back to the working size.
+    CentreCrop(f32),
+}
+
+/// The views [`FeatureExtractor::training_views`] describes: a mirror and a 90 % centre
+/// crop, both of which keep a photo's tags (a prototype on the shared sets measured
+/// +0.03 LRAP on photographic cut-outs from these two as extra training rows).
+pub const TRAINING_VIEWS: [View; 2] = [View::Mirrored, View::CentreCrop(0.9)];
+
 /// Everything that decides the feature vector.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct FeatureOptions {
@@ -134,6 +148,26 @@ impl FeatureExtractor {
         Ok(self.features_of(&load_working_image(path, &self.decode)?))
     }
 
+    /// Feature vectors of the picture's training views, in [`TRAINING_VIEWS`] order:
+    /// decoded once, each view described like a picture. Views of a photo keep its tags,
+    /// so they serve as extra training examples.
+    pub fn training_views(&self, path: &Path) -> Result<Vec<Vec<f32>>, VisionError> {
+        self.training_views_of(&load_working_image(path, &self.decode)?)
+    }
+
+    /// [`Self::training_views`] of a picture already at working size.
+    pub fn training_views_of(&self, img: &WorkingImage) -> Result<Vec<Vec<f32>>, VisionError> {
+        TRAINING_VIEWS
+            .iter()
+            .map(|view| {
+                Ok(match view {
+                    View::Mirrored => self.features_of(&img.mirrored()),
+                    View::CentreCrop(fraction) => self.features_of(&img.centre_crop(*fraction)?),
+                })
+            })
+            .collect()
+    }
+
     /// Describes a picture already at working size.
     pub fn features_of(&self, img: &WorkingImage) -> Vec<f32> {
         let mut out = Vec::with_capacity(self.dimension());
@@ -236,6 +270,75 @@ mod tests {
         std::fs::write(&bad, b"nothing").unwrap();
         let err = FeatureExtractor::learn(&[bad], &opts(), 1, &|_, _| {}).unwrap_err();
         assert!(err.to_string().contains("broken.png"), "{err}");
+    }
+
+    #[test]
+    fn training_views_describe_the_mirror_and_the_crop() {
+        let dir = tempfile::tempdir().unwrap();
+        let pictures = synthetic_pictures(10, 3);
+        let paths = write_pictures(dir.path(), &pictures);
+        let fx = FeatureExtractor::learn(&paths, &opts(), 1, &|_, _| {}).unwrap();
+        let img = load_working_image(&paths[2], fx.decode_options()).unwrap();
+        let views = fx.training_views(&paths[2]).unwrap();
+        assert_eq!(views.len(), TRAINING_VIEWS.len());
+        assert_eq!(views[0], fx.features_of(&img.mirrored()));
+        assert_eq!(views[1], fx.features_of(&img.centre_crop(0.9).unwrap()));
+        let original = fx.features(&paths[2]).unwrap();
+        for view in &views {
+            assert_eq!(view.len(), fx.dimension());
+            assert_ne!(view, &original);
+        }
+        let bad = dir.path().join("bad.png");
+        std::fs::write(&bad, b"nothing").unwrap();
+        assert!(fx.training_views(&bad).is_err());
+    }
+
+    // The colour layout of a mirror is the original's, mirrored: with a 4×4 moment
+    // grid over a picture whose width divides by 4, cell (row, col) of the mirror
+    // has the statistics of cell (row, 3 − col) of the original.
+    #[test]
+    fn mirror_has_the_mirrored_colour_layout() {
+        let pictures = synthetic_pictures(10, 3);
+        let only_moments = FeatureOptions {
+            colour: ColourOptions {
+                l_bins: 0,
+                histogram_grids: vec![],
+                moment_grids: vec![4],
+                ..ColourOptions::default()
+            },
+            ..opts()
+        };
+        let fx =
+            FeatureExtractor::learn_from_images(&pictures, &only_moments, 1, &|_, _| {}).unwrap();
+        // left half dark red, right half light blue, a yellow block top left
+        let (w, h) = (32u32, 16u32);
+        let rgb = (0..w * h)
+            .flat_map(|i| match (i % w, i / w) {
+                (x, y) if x < 8 && y < 4 => [230, 220, 20],
+                (x, _) if x < 16 => [120, 10, 10],
+                _ => [150, 190, 250],
+            })
+            .collect();
+        let img = WorkingImage::from_rgb8(w, h, rgb).unwrap();
+        assert_eq!(fx.colour_dimension(), 16 * 6);
+        let cells = |f: Vec<f32>| -> Vec<Vec<f32>> {
+            f[..fx.colour_dimension()]
+                .chunks_exact(6)
+                .map(<[f32]>::to_vec)
+                .collect()
+        };
+        let original = cells(fx.features_of(&img));
+        let mirrored = cells(fx.features_of(&img.mirrored()));
+        assert_ne!(original, mirrored);
+        for row in 0..4 {
+            for col in 0..4 {
+                let (a, b) = (&mirrored[row * 4 + col], &original[row * 4 + 3 - col]);
+                assert!(
+                    a.iter().zip(b).all(|(x, y)| (x - y).abs() < 1e-4),
+                    "cell ({row}, {col}): {a:?} vs {b:?}"
+                );
+            }
+        }
     }
 
     #[test]

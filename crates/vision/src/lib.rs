@@ -16,7 +16,7 @@ mod patches;
 pub use colour::{srgb_to_lab, ColourOptions};
 pub use decode::{load_working_image, DecodeOptions, WorkingImage};
 pub use error::VisionError;
-pub use extractor::{FeatureExtractor, FeatureOptions};
+pub use extractor::{FeatureExtractor, FeatureOptions, View, TRAINING_VIEWS};
 pub use patches::{Activation, PatchDictionary, PatchOptions};
 
 /// Progress callback: `(done, total)` work units; called from worker threads.
