@@ -96,27 +96,12 @@ impl WorkingImage {
         }
         let (w, h) = (f64::from(self.width), f64::from(self.height));
         let (cw, ch) = (w * f64::from(fraction), h * f64::from(fraction));
-        let failed = |e: &dyn std::fmt::Display| {
+        let size = (self.width, self.height);
+        let crop = [(w - cw) / 2.0, (h - ch) / 2.0, cw, ch];
+        let rgb = bilinear_resize(self.rgb.clone(), size, size, Some(crop)).map_err(|e| {
             VisionError::InvalidOptions(format!("cannot crop a {w}x{h} picture: {e}"))
-        };
-        let src = fr::images::Image::from_vec_u8(
-            self.width,
-            self.height,
-            self.rgb.clone(),
-            fr::PixelType::U8x3,
-        )
-        .map_err(|e| failed(&e))?;
-        let mut dst = fr::images::Image::new(self.width, self.height, fr::PixelType::U8x3);
-        let options = fr::ResizeOptions::new()
-            .resize_alg(fr::ResizeAlg::Convolution(fr::FilterType::Bilinear))
-            .crop((w - cw) / 2.0, (h - ch) / 2.0, cw, ch);
-        fr::Resizer::new()
-            .resize(&src, &mut dst, &options)
-            .map_err(|e| failed(&e))?;
-        Ok(WorkingImage {
-            rgb: dst.into_vec(),
-            ..*self
-        })
+        })?;
+        Ok(WorkingImage { rgb, ..*self })
     }
 }
 
@@ -300,6 +285,29 @@ fn flatten_on_white(picture: DynamicImage) -> Vec<u8> {
         .collect()
 }
 
+/// RGB pixels of a `from` picture resized (bilinear) to `to`; `crop` = [left, top, width,
+/// height] of the part of the source to use, `None` for all of it. The one resize path of
+/// decoding and of the training views.
+fn bilinear_resize(
+    rgb: Vec<u8>,
+    from: (u32, u32),
+    to: (u32, u32),
+    crop: Option<[f64; 4]>,
+) -> Result<Vec<u8>, String> {
+    let src = fr::images::Image::from_vec_u8(from.0, from.1, rgb, fr::PixelType::U8x3)
+        .map_err(|e| e.to_string())?;
+    let mut dst = fr::images::Image::new(to.0, to.1, fr::PixelType::U8x3);
+    let mut options =
+        fr::ResizeOptions::new().resize_alg(fr::ResizeAlg::Convolution(fr::FilterType::Bilinear));
+    if let Some([left, top, width, height]) = crop {
+        options = options.crop(left, top, width, height);
+    }
+    fr::Resizer::new()
+        .resize(&src, &mut dst, &options)
+        .map_err(|e| e.to_string())?;
+    Ok(dst.into_vec())
+}
+
 /// Resizes to working size, then applies the EXIF orientation (cheap at this size).
 fn finish(
     path: &Path,
@@ -313,15 +321,7 @@ fn finish(
     let resized = if (tw, th) == (width, height) {
         rgb
     } else {
-        let src = fr::images::Image::from_vec_u8(width, height, rgb, fr::PixelType::U8x3)
-            .map_err(|e| corrupt(path, e))?;
-        let mut dst = fr::images::Image::new(tw, th, fr::PixelType::U8x3);
-        let options = fr::ResizeOptions::new()
-            .resize_alg(fr::ResizeAlg::Convolution(fr::FilterType::Bilinear));
-        fr::Resizer::new()
-            .resize(&src, &mut dst, &options)
-            .map_err(|e| corrupt(path, e))?;
-        dst.into_vec()
+        bilinear_resize(rgb, (width, height), (tw, th), None).map_err(|e| corrupt(path, e))?
     };
     let oriented = if orientation == Orientation::NoTransforms {
         (tw, th, resized)
