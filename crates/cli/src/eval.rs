@@ -54,12 +54,12 @@ pub struct EvalArgs {
     pub mean_field_steps: usize,
     /// Chance that the joint model sees a training picture through a view (mirror or
     /// centre crop) instead of the original, each epoch (an experiment switch; 0 = off).
-    #[arg(long, value_name = "X", default_value_t = JointOptions::default().view_share)]
+    #[arg(long, value_name = "X", default_value_t = JointOptions::default().variant_share)]
     pub view_share: f32,
     /// Whether the joint model also trains on every view as an example of its own (an
     /// experiment switch).
     #[arg(long, value_name = "BOOL", action = clap::ArgAction::Set,
-          default_value_t = JointOptions::default().view_rows)]
+          default_value_t = JointOptions::default().variant_rows)]
     pub view_rows: bool,
 }
 
@@ -108,13 +108,13 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
             TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
         },
         mean_field_steps: args.mean_field_steps,
-        view_share: args.view_share,
-        view_rows: args.view_rows,
+        variant_share: args.view_share,
+        variant_rows: args.view_rows,
         ..JointOptions::default()
     };
     // Views of every picture, decoded again from the folder; only the train pictures'
     // reach the joint model. A picture that no longer decodes trains as itself.
-    let views = if joint.view_share > 0.0 || joint.view_rows {
+    let views = if joint.variant_share > 0.0 || joint.variant_rows {
         let bar = progress::bar("describing views");
         let (views, _) = view_features(
             &store,

@@ -92,7 +92,7 @@ impl TagSuggester {
                         .iter()
                         .map(|v| v.select(Axis(0), &fit))
                         .collect();
-                    let (model, summary) = JointModel::fit_with_views(
+                    let (model, summary) = JointModel::fit_with_variants(
                         train.features.select(Axis(0), &fit).view(),
                         &views_of(&fit_views),
                         y.select(Axis(0), &fit).view(),
@@ -130,7 +130,7 @@ impl TagSuggester {
             max_epochs: epochs,
             ..options
         };
-        let (model, _) = JointModel::fit_with_views(
+        let (model, _) = JointModel::fit_with_variants(
             train.features,
             &views_of(train.views),
             y.view(),
@@ -376,8 +376,8 @@ mod tests {
             views: &views,
         };
         let options = JointOptions {
-            view_share: 1.0,
-            view_rows: false,
+            variant_share: 1.0,
+            variant_rows: false,
             ..JointOptions::default()
         };
         let relevant: Vec<Vec<bool>> = tags[180..]

@@ -201,7 +201,7 @@ pub fn train(
         .collect();
     let standardiser = Standardiser::fit(table.features.select(Axis(0), &tagged_features).view());
     let data = tagged_rows(&table, &vocabulary, &standardiser);
-    let uses_views = options.joint.view_share > 0.0 || options.joint.view_rows;
+    let uses_views = options.joint.variant_share > 0.0 || options.joint.variant_rows;
     let (raw_views, without_views) = if uses_views {
         let raw = table.features.select(Axis(0), &data.table_rows);
         view_features(store, &data.items, raw.view(), &mut |done, total| {
@@ -530,7 +530,7 @@ mod tests {
             joint: JointOptions {
                 max_epochs: 3,
                 pretrain_epochs: 1,
-                view_share: 0.5,
+                variant_share: 0.5,
                 ..JointOptions::default()
             },
             ..TrainOptions::default()

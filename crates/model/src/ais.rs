@@ -7,7 +7,8 @@ use ndarray::{Array1, Array2, ArrayView2, Axis};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
-use crate::rbm::{sample_bernoulli, sigmoid, softplus};
+use crate::kernels::sigmoid;
+use crate::rbm::{sample_bernoulli, softplus};
 use crate::{BinaryRbm, ModelError};
 
 /// AIS settings.

@@ -13,10 +13,14 @@
 //! them into the picture–tag model and fine-tunes it as a tag predictor.
 
 mod ais;
+mod early_stopping;
 mod error;
 mod exact;
 mod joint;
+mod kernels;
+mod optimiser;
 mod rbm;
+mod rows;
 mod softmax;
 mod train;
 
@@ -32,11 +36,10 @@ pub use exact::{
 pub use joint::{
     FineTuneReport, JointModel, JointOptions, JointProgress, JointSummary, TagLayer, TagUnits,
 };
-pub use rbm::{
-    matmul, Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits,
-    SAMPLE_CHUNK_ROWS,
-};
+pub use kernels::matmul;
+pub use rbm::{Bernoulli, BinaryRbm, Gaussian, GaussianBernoulliRbm, Rbm, VisibleUnits};
+pub use rows::SAMPLE_CHUNK_ROWS;
 pub use softmax::ReplicatedSoftmaxRbm;
 pub use train::{
-    train, EpochReport, LearningRateSchedule, Sparsity, TrainOptions, TrainSummary, Trainable,
+    train, EpochReport, LearningRateSchedule, RbmTrainingOptions, Sparsity, TrainSummary, Trainable,
 };

@@ -15,10 +15,9 @@ use rand::{Rng, RngCore};
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
-use crate::rbm::{
-    assert_shapes, bernoulli_in_place, exp_approx, for_each_row, for_each_row_seeded,
-    hidden_activation, par_gemm, random_weights, softplus, squared_error,
-};
+use crate::kernels::{bernoulli_in_place, exp_approx, par_gemm};
+use crate::rbm::{assert_shapes, hidden_activation, random_weights, softplus, squared_error};
+use crate::rows::{for_each_row, for_each_row_seeded};
 use crate::train::{sealed, Trainable};
 use crate::{ModelError, MAX_EXACT_HIDDEN};
 
@@ -355,7 +354,7 @@ fn ln_factorial(n: u64) -> f64 {
 mod tests {
     use super::*;
     use crate::rbm::standard_normal;
-    use crate::{train, TrainOptions};
+    use crate::{train, RbmTrainingOptions};
     use ndarray::{array, Axis};
     use rand::SeedableRng;
 
@@ -575,11 +574,11 @@ mod tests {
         let before = init.log_likelihood_exact(held_out.view()).unwrap();
         let unigram = unigram_log_likelihood(&train_rows, &held_out);
         let mut rbm = init.clone();
-        let opts = TrainOptions {
+        let opts = RbmTrainingOptions {
             epochs: 30,
             batch_size: 32,
             learning_rate: 0.02,
-            ..TrainOptions::default()
+            ..RbmTrainingOptions::default()
         };
         let mut reports = Vec::new();
         train(&mut rbm, train_rows.view(), None, &opts, &mut |r| {
@@ -599,11 +598,11 @@ mod tests {
     #[test]
     fn same_seed_same_weights_on_one_or_two_threads() {
         let data = topic_corpus(150, 24, 4, 5);
-        let opts = TrainOptions {
+        let opts = RbmTrainingOptions {
             epochs: 3,
             gibbs_steps: 2,
             persistent: true,
-            ..TrainOptions::default()
+            ..RbmTrainingOptions::default()
         };
         let run = |threads, seed| {
             let pool = rayon::ThreadPoolBuilder::new()
@@ -611,7 +610,7 @@ mod tests {
                 .build()
                 .unwrap();
             let mut rbm = ReplicatedSoftmaxRbm::new(24, 6, 0.01, 4);
-            let opts = TrainOptions {
+            let opts = RbmTrainingOptions {
                 seed,
                 ..opts.clone()
             };
@@ -645,7 +644,7 @@ mod tests {
             &mut rbm.clone(),
             Array2::zeros((2, 4)).view(),
             None,
-            &TrainOptions::default(),
+            &RbmTrainingOptions::default(),
             &mut |_| {},
         )
         .unwrap_err();

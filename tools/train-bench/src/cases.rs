@@ -11,7 +11,7 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use tagweave_model::{
-    matmul, train, BinaryRbm, GaussianBernoulliRbm, Rbm, TrainOptions, VisibleUnits,
+    matmul, train, BinaryRbm, GaussianBernoulliRbm, Rbm, RbmTrainingOptions, VisibleUnits,
 };
 
 use crate::{median, Row};
@@ -27,7 +27,7 @@ pub struct Case {
     units: Units,
     data: Data,
     hidden: usize,
-    opts: TrainOptions,
+    opts: RbmTrainingOptions,
 }
 
 #[derive(Clone, Copy)]
@@ -70,14 +70,14 @@ fn random_rows(units: Units, rows: usize, visible: usize, seed: u64) -> Array2<f
 }
 
 pub fn all(rows: usize, epochs: usize) -> Vec<Case> {
-    let digits_opts = TrainOptions {
+    let digits_opts = RbmTrainingOptions {
         epochs: 20,
         batch_size: 64,
         learning_rate: 0.05,
-        ..TrainOptions::default()
+        ..RbmTrainingOptions::default()
     };
     // scikit-learn's BernoulliRBM: persistent CD-1, no momentum, no weight decay.
-    let like_sklearn = TrainOptions {
+    let like_sklearn = RbmTrainingOptions {
         persistent: true,
         initial_momentum: 0.0,
         final_momentum: 0.0,
@@ -105,11 +105,11 @@ pub fn all(rows: usize, epochs: usize) -> Vec<Case> {
         units,
         data: Data::Random { rows, visible },
         hidden,
-        opts: TrainOptions {
+        opts: RbmTrainingOptions {
             epochs,
             batch_size: batch,
             learning_rate: lr,
-            ..TrainOptions::default()
+            ..RbmTrainingOptions::default()
         },
     };
     cases.push(shaped(
@@ -223,7 +223,7 @@ impl Case {
 fn timed_train<V: VisibleUnits>(
     rbm: &mut Rbm<V>,
     data: ArrayView2<f32>,
-    opts: &TrainOptions,
+    opts: &RbmTrainingOptions,
 ) -> Result<Vec<f64>> {
     let mut epoch_ms = Vec::new();
     let mut last = Instant::now();
