@@ -55,26 +55,35 @@ impl JointModel {
                 let x = picture_rows(features, variants, &pictures_only);
                 let picture_tags: Vec<usize> = pictures_only.iter().map(|&(_, i)| i).collect();
                 let x_target = tags.select(Axis(0), &picture_tags);
+                let revealed = (opts.reveal_share > 0.0)
+                    .then(|| reveal_some(x_target.view(), opts.reveal_share, &mut rng))
+                    .flatten();
                 let t = tags.select(Axis(0), &tags_only);
                 // Where the tags-only codes are pulled: their pictures' own codes, as
                 // constants (no gradient flows into the picture side).
                 let pull = (opts.alignment_weight > 0.0 && !tags_only.is_empty()).then(|| {
-                    self.forward(features.select(Axis(0), &tags_only).view(), Shown::Picture)
-                        .shared
-                        .pop()
-                        .unwrap_or_default()
+                    self.forward(
+                        features.select(Axis(0), &tags_only).view(),
+                        Shown::Picture,
+                        None,
+                    )
+                    .shared
+                    .pop()
+                    .unwrap_or_default()
                 });
                 let groups = [
                     Group {
                         input: x.view(),
                         target: x_target.view(),
                         shown: Shown::Picture,
+                        revealed: revealed.as_ref().map(|r| r.view()),
                         align: None,
                     },
                     Group {
                         input: t.view(),
                         target: t.view(),
                         shown: Shown::Tags,
+                        revealed: None,
                         align: pull.as_ref().map(|p| (opts.alignment_weight, p.view())),
                     },
                 ];
@@ -103,6 +112,25 @@ impl JointModel {
             kept_epoch,
         })
     }
+}
+
+/// For each row of `tags` with at least two tags, with chance `share`, a random
+/// subset of 1 … n − 1 of its n tags (size uniform, then the tags uniform); other rows
+/// reveal nothing. `None` when no row reveals anything.
+fn reveal_some(tags: ArrayView2<f32>, share: f32, rng: &mut ChaCha8Rng) -> Option<Array2<f32>> {
+    let mut revealed = Array2::<f32>::zeros(tags.raw_dim());
+    let mut any = false;
+    for (row, mut out) in tags.outer_iter().zip(revealed.outer_iter_mut()) {
+        let mut carried: Vec<usize> = (0..row.len()).filter(|&j| row[j] > 0.5).collect();
+        if carried.len() < 2 || rng.random::<f32>() >= share {
+            continue;
+        }
+        let k = rng.random_range(1..carried.len());
+        carried.shuffle(rng);
+        carried[..k].iter().for_each(|&j| out[j] = 1.0);
+        any = true;
+    }
+    any.then_some(revealed)
 }
 
 /// Feature rows of `(source, row)` examples: source 0 is `features`, v + 1 is `variants[v]`.

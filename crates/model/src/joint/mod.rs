@@ -223,7 +223,34 @@ impl JointModel {
     /// with the picture side fixed. The tags are read out from the final shared layer.
     pub fn fill_in_tags(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, ModelError> {
         self.image.check_rows("features", features)?;
-        Ok(self.forward(features, Shown::Picture).logits.mapv(sigmoid))
+        Ok(self
+            .forward(features, Shown::Picture, None)
+            .logits
+            .mapv(sigmoid))
+    }
+
+    /// Tag probabilities (pictures × tags) from pictures and tags they are known to
+    /// carry (`revealed`: 0/1 rows, one per picture; an all-zero row is picture-only
+    /// fill-in). The revealed tags themselves come back near 1; callers rank the others.
+    pub fn fill_in_tags_given(
+        &self,
+        features: ArrayView2<f32>,
+        revealed: ArrayView2<f32>,
+    ) -> Result<Array2<f32>, ModelError> {
+        self.image.check_rows("features", features)?;
+        self.tags.check_rows("revealed tags", revealed)?;
+        check_tags("revealed tags", revealed)?;
+        if revealed.nrows() != features.nrows() {
+            return Err(ModelError::RowMismatch {
+                what: "the revealed tag matrix",
+                expected: features.nrows(),
+                got: revealed.nrows(),
+            });
+        }
+        Ok(self
+            .forward(features, Shown::Picture, Some(revealed))
+            .logits
+            .mapv(sigmoid))
     }
 
     /// Shared-layer probabilities from pictures alone, after the same mean-field steps
@@ -231,7 +258,7 @@ impl JointModel {
     pub fn shared_code(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, ModelError> {
         self.image.check_rows("features", features)?;
         Ok(self
-            .forward(features, Shown::Picture)
+            .forward(features, Shown::Picture, None)
             .shared
             .pop()
             .unwrap_or_default())
@@ -243,7 +270,7 @@ impl JointModel {
         self.tags.check_rows("tags", tags)?;
         check_tags("tags", tags)?;
         Ok(self
-            .forward(tags, Shown::Tags)
+            .forward(tags, Shown::Tags, None)
             .shared
             .pop()
             .unwrap_or_default())
@@ -259,7 +286,7 @@ impl JointModel {
         self.image.check_rows("features", features)?;
         self.tags.check_rows("tags", tags)?;
         check_tags("tags", tags)?;
-        let pass = self.forward(features, Shown::Picture);
+        let pass = self.forward(features, Shown::Picture, None);
         Ok((cross_entropy(pass.logits.view(), tags) / features.nrows().max(1) as f64) as f32)
     }
 }

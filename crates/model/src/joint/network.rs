@@ -46,6 +46,8 @@ pub(super) struct Group<'a> {
     pub(super) input: ArrayView2<'a, f32>,
     pub(super) target: ArrayView2<'a, f32>,
     pub(super) shown: Shown,
+    /// With the picture shown: 0/1 tags it reveals as evidence (rows like `input`).
+    pub(super) revealed: Option<ArrayView2<'a, f32>>,
     /// Alignment weight and the codes (held fixed) the examples' codes are pulled toward.
     pub(super) align: Option<(f32, ArrayView2<'a, f32>)>,
 }
@@ -63,17 +65,32 @@ pub(super) const SHARED_VISIBLE_B: usize = 8;
 
 impl JointModel {
     /// `input`: features when `shown` is the picture, 0/1 tags when it is the tags.
-    pub(super) fn forward(&self, input: ArrayView2<f32>, shown: Shown) -> Pass {
+    ///
+    /// `revealed` (picture shown only): tags the pictures are known to carry. They enter
+    /// the tag pathway bottom-up, and every mean-field step adds their bottom-up input
+    /// to the top-down one, as in mean-field inference of a multimodal deep Boltzmann
+    /// machine, where a hidden layer hears the layers below and above it (source:
+    /// Srivastava & Salakhutdinov, "Multimodal Learning with Deep Boltzmann Machines",
+    /// JMLR 15, 2014, section 4). Without revealed tags this is picture-only fill-in.
+    pub(super) fn forward(
+        &self,
+        input: ArrayView2<f32>,
+        shown: Shown,
+        revealed: Option<ArrayView2<f32>>,
+    ) -> Pass {
         let rows = input.nrows();
         // The missing side's pathway sees an all-zero input: one row, repeated.
         let (image, tags) = match shown {
             Shown::Picture => (
                 self.image.hidden_probabilities(input),
-                repeat_row(
-                    self.tags
-                        .hidden_probabilities(Array2::zeros((1, self.n_tags())).view()),
-                    rows,
-                ),
+                match revealed {
+                    Some(r) => self.tags.hidden_probabilities(r),
+                    None => repeat_row(
+                        self.tags
+                            .hidden_probabilities(Array2::zeros((1, self.n_tags())).view()),
+                        rows,
+                    ),
+                },
             ),
             Shown::Tags => (
                 repeat_row(
@@ -91,10 +108,17 @@ impl JointModel {
         let (w_kept, w_missing, a_missing) = self.shared_sides(shown);
         let fixed = kept.dot(&w_kept) + &self.shared.hidden_bias;
         let mut shared = vec![(&fixed + &missing.dot(&w_missing)).mapv(sigmoid)];
+        let evidence = revealed
+            .filter(|_| shown == Shown::Picture)
+            .map(|r| r.dot(self.tags.weights()));
         let mut filled = Vec::with_capacity(self.mean_field_steps);
         for _ in 0..self.mean_field_steps {
             let last = &shared[shared.len() - 1];
-            let h = (last.dot(&w_missing.t()) + a_missing).mapv(sigmoid);
+            let mut pre = last.dot(&w_missing.t()) + a_missing;
+            if let Some(u) = &evidence {
+                pre += u;
+            }
+            let h = pre.mapv(sigmoid);
             shared.push((&fixed + &h.dot(&w_missing)).mapv(sigmoid));
             filled.push(h);
         }
@@ -192,7 +216,7 @@ impl JointModel {
     /// Adds one group's gradient (its loss divided by `n`, the batch's rows) to `grads`
     /// and returns that loss.
     fn group_gradients(&self, group: &Group, n: f32, grads: &mut [ArrayD<f32>]) -> f64 {
-        let pass = self.forward(group.input, group.shown);
+        let pass = self.forward(group.input, group.shown, group.revealed);
         let code = pass.code();
         let mut loss = cross_entropy(pass.logits.view(), group.target) / f64::from(n);
         let d_logits = (pass.logits.mapv(sigmoid) - group.target) / n;
@@ -210,6 +234,8 @@ impl JointModel {
         let mut d_fixed = Array2::<f32>::zeros(code.raw_dim());
         let mut d_w_missing = Array2::<f32>::zeros(w_missing.raw_dim());
         let mut d_a_missing = Array1::<f32>::zeros(w_missing.nrows());
+        // Gradient at the revealed tags' bottom-up input, summed over the steps.
+        let mut d_evidence = Array2::<f32>::zeros((code.nrows(), w_missing.nrows()));
         for t in (1..pass.shared.len()).rev() {
             let d_pre = g * sigmoid_slope(&pass.shared[t]);
             d_fixed += &d_pre;
@@ -218,6 +244,7 @@ impl JointModel {
             let d_h = d_pre.dot(&w_missing.t()) * sigmoid_slope(h);
             d_w_missing += &d_h.t().dot(&pass.shared[t - 1]);
             d_a_missing += &d_h.sum_axis(Axis(0));
+            d_evidence += &d_h;
             g = d_h.dot(&w_missing);
         }
         let d_pre = g * sigmoid_slope(&pass.shared[0]);
@@ -251,11 +278,19 @@ impl JointModel {
         match group.shown {
             Shown::Picture => {
                 add(grads, IMAGE_W, group.input.t().dot(&d_image));
-                // The tag input is zero: no weight gradient; the hidden bias enters
-                // scaled by the tag count (0 for the replicated softmax).
-                let zero = Array2::zeros((1, self.n_tags()));
-                let scale = self.tags.bias_scales(zero.view())[0];
-                add(grads, TAG_B, d_tags.sum_axis(Axis(0)) * scale);
+                match group.revealed {
+                    Some(r) => {
+                        add(grads, TAG_W, r.t().dot(&(d_tags.clone() + &d_evidence)));
+                        add(grads, TAG_B, self.tags.bias_scales(r).dot(&d_tags));
+                    }
+                    None => {
+                        // The tag input is zero: no weight gradient; the hidden bias
+                        // enters scaled by the tag count (0 for the replicated softmax).
+                        let zero = Array2::zeros((1, self.n_tags()));
+                        let scale = self.tags.bias_scales(zero.view())[0];
+                        add(grads, TAG_B, d_tags.sum_axis(Axis(0)) * scale);
+                    }
+                }
             }
             Shown::Tags => {
                 add(grads, TAG_W, group.input.t().dot(&d_tags));

@@ -55,6 +55,12 @@ pub struct JointOptions {
     /// gain in tag ranking came with worse query results (measured: BENCHMARKS.md,
     /// section "Picture variants").
     pub variant_rows: bool,
+    /// Chance that a training picture shown as a picture also reveals some of its own
+    /// tags as evidence (a random subset of 1 … n − 1 of its n tags, drawn anew each
+    /// epoch), while the read-out is still asked for all of them: the model is trained
+    /// the way tag completion uses it. 0 = pictures alone (default 0.5; measured:
+    /// BENCHMARKS.md, "Tag completion").
+    pub reveal_share: f32,
 }
 
 /// How the tag pathway sees a bag of tags. Binary is the default because it ranks tags
@@ -88,6 +94,7 @@ impl Default for JointOptions {
             alignment_weight: 0.0,
             variant_share: 0.0,
             variant_rows: false,
+            reveal_share: 0.5,
         }
     }
 }
@@ -135,6 +142,13 @@ impl JointOptions {
                 "variant_share",
                 self.variant_share.to_string(),
                 "use a value in [0, 1], e.g. 0.5 (0 = originals only)",
+            );
+        }
+        if !(0.0..=1.0).contains(&self.reveal_share) {
+            return bad(
+                "reveal_share",
+                self.reveal_share.to_string(),
+                "use a value in [0, 1], e.g. 0.5 (0 = pictures alone)",
             );
         }
         if !(self.alignment_weight >= 0.0 && self.alignment_weight.is_finite()) {

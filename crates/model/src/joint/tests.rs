@@ -88,9 +88,13 @@ fn backprop_check(tag_units: TagUnits, steps: usize) {
     for mut p in model.parameters_mut() {
         p.mapv_inplace(|_| 0.7 * standard_normal(&mut rng));
     }
-    // rows 0, 2, 3 shown as pictures; rows 1 and 4 as tags, pulled toward fixed codes
-    let pictures = x.select(Axis(0), &[0, 2, 3]);
-    let picture_tags = t.select(Axis(0), &[0, 2, 3]);
+    // rows 0 and 2 shown as pictures revealing some tags, row 3 as a picture alone;
+    // rows 1 and 4 as tags, pulled toward fixed codes
+    let pictures = x.select(Axis(0), &[0, 2]);
+    let picture_tags = t.select(Axis(0), &[0, 2]);
+    let revealed = ndarray::array![[1.0f32, 0.0, 1.0, 0.0], [0.0, 1.0, 0.0, 0.0]];
+    let alone = x.select(Axis(0), &[3]);
+    let alone_tags = t.select(Axis(0), &[3]);
     let tag_rows = t.select(Axis(0), &[1, 4]);
     let pull = Array2::from_shape_fn((2, 3), |_| rng.random::<f32>());
     let groups = [
@@ -98,12 +102,21 @@ fn backprop_check(tag_units: TagUnits, steps: usize) {
             input: pictures.view(),
             target: picture_tags.view(),
             shown: Shown::Picture,
+            revealed: Some(revealed.view()),
+            align: None,
+        },
+        Group {
+            input: alone.view(),
+            target: alone_tags.view(),
+            shown: Shown::Picture,
+            revealed: None,
             align: None,
         },
         Group {
             input: tag_rows.view(),
             target: tag_rows.view(),
             shown: Shown::Tags,
+            revealed: None,
             align: Some((0.8, pull.view())),
         },
     ];
@@ -222,6 +235,44 @@ fn mean_field_matches_a_hand_unrolled_computation() {
                 "{steps} steps: {g} vs {w}"
             );
         }
+        // picture shown with tags 0 and 2 revealed: the tag pathway hears them bottom-up
+        // first, then at every step top-down plus bottom-up without its own bias
+        // (source: Srivastava & Salakhutdinov, JMLR 15, 2014, section 4: a hidden
+        // layer's mean-field input sums the layers below and above it)
+        let bottom_up = |k: usize| t[0] * w_tag[0][k] + t[1] * w_tag[1][k] + t[2] * w_tag[2][k];
+        let mut h_tag = layer(&t, &w_tag, &[-0.4, 0.6]);
+        let mut s = shared_of(&[h_img.clone(), h_tag.clone()].concat());
+        for _ in 0..steps {
+            let top_down: Vec<f64> = (2..4)
+                .map(|i| a_s[i] + s[0] * w_s[i][0] + s[1] * w_s[i][1])
+                .collect();
+            h_tag = (0..2).map(|k| sig(top_down[k] + bottom_up(k))).collect();
+            s = shared_of(&[h_img.clone(), h_tag.clone()].concat());
+        }
+        let want_given: Vec<f64> = (0..3)
+            .map(|k| {
+                let r = [[1.0, -1.5, 0.5], [-0.25, 2.0, 0.75]];
+                sig([0.1, 0.0, -0.1][k] + s[0] * r[0][k] + s[1] * r[1][k])
+            })
+            .collect();
+        let shown = Array2::from_shape_vec((1, 3), t.map(|v| v as f32).to_vec()).unwrap();
+        let given = model
+            .fill_in_tags_given(features.view(), shown.view())
+            .unwrap();
+        for (g, w) in given.iter().zip(&want_given) {
+            assert!(
+                (f64::from(*g) - w).abs() < 1e-6,
+                "{steps} steps, tags revealed: {g} vs {w}"
+            );
+        }
+        // an empty revealed row is picture-only fill-in
+        let empty = Array2::zeros((1, 3));
+        assert_eq!(
+            model
+                .fill_in_tags_given(features.view(), empty.view())
+                .unwrap(),
+            got
+        );
         // tags shown: the image pathway sees an all-zero picture first
         let h_tag = layer(&t, &w_tag, &[-0.4, 0.6]);
         let mut h_img = layer(&[0.0; 2], &w_img, &[0.1, -0.2]);
