@@ -3,10 +3,10 @@
 use std::path::PathBuf;
 
 use anyhow::Context;
-use tagweave_eval::TrainingRun;
 use tagweave_indexer::{TrainOptions, TrainProgress, TrainReport, TrainedModel};
 use tagweave_model::JointProgress;
 use tagweave_store::Store;
+use tagweave_suggest::TrainingRun;
 
 use crate::exit::Outcome;
 use crate::{curve, progress, store_path, StoreArgs};

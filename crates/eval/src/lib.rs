@@ -11,24 +11,22 @@
 
 mod audit;
 mod baselines;
-mod calibration;
 mod error;
 mod joint;
 mod linalg;
 pub mod metrics;
 mod mislabel;
+mod reliability;
 mod report;
 mod runner;
 mod split;
 
 pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
-pub use baselines::{
-    knn_leave_one_out_scores, KnnScorer, PriorScorer, RidgeScorer, TagScorer, TrainSet,
-};
-pub use calibration::{Calibration, Reliability, ReliabilityBin};
+pub use baselines::{PriorScorer, RidgeScorer, TagScorer};
 pub use error::EvalError;
-pub use joint::{JointScorer, TagSuggester, TrainingRun};
+pub use joint::JointScorer;
 pub use mislabel::{disagreement, inject_mislabels, Injection};
+pub use reliability::{Reliability, ReliabilityBin};
 pub use report::{MethodReport, Report, SplitSummary};
 pub use runner::{baselines, evaluate, evaluate_with_views, EvalOptions, Progress, SUGGESTIONS};
-pub use split::{group_ids, split, Split, Standardiser, Vocabulary};
+pub use split::{split, Split};

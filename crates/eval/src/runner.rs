@@ -6,15 +6,17 @@ use std::time::Instant;
 
 use ndarray::{Array2, ArrayView2, Axis};
 
+use tagweave_suggest::{group_ids, KnnScorer, Standardiser, TagColumns, TrainSet};
+
 use crate::metrics::{
     annotation_scores, coverage_error, label_ranking_average_precision, mean, pair_search_map,
     precision_at_count, precision_at_k, recall_at_k, roc_auc, select_pairs, tag_search_map,
     MIN_SEARCH_POSITIVES,
 };
-use crate::split::group_ids;
+
 use crate::{
-    inject_mislabels, split, EvalError, Injection, KnnScorer, MethodReport, PriorScorer,
-    Reliability, Report, RidgeScorer, SplitSummary, Standardiser, TagScorer, TrainSet, Vocabulary,
+    inject_mislabels, split, EvalError, Injection, MethodReport, PriorScorer, Reliability, Report,
+    RidgeScorer, SplitSummary, TagScorer,
 };
 
 /// Tags suggested per picture for P@5, R@5 and per-tag annotation.
@@ -266,14 +268,14 @@ pub fn evaluate_with_views(
         options.train_fraction,
         options.seed,
     )?;
-    let vocabulary = Vocabulary::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
-    if vocabulary.is_empty() {
+    let columns = TagColumns::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
+    if columns.is_empty() {
         return Err(EvalError::EmptyVocabulary);
     }
     let encoded = |items: &[usize]| -> (Vec<usize>, Vec<Vec<usize>>) {
         items
             .iter()
-            .map(|&i| (i, vocabulary.encode(&tags[i])))
+            .map(|&i| (i, columns.encode(&tags[i])))
             .filter(|(_, t)| !t.is_empty())
             .unzip()
     };
@@ -286,7 +288,7 @@ pub fn evaluate_with_views(
         .test
         .iter()
         .flat_map(|&i| &tags[i])
-        .filter(|t| vocabulary.index_of(t).is_none())
+        .filter(|t| columns.index_of(t).is_none())
         .collect();
 
     let standardiser = Standardiser::fit(features.select(Axis(0), &train_rows).view());
@@ -299,7 +301,7 @@ pub fn evaluate_with_views(
     let all_groups = group_ids(content_keys);
     let train_groups: Vec<usize> = train_rows.iter().map(|&i| all_groups[i]).collect();
 
-    let n_tags = vocabulary.len();
+    let n_tags = columns.len();
     let mut matrix = Array2::from_elem((test_rows.len(), n_tags), false);
     for (i, list) in test_lists.iter().enumerate() {
         list.iter().for_each(|&t| matrix[[i, t]] = true);
@@ -579,8 +581,8 @@ mod tests {
         let report = evaluate(x.view(), &tags, &keys, &options, &mut methods, &mut |_| {}).unwrap();
         assert_eq!(report.split.unseen_test_tags, 1);
 
-        let vocabulary = Vocabulary::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
-        assert!(vocabulary.index_of("held-out-canary").is_none());
+        let columns = TagColumns::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
+        assert!(columns.index_of("held-out-canary").is_none());
         let standardiser = Standardiser::fit(x.select(Axis(0), &parts.train).view());
         let fitted = fitted_on.borrow();
         assert_eq!(fitted.len(), 1);
@@ -589,7 +591,7 @@ mod tests {
         let want: Vec<Vec<usize>> = parts
             .train
             .iter()
-            .map(|&i| vocabulary.encode(&tags[i]))
+            .map(|&i| columns.encode(&tags[i]))
             .collect();
         assert_eq!(got_tags, &want);
         assert_eq!(

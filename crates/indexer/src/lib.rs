@@ -37,7 +37,7 @@ pub enum IndexError {
     #[error("the store disagrees with itself: {0}")]
     Inconsistent(String),
     #[error(transparent)]
-    Model(tagweave_eval::EvalError),
+    Suggest(#[from] tagweave_suggest::SuggestError),
     #[error(
         "only {tagged} tagged picture(s) with features: the model needs at least 2 to learn \
          from; tag a few pictures (a text sidecar beside each, one tag per line) and scan again"

@@ -10,11 +10,12 @@ use ndarray::{Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use tagweave_collection::ItemRecord;
-use tagweave_eval::{
-    group_ids, KnnScorer, Standardiser, TagSuggester, TrainSet, TrainingRun, Vocabulary,
-};
 use tagweave_model::{JointOptions, JointProgress};
 use tagweave_store::Store;
+use tagweave_suggest::{
+    group_ids, KnnScorer, Standardiser, SuggestError, TagColumns, TagSuggester, TrainSet,
+    TrainingRun,
+};
 use tagweave_vision::{FeatureExtractor, TRAINING_VIEWS};
 
 use crate::{FeatureTable, IndexError, BATCH, EXTRACTOR_BLOB, FEATURES};
@@ -151,7 +152,7 @@ impl TrainingData {
 /// left with no known tag are dropped) and scales their features.
 fn tagged_rows(
     table: &FeatureTable,
-    vocabulary: &Vocabulary,
+    vocabulary: &TagColumns,
     standardiser: &Standardiser,
 ) -> TrainingData {
     let mut rows = Vec::new();
@@ -195,7 +196,7 @@ pub fn train(
             tagged: tagged.len(),
         });
     }
-    let vocabulary = Vocabulary::from_items(tagged.iter().copied());
+    let vocabulary = TagColumns::from_items(tagged.iter().copied());
     let tagged_features: Vec<usize> = (0..table.items.len())
         .filter(|&i| !table.items[i].tags.is_empty())
         .collect();
@@ -223,15 +224,14 @@ pub fn train(
     let (suggester, _) = TagSuggester::train(&train_set, &options.joint, &mut |run, p| {
         record(&mut history, run, &p);
         progress(TrainProgress::Model(run, p));
-    })
-    .map_err(IndexError::Model)?;
+    })?;
     history.pictures = data.items.len();
     history.seconds = started.elapsed().as_secs_f64();
 
     let codes = suggester
-        .model
+        .network
         .shared_code(data.features.view())
-        .map_err(|e| IndexError::Model(model_error(e)))?;
+        .map_err(SuggestError::from)?;
     let model = TrainedModel {
         format: MODEL_FORMAT,
         vocabulary: vocabulary.tags().to_vec(),
@@ -248,7 +248,7 @@ pub fn train(
     })?;
 
     let h = &model.history;
-    let m = &model.suggester.model;
+    let m = &model.suggester.network;
     Ok(TrainReport {
         pictures: data.items.len(),
         without_views,
@@ -384,13 +384,6 @@ fn column_medians(codes: ArrayView2<f32>) -> Vec<f32> {
         .collect()
 }
 
-fn model_error(source: tagweave_model::ModelError) -> tagweave_eval::EvalError {
-    tagweave_eval::EvalError::Model {
-        method: "joint".into(),
-        source,
-    }
-}
-
 impl TrainedModel {
     /// The store's model; `None` before the first `tagweave train`.
     ///
@@ -429,16 +422,17 @@ impl TrainedModel {
 
     /// Codes (shared-layer probabilities) of raw feature rows.
     pub fn codes(&self, raw: ArrayView2<f32>) -> Result<Array2<f32>, IndexError> {
-        self.suggester
-            .model
+        Ok(self
+            .suggester
+            .network
             .shared_code(self.scale(raw)?.view())
-            .map_err(|e| IndexError::Model(model_error(e)))
+            .map_err(SuggestError::from)?)
     }
 
     /// The kNN part of the suggestions, on the store's tagged pictures as they are
     /// now (tags accepted since training count at once), plus those pictures.
     pub fn neighbours(&self, table: &FeatureTable) -> Result<(KnnScorer, Vec<String>), IndexError> {
-        let vocabulary = Vocabulary::from_items([self.vocabulary.as_slice()]);
+        let vocabulary = TagColumns::from_items([self.vocabulary.as_slice()]);
         let data = tagged_rows(table, &vocabulary, &self.standardiser);
         let knn = self
             .suggester

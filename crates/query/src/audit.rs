@@ -2,7 +2,7 @@
 
 use ndarray::Array2;
 use serde::Serialize;
-use tagweave_eval::metrics::column_midranks;
+use tagweave_suggest::ranking::column_midranks;
 
 use crate::{Queries, Result, TagScore};
 

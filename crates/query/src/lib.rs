@@ -11,9 +11,9 @@ use std::path::{Path, PathBuf};
 use ndarray::{Array2, Axis};
 use serde::Serialize;
 use tagweave_collection::{normalize_tag, ItemRecord};
-use tagweave_eval::KnnScorer;
 use tagweave_indexer::{FeatureTable, IndexError, TrainedModel, CODES, EXTRACTOR_BLOB};
 use tagweave_store::{CodeIndex, SearchMode, Store, StoreError};
+use tagweave_suggest::{KnnScorer, SuggestError};
 use tagweave_vision::{FeatureExtractor, VisionError};
 
 mod audit;
@@ -46,7 +46,7 @@ pub enum QueryError {
     #[error(transparent)]
     Store(#[from] StoreError),
     #[error(transparent)]
-    Eval(#[from] tagweave_eval::EvalError),
+    Suggest(#[from] SuggestError),
 }
 
 pub type Result<T> = std::result::Result<T, QueryError>;
@@ -314,12 +314,9 @@ impl Queries {
         let code = self
             .model
             .suggester
-            .model
+            .network
             .shared_code(self.scaled.select(Axis(0), &[row]).view())
-            .map_err(|source| tagweave_eval::EvalError::Model {
-                method: "joint".into(),
-                source,
-            })?;
+            .map_err(SuggestError::from)?;
         Ok(code.row(0).to_vec())
     }
 
