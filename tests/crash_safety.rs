@@ -212,13 +212,13 @@ fn store_state(folder: &Path, total_items: usize) -> String {
         .iter()
         .filter(|i| {
             store
-                .vector(tagweave_indexer::FEATURES, &i.id)
+                .vector(tagweave_store::FEATURES, &i.id)
                 .unwrap()
                 .is_some()
         })
         .count();
     let learned = store
-        .blob::<serde_json::Value>(tagweave_indexer::EXTRACTOR_BLOB)
+        .blob::<serde_json::Value>(tagweave_store::EXTRACTOR_BLOB)
         .unwrap()
         .is_some();
     match (items.len(), learned, described) {
@@ -253,7 +253,7 @@ fn scan_result(folder: &Path) -> (Vec<String>, Vec<Vec<u32>>, serde_json::Value)
         .iter()
         .map(|i| {
             store
-                .vector(tagweave_indexer::FEATURES, &i.id)
+                .vector(tagweave_store::FEATURES, &i.id)
                 .unwrap()
                 .unwrap_or_else(|| panic!("{} has features", i.rel_path))
                 .iter()
@@ -262,7 +262,7 @@ fn scan_result(folder: &Path) -> (Vec<String>, Vec<Vec<u32>>, serde_json::Value)
         })
         .collect();
     let extractor = store
-        .blob(tagweave_indexer::EXTRACTOR_BLOB)
+        .blob(tagweave_store::EXTRACTOR_BLOB)
         .unwrap()
         .expect("an extractor");
     (records, vectors, extractor)

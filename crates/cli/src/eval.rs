@@ -6,8 +6,9 @@ use tagweave_eval::{
     audit_out_of_fold, baselines, evaluate_with_views, EvalOptions, JointScorer, Progress,
     TagScorer,
 };
-use tagweave_indexer::{view_features, FeatureTable};
+use tagweave_indexer::view_features;
 use tagweave_model::{JointOptions, TagUnits};
+use tagweave_store::FeatureTable;
 
 use crate::exit::Outcome;
 use crate::progress;

@@ -3,7 +3,7 @@
 use std::path::PathBuf;
 
 use anyhow::Context;
-use tagweave_indexer::{TrainOptions, TrainProgress, TrainReport, TrainedModel};
+use tagweave_indexer::{load_model, TrainOptions, TrainProgress, TrainReport};
 use tagweave_model::JointProgress;
 use tagweave_store::Store;
 use tagweave_suggest::TrainingRun;
@@ -78,7 +78,7 @@ pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainRep
         }
     })?;
     bar.finish_and_clear();
-    let model = TrainedModel::load(store)?.context("the model just trained is not in the store")?;
+    let model = load_model(store)?.context("the model just trained is not in the store")?;
     let path = store.dir().join(CURVE_FILE);
     std::fs::write(&path, curve::render(&model.history, report.epochs))
         .with_context(|| format!("cannot write the training curves to {}", path.display()))?;

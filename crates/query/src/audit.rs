@@ -78,7 +78,7 @@ impl Queries {
                     .tags
                     .iter()
                     .filter_map(|t| {
-                        let c = *self.tag_column.get(t)?;
+                        let c = self.columns.index_of(t)?;
                         Some(DisputedTag {
                             tag: t.clone(),
                             neighbours_carrying: shares[[r, c]],

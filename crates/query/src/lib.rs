@@ -8,12 +8,13 @@
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
-use ndarray::{Array2, Axis};
+use ndarray::{Array1, Array2, Axis};
 use serde::Serialize;
 use tagweave_collection::{normalize_tag, ItemRecord};
-use tagweave_indexer::{FeatureTable, IndexError, TrainedModel, CODES, EXTRACTOR_BLOB};
-use tagweave_store::{CodeIndex, SearchMode, Store, StoreError};
-use tagweave_suggest::{KnnScorer, SuggestError};
+use tagweave_store::{
+    CodeIndex, FeatureTable, SearchMode, Store, StoreError, CODES, EXTRACTOR_BLOB,
+};
+use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_FORMAT};
 use tagweave_vision::{FeatureExtractor, VisionError};
 
 mod audit;
@@ -41,8 +42,6 @@ pub enum QueryError {
          picture file to judge on its own"
     )]
     NotIndexed { path: PathBuf },
-    #[error(transparent)]
-    Index(#[from] IndexError),
     #[error(transparent)]
     Store(#[from] StoreError),
     #[error(transparent)]
@@ -92,7 +91,7 @@ impl Default for Ranking {
 /// A trained store opened for questions.
 pub struct Queries {
     root: PathBuf,
-    model: TrainedModel,
+    trained: TrainedModel,
     /// Every picture with features, by relative path.
     items: Vec<ItemRecord>,
     /// Their features, scaled for the model (same row order).
@@ -104,37 +103,32 @@ pub struct Queries {
     neighbours: KnnScorer,
     /// For each item row, its row among the neighbours' pictures (tagged ones only).
     neighbour_row: Vec<Option<usize>>,
-    tag_column: HashMap<String, usize>,
+    columns: TagColumns,
     extractor: Option<FeatureExtractor>,
 }
 
 impl Queries {
     pub fn open(store: &Store) -> Result<Queries> {
-        let model = TrainedModel::load(store)?.ok_or(QueryError::NotTrained)?;
+        let trained = store
+            .model(MODEL_FORMAT, |m: &TrainedModel| m.format)?
+            .ok_or(QueryError::NotTrained)?;
         let table = FeatureTable::load(store)?;
-        let scaled = model.scale(table.features.view())?;
-        let (neighbours, neighbour_ids) = model.neighbours(&table)?;
-        let row_of_id: HashMap<String, usize> = table
+        let scaled = trained.scale(table.features.view())?;
+        let (neighbours, neighbour_rows) =
+            trained.neighbours(&table.tags(), &table.content_keys(), table.features.view());
+        let mut neighbour_row = vec![None; table.items.len()];
+        for (j, &i) in neighbour_rows.iter().enumerate() {
+            neighbour_row[i] = Some(j);
+        }
+        let row_of_id: HashMap<&str, usize> = table
             .items
             .iter()
             .enumerate()
-            .map(|(i, item)| (item.id.clone(), i))
+            .map(|(i, item)| (item.id.as_str(), i))
             .collect();
-        let mut neighbour_row = vec![None; table.items.len()];
-        for (j, id) in neighbour_ids.iter().enumerate() {
-            if let Some(&i) = row_of_id.get(id) {
-                neighbour_row[i] = Some(j);
-            }
-        }
-        let codes = CodeIndex::load(store, CODES, &model.hash_thresholds)?;
+        let codes = CodeIndex::load(store, CODES, &trained.hash_thresholds)?;
         let item_of_code = (0..codes.len())
             .map(|r| row_of_id.get(codes.id(r)).copied())
-            .collect();
-        let tag_column = model
-            .vocabulary
-            .iter()
-            .enumerate()
-            .map(|(i, t)| (t.clone(), i))
             .collect();
         Ok(Queries {
             root: store.collection_root().to_path_buf(),
@@ -145,8 +139,8 @@ impl Queries {
             item_of_code,
             neighbours,
             neighbour_row,
-            tag_column,
-            model,
+            columns: trained.columns(),
+            trained,
         })
     }
 
@@ -155,7 +149,7 @@ impl Queries {
     }
 
     pub fn vocabulary(&self) -> &[String] {
-        &self.model.vocabulary
+        &self.trained.vocabulary
     }
 
     /// The row of a picture given as a path (relative to the current folder, absolute,
@@ -178,7 +172,7 @@ impl Queries {
         let x = self.scaled.select(Axis(0), rows);
         let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
         Ok(self
-            .model
+            .trained
             .suggester
             .suggest(x.view(), &self.neighbours, &exclude)?)
     }
@@ -201,12 +195,10 @@ impl Queries {
                 path: path.to_path_buf(),
                 source,
             })?;
-        let n = raw.len();
-        let raw = Array2::from_shape_vec((1, n), raw)
-            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
-        let x = self.model.scale(raw.view())?;
+        let raw = Array1::from(raw).insert_axis(Axis(0));
+        let x = self.trained.scale(raw.view())?;
         let p = self
-            .model
+            .trained
             .suggester
             .suggest(x.view(), &self.neighbours, &[])?;
         Ok(p.row(0).to_vec())
@@ -215,7 +207,7 @@ impl Queries {
     /// Probabilities as tag scores, best first; `carried` marks the picture's own tags.
     pub fn tag_scores(&self, probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
         let mut out: Vec<TagScore> = self
-            .model
+            .trained
             .vocabulary
             .iter()
             .zip(probabilities)
@@ -238,11 +230,11 @@ impl Queries {
         if tags.is_empty() {
             return Err(QueryError::NoTags);
         }
-        let mut row = Array2::zeros((1, self.model.vocabulary.len()));
+        let mut row = Array2::zeros((1, self.columns.len()));
         let mut unknown = Vec::new();
         for tag in tags {
-            match normalize_tag(tag).and_then(|t| self.tag_column.get(&t)) {
-                Some(&c) => row[[0, c]] = 1.0,
+            match normalize_tag(tag).and_then(|t| self.columns.index_of(&t)) {
+                Some(c) => row[[0, c]] = 1.0,
                 None => unknown.push(tag.clone()),
             }
         }
@@ -260,7 +252,7 @@ impl Queries {
         let chosen: Vec<&Vec<f32>> = row
             .row(0)
             .iter()
-            .zip(&self.model.tag_centroids)
+            .zip(&self.trained.tag_centroids)
             .filter(|(&v, _)| v > 0.0)
             .map(|(_, c)| c)
             .collect();
@@ -312,11 +304,9 @@ impl Queries {
 
     fn code_of_row(&self, row: usize) -> Result<Vec<f32>> {
         let code = self
-            .model
+            .trained
             .suggester
-            .network
-            .shared_code(self.scaled.select(Axis(0), &[row]).view())
-            .map_err(SuggestError::from)?;
+            .codes(self.scaled.select(Axis(0), &[row]).view())?;
         Ok(code.row(0).to_vec())
     }
 

@@ -17,6 +17,7 @@ mod suggester;
 #[cfg(test)]
 mod test_support;
 mod train_set;
+mod trained;
 
 pub use calibration::Calibration;
 pub use columns::TagColumns;
@@ -27,3 +28,4 @@ pub use suggester::{TagSuggester, TrainingRun};
 pub use train_set::{
     choose_by_cv, group_ids, grouped_folds, tag_frequencies, tag_matrix, TrainSet,
 };
+pub use trained::{TrainedModel, TrainingData, TrainingHistory, MODEL_FORMAT};

@@ -172,6 +172,11 @@ impl TagSuggester {
         })
     }
 
+    /// Codes (shared-layer probabilities) of standardised features.
+    pub fn codes(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, SuggestError> {
+        Ok(self.network.shared_code(features)?)
+    }
+
     /// Layer sizes, epochs and blend, for reports.
     pub fn describe(&self) -> String {
         let m = &self.network;

@@ -59,12 +59,13 @@ pub fn tag_frequencies<'a>(
 /// (exact duplicates must land on the same side, or the test part leaks);
 /// an empty key means "unknown" and makes the item its own group. Ids are
 /// numbered in order of first appearance so they do not depend on hashing.
-pub fn group_ids(content_keys: &[String]) -> Vec<usize> {
+pub fn group_ids<K: AsRef<str>>(content_keys: &[K]) -> Vec<usize> {
     let mut seen: HashMap<&str, usize> = HashMap::new();
     let mut next = 0;
     let mut ids = Vec::with_capacity(content_keys.len());
     for key in content_keys {
-        let id = match seen.get(key.as_str()) {
+        let key = key.as_ref();
+        let id = match seen.get(key) {
             Some(&id) => id,
             None => {
                 if !key.is_empty() {
