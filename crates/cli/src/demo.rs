@@ -112,8 +112,8 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
         markdown: false,
         tag_layer: crate::eval::TagLayerChoice::Binary,
         mean_field_steps: tagweave_model::JointOptions::default().mean_field_steps,
-        view_share: tagweave_model::JointOptions::default().view_share,
-        view_rows: tagweave_model::JointOptions::default().view_rows,
+        variant_share: tagweave_model::JointOptions::default().view_share,
+        variant_rows: tagweave_model::JointOptions::default().view_rows,
     })?;
     println!();
     println!(

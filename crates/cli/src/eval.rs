@@ -3,10 +3,10 @@ use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
 use tagweave_eval::{
-    audit_out_of_fold, baselines, evaluate_with_views, EvalOptions, JointScorer, Progress,
+    audit_out_of_fold, baselines, evaluate_with_variants, EvalOptions, JointScorer, Progress,
     TagScorer,
 };
-use tagweave_indexer::view_features;
+use tagweave_indexer::variant_features;
 use tagweave_model::{JointOptions, TagUnits};
 use tagweave_store::FeatureTable;
 
@@ -53,15 +53,15 @@ pub struct EvalArgs {
     /// is the one `train` uses).
     #[arg(long, value_name = "N", default_value_t = JointOptions::default().mean_field_steps)]
     pub mean_field_steps: usize,
-    /// Chance that the joint model sees a training picture through a view (mirror or
+    /// Chance that the joint model sees a training picture through a variant (mirror or
     /// centre crop) instead of the original, each epoch (an experiment switch; 0 = off).
     #[arg(long, value_name = "X", default_value_t = JointOptions::default().view_share)]
-    pub view_share: f32,
-    /// Whether the joint model also trains on every view as an example of its own (an
+    pub variant_share: f32,
+    /// Whether the joint model also trains on every variant as an example of its own (an
     /// experiment switch).
     #[arg(long, value_name = "BOOL", action = clap::ArgAction::Set,
           default_value_t = JointOptions::default().view_rows)]
-    pub view_rows: bool,
+    pub variant_rows: bool,
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -109,15 +109,15 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
             TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
         },
         mean_field_steps: args.mean_field_steps,
-        view_share: args.view_share,
-        view_rows: args.view_rows,
+        view_share: args.variant_share,
+        view_rows: args.variant_rows,
         ..JointOptions::default()
     };
-    // Views of every picture, decoded again from the folder; only the train pictures'
+    // Variants of every picture, decoded again from the folder; only the train pictures'
     // reach the joint model. A picture that no longer decodes trains as itself.
-    let views = if joint.view_share > 0.0 || joint.view_rows {
-        let bar = progress::bar("describing views");
-        let (views, _) = view_features(
+    let variants = if joint.view_share > 0.0 || joint.view_rows {
+        let bar = progress::bar("describing variants");
+        let (variants, _) = variant_features(
             &store,
             &table.items,
             table.features.view(),
@@ -127,11 +127,11 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
             },
         )?;
         bar.finish_and_clear();
-        views
+        variants
     } else {
         Vec::new()
     };
-    let views: Vec<_> = views.iter().map(|v| v.view()).collect();
+    let variants: Vec<_> = variants.iter().map(|v| v.view()).collect();
     let mut methods = all_methods(joint);
     let bar = progress::bar("evaluating");
     let mut on_progress = |event: Progress| {
@@ -143,9 +143,9 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         bar.set_length(total as u64);
         bar.set_position(done as u64);
     };
-    let mut report = evaluate_with_views(
+    let mut report = evaluate_with_variants(
         table.features.view(),
-        &views,
+        &variants,
         &tags,
         &keys,
         &options,

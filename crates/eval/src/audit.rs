@@ -87,7 +87,7 @@ pub fn audit_out_of_fold(
             n_tags: columns.len(),
             groups: &train_groups,
             seed,
-            views: &[],
+            variants: &[],
         };
         let mut methods = make_methods();
         check_method_names(&methods)?;

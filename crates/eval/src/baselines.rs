@@ -302,7 +302,7 @@ pub(crate) mod tests {
             n_tags,
             groups: &groups,
             seed,
-            views: &[],
+            variants: &[],
         };
         method.fit(&train).unwrap();
         let scores = method.score(x.slice(ndarray::s![180.., ..])).unwrap();

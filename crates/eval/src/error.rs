@@ -11,8 +11,8 @@ pub enum EvalError {
         got: usize,
         expected: usize,
     },
-    #[error("a view matrix has {got} columns but the features have {expected}; describe the views with the same feature extractor as the pictures")]
-    ViewWidth { got: usize, expected: usize },
+    #[error("a variant matrix has {got} columns but the features have {expected}; describe the variants with the same feature extractor as the pictures")]
+    VariantWidth { got: usize, expected: usize },
     #[error("the feature matrix has no columns; extract picture features before evaluating")]
     NoFeatures,
     #[error("train fraction {0} is outside the open interval (0, 1); use a value such as 0.75")]

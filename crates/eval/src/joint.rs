@@ -68,7 +68,7 @@ mod tests {
             n_tags: 10,
             groups: &groups,
             seed: 3,
-            views: &[],
+            variants: &[],
         };
         method.fit(&train).unwrap();
         let scores = method.score(x.slice(ndarray::s![180.., ..])).unwrap();

@@ -28,5 +28,5 @@ pub use joint::JointScorer;
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use reliability::{Reliability, ReliabilityBin};
 pub use report::{MethodReport, Report, SplitSummary};
-pub use runner::{baselines, evaluate, evaluate_with_views, EvalOptions, Progress, SUGGESTIONS};
+pub use runner::{baselines, evaluate, evaluate_with_variants, EvalOptions, Progress, SUGGESTIONS};
 pub use split::{split, Split};

@@ -19,7 +19,7 @@ mod features;
 mod training;
 pub use features::FeatureSummary;
 pub use training::{
-    code_missing, load_model, train, view_features, TrainOptions, TrainProgress, TrainReport,
+    code_missing, load_model, train, variant_features, TrainProgress, TrainReport, TrainRunOptions,
 };
 
 /// How many pictures are read between two flushes of the store.

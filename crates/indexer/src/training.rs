@@ -15,22 +15,24 @@ use tagweave_suggest::{
     Standardiser, TagColumns, TagSuggester, TrainSet, TrainedModel, TrainingData, TrainingHistory,
     TrainingRun, MODEL_FORMAT,
 };
-use tagweave_vision::{FeatureExtractor, TRAINING_VIEWS};
+use tagweave_vision::{FeatureExtractor, TRAINING_VARIANTS};
 
 use crate::{IndexError, BATCH};
 
 /// Pictures coded per store write.
 const CODE_BATCH: usize = 256;
 
+/// Options of one `train` run over a store: the seed of every random choice and the
+/// joint model's own options.
 #[derive(Debug, Clone)]
-pub struct TrainOptions {
+pub struct TrainRunOptions {
     pub seed: u64,
     pub joint: JointOptions,
 }
 
-impl Default for TrainOptions {
+impl Default for TrainRunOptions {
     fn default() -> Self {
-        TrainOptions {
+        TrainRunOptions {
             seed: 7,
             joint: JointOptions::default(),
         }
@@ -46,8 +48,8 @@ pub enum TrainProgress {
         done: usize,
         total: usize,
     },
-    /// Tagged pictures decoded again so far for their training views.
-    Views {
+    /// Tagged pictures decoded again so far for their training variants.
+    Variants {
         done: usize,
         total: usize,
     },
@@ -58,9 +60,9 @@ pub enum TrainProgress {
 pub struct TrainReport {
     /// Tagged pictures the model learned from.
     pub pictures: usize,
-    /// Of those, pictures that could not be decoded again for their training views
-    /// (they trained as themselves only); 0 when views were not used.
-    pub without_views: usize,
+    /// Of those, pictures that could not be decoded again for their training variants
+    /// (they trained as themselves only); 0 when variants were not used.
+    pub without_variants: usize,
     /// Pictures without tags (coded, not learned from).
     pub untagged: usize,
     pub tags: usize,
@@ -84,7 +86,7 @@ pub struct TrainReport {
 /// model first, so a crash leaves the old model or codes that a scan completes.
 pub fn train(
     store: &Store,
-    options: &TrainOptions,
+    options: &TrainRunOptions,
     progress: &mut dyn FnMut(TrainProgress),
 ) -> Result<TrainReport, IndexError> {
     let started = Instant::now();
@@ -112,22 +114,22 @@ pub fn train(
         &columns,
         &standardiser,
     );
-    let uses_views = options.joint.view_share > 0.0 || options.joint.view_rows;
-    let (raw_views, without_views) = if uses_views {
+    let uses_variants = options.joint.view_share > 0.0 || options.joint.view_rows;
+    let (raw_variants, without_variants) = if uses_variants {
         let items: Vec<ItemRecord> = data.rows.iter().map(|&i| table.items[i].clone()).collect();
         let raw = table.features.select(Axis(0), &data.rows);
-        view_features(store, &items, raw.view(), &mut |done, total| {
-            progress(TrainProgress::Views { done, total })
+        variant_features(store, &items, raw.view(), &mut |done, total| {
+            progress(TrainProgress::Variants { done, total })
         })?
     } else {
         (Vec::new(), 0)
     };
-    let views: Vec<Array2<f32>> = raw_views
+    let variants: Vec<Array2<f32>> = raw_variants
         .iter()
         .map(|v| standardiser.apply(v.view()))
         .collect();
     let train_set = TrainSet {
-        views: &views,
+        variants: &variants,
         ..data.train_set(columns.len(), options.seed)
     };
 
@@ -150,7 +152,7 @@ pub fn train(
     let m = &model.suggester.network;
     Ok(TrainReport {
         pictures: data.rows.len(),
-        without_views,
+        without_variants,
         untagged: table.items.len() - data.rows.len(),
         tags: model.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
@@ -171,11 +173,11 @@ pub fn train(
     })
 }
 
-/// The raw feature rows of the training views of `items` (`features`: their stored
-/// rows, same order): `views[v]` row `i` is view `v` of `items[i]`, decoded again from
+/// The raw feature rows of the training variants of `items` (`features`: their stored
+/// rows, same order): `variants[v]` row `i` is variant `v` of `items[i]`, decoded again from
 /// the collection folder. A picture that no longer decodes keeps its own features in
-/// every view (so it trains as itself only) and is counted in the second value.
-pub fn view_features(
+/// every variant (so it trains as itself only) and is counted in the second value.
+pub fn variant_features(
     store: &Store,
     items: &[ItemRecord],
     features: ArrayView2<f32>,
@@ -186,7 +188,7 @@ pub fn view_features(
     };
     if items.len() != features.nrows() {
         return Err(StoreError::Inconsistent(format!(
-            "{} pictures but {} feature rows given for their views",
+            "{} pictures but {} feature rows given for their variants",
             items.len(),
             features.nrows()
         ))
@@ -202,19 +204,20 @@ pub fn view_features(
         .into());
     }
     let root = store.collection_root();
-    let mut views = vec![features.to_owned(); TRAINING_VIEWS.len()];
+    let mut variants = vec![features.to_owned(); TRAINING_VARIANTS.len()];
     let mut failed = 0;
     let mut done = 0;
     for (chunk_index, chunk) in items.chunks(BATCH).enumerate() {
         let described: Vec<_> = chunk
             .par_iter()
-            .map(|item| extractor.training_views(&root.join(&item.rel_path)).ok())
+            .map(|item| extractor.training_variants(&root.join(&item.rel_path)).ok())
             .collect();
         for (offset, rows) in described.into_iter().enumerate() {
             let i = chunk_index * BATCH + offset;
             match rows {
-                Some(rows) => views.iter_mut().zip(&rows).for_each(|(view, row)| {
-                    view.row_mut(i)
+                Some(rows) => variants.iter_mut().zip(&rows).for_each(|(variant, row)| {
+                    variant
+                        .row_mut(i)
                         .assign(&ndarray::ArrayView1::from(row.as_slice()))
                 }),
                 None => failed += 1,
@@ -223,7 +226,7 @@ pub fn view_features(
         done += chunk.len();
         progress(done, items.len());
     }
-    Ok((views, failed))
+    Ok((variants, failed))
 }
 
 /// The store's model; `None` before the first `tagweave train`.
@@ -271,7 +274,7 @@ mod tests {
     use crate::tests::{quick_options, small_collection};
 
     #[test]
-    fn views_are_described_again_and_an_unreadable_picture_only_loses_its_views() {
+    fn variants_are_described_again_and_an_unreadable_picture_only_loses_its_variants() {
         let temp = tempfile::tempdir().unwrap();
         small_collection(temp.path(), 10);
         let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
@@ -284,7 +287,7 @@ mod tests {
         let broken = &table.items[b];
         std::fs::write(temp.path().join(&broken.rel_path), b"no longer a picture").unwrap();
         let mut reported = Vec::new();
-        let (views, failed) = view_features(
+        let (variants, failed) = variant_features(
             &store,
             &table.items,
             table.features.view(),
@@ -293,41 +296,41 @@ mod tests {
         .unwrap();
         assert_eq!(failed, 1);
         assert_eq!(reported.last(), Some(&(10, 10)));
-        assert_eq!(views.len(), TRAINING_VIEWS.len());
+        assert_eq!(variants.len(), TRAINING_VARIANTS.len());
         for (i, item) in table.items.iter().enumerate() {
             if i == b {
-                for view in &views {
-                    assert_eq!(view.row(i), table.features.row(i));
+                for variant in &variants {
+                    assert_eq!(variant.row(i), table.features.row(i));
                 }
                 continue;
             }
             let want = extractor
-                .training_views(&temp.path().join(&item.rel_path))
+                .training_variants(&temp.path().join(&item.rel_path))
                 .unwrap();
-            for (view, row) in views.iter().zip(&want) {
-                assert_eq!(view.row(i).to_vec(), *row);
-                assert_ne!(view.row(i), table.features.row(i));
+            for (variant, row) in variants.iter().zip(&want) {
+                assert_eq!(variant.row(i).to_vec(), *row);
+                assert_ne!(variant.row(i), table.features.row(i));
             }
         }
-        // Training with views goes on without that picture's views and says so.
-        let options = TrainOptions {
+        // Training with variants goes on without that picture's variants and says so.
+        let options = TrainRunOptions {
             joint: JointOptions {
                 max_epochs: 3,
                 pretrain_epochs: 1,
                 view_share: 0.5,
                 ..JointOptions::default()
             },
-            ..TrainOptions::default()
+            ..TrainRunOptions::default()
         };
         let mut events = Vec::new();
         let report = train(&store, &options, &mut |p| {
-            if let TrainProgress::Views { done, total } = p {
+            if let TrainProgress::Variants { done, total } = p {
                 events.push((done, total));
             }
         })
         .unwrap();
         assert!(report.pictures >= 2, "{report:?}");
-        assert_eq!(report.without_views, 1);
+        assert_eq!(report.without_variants, 1);
         assert_eq!(events.last(), Some(&(report.pictures, report.pictures)));
     }
 }

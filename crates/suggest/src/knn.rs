@@ -244,7 +244,7 @@ mod tests {
             n_tags: 10,
             groups: &groups,
             seed: 3,
-            views: &[],
+            variants: &[],
         };
         let mut knn = KnnScorer::default();
         knn.fit(&train).unwrap();
@@ -271,7 +271,7 @@ mod tests {
                 n_tags: 1,
                 groups: &[0, 1],
                 seed: 0,
-                views: &[],
+                variants: &[],
             }),
             Err(SuggestError::NoCandidates(_))
         ));
@@ -291,7 +291,7 @@ mod tests {
             n_tags: 3,
             groups: &[0, 1, 2],
             seed: 0,
-            views: &[],
+            variants: &[],
         };
         knn.fit(&set).unwrap();
         let s = knn.score(array![[1.0f32, 0.0]].view()).unwrap();

@@ -53,8 +53,8 @@ impl TagSuggester {
     /// Trains on `train`: a first run holds out one grouped validation fold to
     /// choose the fine-tuning length (best validation LRAP), the read-out/kNN blend
     /// and the calibration; the final run trains on every train picture for that
-    /// many epochs, so no picture is lost to validation. The views of `train` are
-    /// training examples of both runs (the fitted rows' views only); the validation
+    /// many epochs, so no picture is lost to validation. The variants of `train` are
+    /// training examples of both runs (the fitted rows' variants only); the validation
     /// fold is scored on its original pictures.
     pub fn train(
         train: &TrainSet,
@@ -87,14 +87,14 @@ impl TagSuggester {
                         Ok(s) => mean_lrap(s.view(), &val_tags) as f32,
                         Err(_) => f32::NAN,
                     };
-                    let fit_views: Vec<Array2<f32>> = train
-                        .views
+                    let fit_variants: Vec<Array2<f32>> = train
+                        .variants
                         .iter()
                         .map(|v| v.select(Axis(0), &fit))
                         .collect();
                     let (network, summary) = JointModel::fit_with_views(
                         train.features.select(Axis(0), &fit).view(),
-                        &views_of(&fit_views),
+                        &variants_of(&fit_variants),
                         y.select(Axis(0), &fit).view(),
                         Some(&mut score),
                         &options,
@@ -131,7 +131,7 @@ impl TagSuggester {
         };
         let (network, _) = JointModel::fit_with_views(
             train.features,
-            &views_of(train.views),
+            &variants_of(train.variants),
             y.view(),
             None,
             &all,
@@ -192,8 +192,8 @@ impl TagSuggester {
     }
 }
 
-fn views_of(views: &[Array2<f32>]) -> Vec<ArrayView2<'_, f32>> {
-    views.iter().map(|v| v.view()).collect()
+fn variants_of(variants: &[Array2<f32>]) -> Vec<ArrayView2<'_, f32>> {
+    variants.iter().map(|v| v.view()).collect()
 }
 
 fn mean_lrap(scores: ArrayView2<f32>, relevant: &[Vec<bool>]) -> f64 {
@@ -233,7 +233,7 @@ fn knn_with_k(train: &TrainSet, rows: &[usize], k: usize) -> KnnScorer {
             features: features.view(),
             tags: &tags,
             groups: &groups,
-            views: &[],
+            variants: &[],
             ..*train
         },
     )
@@ -256,7 +256,7 @@ mod tests {
             n_tags: 10,
             groups: &groups,
             seed: 3,
-            views: &[],
+            variants: &[],
         };
         let (suggester, knn) =
             TagSuggester::train(&train, &JointOptions::default(), &mut |_, _| {}).unwrap();
@@ -285,34 +285,34 @@ mod tests {
         assert_eq!(again, p);
     }
 
-    // Outside the validation fold the train pictures are noise and only their views
-    // show the tags; inside it the originals show them and the views are noise. The
-    // model must learn from the fitted rows' views (the final read-out scores test
+    // Outside the validation fold the train pictures are noise and only their variants
+    // show the tags; inside it the originals show them and the variants are noise. The
+    // model must learn from the fitted rows' variants (the final read-out scores test
     // pictures well) and the validation fold must be scored on its originals (its
-    // LRAP is high too; on its noisy views it would be near guessing).
+    // LRAP is high too; on its noisy variants it would be near guessing).
     #[test]
-    fn views_train_the_model_and_never_enter_validation() {
+    fn variants_train_the_model_and_never_enter_validation() {
         use rand::{Rng, SeedableRng};
         let (x, tags) = synthetic(240, 10, 0.6, 3);
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(4);
         let mut noise =
             || Array2::from_shape_fn((180, x.ncols()), |_| rng.random_range(-1.0..1.0f32));
-        let (mut features, mut view) = (noise(), x.slice(ndarray::s![..180, ..]).to_owned());
+        let (mut features, mut variant) = (noise(), x.slice(ndarray::s![..180, ..]).to_owned());
         let groups: Vec<usize> = (0..180).collect();
         let val = grouped_folds(&groups, VALIDATION_FOLDS, 3).remove(0);
         let garbage = noise();
         for &i in &val {
             features.row_mut(i).assign(&x.row(i));
-            view.row_mut(i).assign(&garbage.row(i));
+            variant.row_mut(i).assign(&garbage.row(i));
         }
-        let views = [view];
+        let variants = [variant];
         let train = TrainSet {
             features: features.view(),
             tags: &tags[..180],
             n_tags: 10,
             groups: &groups,
             seed: 3,
-            views: &views,
+            variants: &variants,
         };
         let options = JointOptions {
             view_share: 1.0,
@@ -336,15 +336,15 @@ mod tests {
         };
         let (learned, validation) = run(&train);
         let (unlearned, _) = run(&TrainSet {
-            views: &[],
+            variants: &[],
             ..train
         });
-        // Measured: read-out LRAP 0.86 with views, 0.37 without; best validation 0.87.
+        // Measured: read-out LRAP 0.86 with variants, 0.37 without; best validation 0.87.
         assert!(learned > 0.75, "read-out LRAP {learned}");
         assert!(validation > 0.8, "best validation LRAP {validation}");
         assert!(
             unlearned < learned - 0.1,
-            "read-out LRAP without views {unlearned}"
+            "read-out LRAP without variants {unlearned}"
         );
     }
 

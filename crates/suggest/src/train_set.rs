@@ -24,10 +24,10 @@ pub struct TrainSet<'a> {
     pub groups: &'a [usize],
     /// Seed for any randomness inside `fit`.
     pub seed: u64,
-    /// Views of the train pictures (mirrored, cropped…), standardised like `features`:
-    /// `views[v]` row `i` is view `v` of row `i` and carries its tags. Only the joint
+    /// Variants of the train pictures (mirrored, cropped…), standardised like `features`:
+    /// `variants[v]` row `i` is variant `v` of row `i` and carries its tags. Only the joint
     /// model trains on them; the baselines ignore them. Empty = none.
-    pub views: &'a [Array2<f32>],
+    pub variants: &'a [Array2<f32>],
 }
 
 /// Folds of the cross-validation that chooses a method's setting.

@@ -123,7 +123,7 @@ impl TrainingData {
             n_tags,
             groups: &self.groups,
             seed,
-            views: &[],
+            variants: &[],
         }
     }
 }
