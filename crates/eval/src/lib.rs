@@ -7,11 +7,16 @@
 //! runner [`evaluate`] builds the split, fits every method on train rows only
 //! and returns a serialisable [`Report`]; [`audit_out_of_fold`] disputes every
 //! tagged picture with methods that never saw its tags, to be scored against
-//! pictures known to be mislabelled.
+//! pictures known to be mislabelled; [`run_experiment`] does both for the baselines and
+//! tagweave's suggester, as `tagweave eval` reports them.
+//!
+//! The product never depends on this crate: it measures the suggester (from
+//! `tagweave-suggest`), never the other way round.
 
 mod audit;
 mod baselines;
 mod error;
+mod experiment;
 mod joint;
 mod linalg;
 pub mod metrics;
@@ -24,6 +29,7 @@ mod split;
 pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
 pub use baselines::{PriorScorer, RidgeScorer, TagScorer};
 pub use error::EvalError;
+pub use experiment::{all_methods, run_experiment, Collection, AUDIT_FOLDS};
 pub use joint::JointScorer;
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use reliability::{Reliability, ReliabilityBin};
