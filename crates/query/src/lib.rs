@@ -206,23 +206,7 @@ impl Queries {
 
     /// Probabilities as tag scores, best first; `carried` marks the picture's own tags.
     pub fn tag_scores(&self, probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
-        let mut out: Vec<TagScore> = self
-            .trained
-            .vocabulary
-            .iter()
-            .zip(probabilities)
-            .map(|(tag, &p)| TagScore {
-                tag: tag.clone(),
-                probability: p,
-                carried: carried.contains(tag),
-            })
-            .collect();
-        out.sort_by(|a, b| {
-            b.probability
-                .total_cmp(&a.probability)
-                .then(a.tag.cmp(&b.tag))
-        });
-        out
+        tag_scores(&self.trained.vocabulary, probabilities, carried)
     }
 
     /// Normalised tags as a 0/1 row in model columns; unknown tags are an error.
@@ -249,20 +233,14 @@ impl Queries {
     /// mean code of the training pictures carrying the tag).
     pub fn code_of_tags(&self, tags: &[String]) -> Result<Vec<f32>> {
         let row = self.tag_row(tags)?;
-        let chosen: Vec<&Vec<f32>> = row
+        let chosen = row
             .row(0)
             .iter()
             .zip(&self.trained.tag_centroids)
             .filter(|(&v, _)| v > 0.0)
-            .map(|(_, c)| c)
-            .collect();
-        let mut code = vec![0.0f32; self.codes.dim()];
-        for c in &chosen {
-            code.iter_mut().zip(c.iter()).for_each(|(a, &b)| *a += b);
-        }
-        code.iter_mut()
-            .for_each(|v| *v /= chosen.len().max(1) as f32);
-        Ok(code)
+            .map(|(_, c)| c.as_slice())
+            .collect::<Vec<_>>();
+        Ok(mean_code(&chosen, self.codes.dim()))
     }
 
     /// Pictures whose code is nearest the tags' code.
@@ -292,12 +270,7 @@ impl Queries {
         } else {
             self.code_of_tags(toward)?
         };
-        let query: Vec<f32> = start
-            .iter()
-            .zip(&away_code)
-            .zip(&toward_code)
-            .map(|((s, a), t)| s - a + t)
-            .collect();
+        let query = shifted_code(&start, &away_code, &toward_code);
         let wanted: Vec<String> = toward.iter().filter_map(|t| normalize_tag(t)).collect();
         self.nearest(&query, ranking, Some(row), &wanted)
     }
@@ -324,21 +297,208 @@ impl Queries {
         };
         let item_of_code = &self.item_of_code;
         let hits = self.codes.search_where(query, ranking.limit, mode, |r| {
-            item_of_code[r].is_some_and(|i| {
-                Some(i) != skip && (!ranking.untagged_only || self.items[i].tags.is_empty())
-            })
+            listable(item_of_code[r], skip, ranking.untagged_only, &self.items)
         })?;
-        Ok(hits
-            .into_iter()
-            .filter_map(|hit| {
-                let item = &self.items[item_of_code[hit.row]?];
-                Some(Found {
-                    picture: item.rel_path.clone(),
-                    similarity: hit.similarity,
-                    carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
-                    tagged: !item.tags.is_empty(),
-                })
+        Ok(answers(
+            hits.into_iter().map(|hit| (hit.row, hit.similarity)),
+            item_of_code,
+            &self.items,
+            wanted,
+        ))
+    }
+}
+
+/// The tags of `vocabulary` (model columns) with their probabilities, best first (ties by
+/// tag); `carried` marks the picture's own tags.
+fn tag_scores(vocabulary: &[String], probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
+    let mut out: Vec<TagScore> = vocabulary
+        .iter()
+        .zip(probabilities)
+        .map(|(tag, &p)| TagScore {
+            tag: tag.clone(),
+            probability: p,
+            carried: carried.contains(tag),
+        })
+        .collect();
+    out.sort_by(|a, b| {
+        b.probability
+            .total_cmp(&a.probability)
+            .then(a.tag.cmp(&b.tag))
+    });
+    out
+}
+
+/// The mean of `codes`, each `dim` values long; zeros when there are none.
+fn mean_code(codes: &[&[f32]], dim: usize) -> Vec<f32> {
+    let mut code = vec![0.0f32; dim];
+    for c in codes {
+        code.iter_mut().zip(c.iter()).for_each(|(a, &b)| *a += b);
+    }
+    code.iter_mut()
+        .for_each(|v| *v /= codes.len().max(1) as f32);
+    code
+}
+
+/// `start − away + toward`, value by value (all three of one length).
+fn shifted_code(start: &[f32], away: &[f32], toward: &[f32]) -> Vec<f32> {
+    start
+        .iter()
+        .zip(away)
+        .zip(toward)
+        .map(|((s, a), t)| s - a + t)
+        .collect()
+}
+
+/// Whether the picture of a code row may be answered: it is indexed (`item`), it is not
+/// `skip`, and it is untagged when only untagged pictures are asked for.
+fn listable(
+    item: Option<usize>,
+    skip: Option<usize>,
+    untagged_only: bool,
+    items: &[ItemRecord],
+) -> bool {
+    item.is_some_and(|i| Some(i) != skip && (!untagged_only || items[i].tags.is_empty()))
+}
+
+/// Search hits `(code row, similarity)`, in their order, as answers; a code row without an
+/// indexed picture is dropped. An answer "carries" when its picture's tags include every
+/// `wanted` tag (never when nothing is wanted).
+fn answers(
+    hits: impl IntoIterator<Item = (usize, f32)>,
+    item_of_code: &[Option<usize>],
+    items: &[ItemRecord],
+    wanted: &[String],
+) -> Vec<Found> {
+    hits.into_iter()
+        .filter_map(|(row, similarity)| {
+            let item = &items[item_of_code[row]?];
+            Some(Found {
+                picture: item.rel_path.clone(),
+                similarity,
+                carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
+                tagged: !item.tags.is_empty(),
             })
-            .collect())
+        })
+        .collect()
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use tagweave_collection::{FileStamp, ImageFormat};
+
+    pub(crate) fn strings(v: &[&str]) -> Vec<String> {
+        v.iter().map(|s| s.to_string()).collect()
+    }
+
+    /// An indexed picture as the queries see it: only its path and tags matter.
+    pub(crate) fn item(rel_path: &str, tags: &[&str]) -> ItemRecord {
+        ItemRecord {
+            id: tagweave_collection::item_id(rel_path),
+            rel_path: rel_path.to_string(),
+            format: ImageFormat::Jpeg,
+            stamp: FileStamp {
+                size: 1,
+                mtime_ns: 1,
+            },
+            content_hash: String::new(),
+            sidecars: vec![],
+            tags: strings(tags),
+        }
+    }
+
+    // worked by hand: probabilities [0.2, 0.9, 0.2] over [boat, night, sea]: night first,
+    // then the tie boat / sea in tag order; "sea" is carried.
+    #[test]
+    fn tag_scores_rank_by_probability_then_tag() {
+        let scores = tag_scores(
+            &strings(&["boat", "night", "sea"]),
+            &[0.2, 0.9, 0.2],
+            &strings(&["sea"]),
+        );
+        let got: Vec<(&str, f32, bool)> = scores
+            .iter()
+            .map(|s| (s.tag.as_str(), s.probability, s.carried))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                ("night", 0.9, false),
+                ("boat", 0.2, false),
+                ("sea", 0.2, true)
+            ]
+        );
+    }
+
+    // worked by hand: the mean of [1, 0, 2] and [3, 4, 0] is [2, 2, 1]; of nothing, zeros.
+    #[test]
+    fn the_code_of_tags_is_the_mean_of_their_centroids() {
+        let (a, b) = ([1.0f32, 0.0, 2.0], [3.0f32, 4.0, 0.0]);
+        assert_eq!(mean_code(&[&a, &b], 3), vec![2.0, 2.0, 1.0]);
+        assert_eq!(mean_code(&[&a], 3), a.to_vec());
+        assert_eq!(mean_code(&[], 2), vec![0.0, 0.0]);
+    }
+
+    // worked by hand: [0.5, 0.25, 1] − [0.25, 0, 0.5] + [0, 0.5, 0.25] = [0.25, 0.75, 0.75];
+    // with nothing to move away from or toward (zeros), the start is unchanged.
+    #[test]
+    fn a_shift_subtracts_away_and_adds_toward() {
+        let start = [0.5f32, 0.25, 1.0];
+        assert_eq!(
+            shifted_code(&start, &[0.25, 0.0, 0.5], &[0.0, 0.5, 0.25]),
+            vec![0.25, 0.75, 0.75]
+        );
+        assert_eq!(shifted_code(&start, &[0.0; 3], &[0.0; 3]), start.to_vec());
+    }
+
+    // Code rows 0..4 point at items [1, none, 0, 2]; item 0 is untagged. Hits come in the
+    // index's order (best first) and keep it; the row without an item is dropped.
+    #[test]
+    fn hits_become_answers_in_their_order() {
+        let items = [
+            item("a.jpg", &[]),
+            item("b.jpg", &["night", "harbour"]),
+            item("c.jpg", &["night"]),
+        ];
+        let item_of_code = [Some(1), None, Some(0), Some(2)];
+        let wanted = strings(&["night", "harbour"]);
+        let found = answers(
+            [(3, 0.9), (1, 0.8), (0, 0.7), (2, 0.5)],
+            &item_of_code,
+            &items,
+            &wanted,
+        );
+        let got: Vec<(&str, f32, bool, bool)> = found
+            .iter()
+            .map(|f| (f.picture.as_str(), f.similarity, f.carries, f.tagged))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                ("c.jpg", 0.9, false, true),
+                ("b.jpg", 0.7, true, true),
+                ("a.jpg", 0.5, false, false),
+            ]
+        );
+        // nothing wanted (a plain shift): nothing "carries"
+        let plain = answers([(0, 0.7)], &item_of_code, &items, &[]);
+        assert!(!plain[0].carries);
+    }
+
+    #[test]
+    fn only_indexed_pictures_other_than_the_start_are_listed() {
+        let items = [item("a.jpg", &[]), item("b.jpg", &["night"])];
+        assert!(listable(Some(0), None, false, &items));
+        assert!(!listable(None, None, false, &items), "no item for the code");
+        assert!(
+            !listable(Some(1), Some(1), false, &items),
+            "the start itself"
+        );
+        assert!(listable(Some(1), Some(0), false, &items));
+        assert!(listable(Some(0), None, true, &items), "untagged");
+        assert!(
+            !listable(Some(1), None, true, &items),
+            "tagged, untagged asked for"
+        );
     }
 }
