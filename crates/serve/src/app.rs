@@ -319,8 +319,8 @@ impl App {
         self.session.lock().unwrap_or_else(|p| p.into_inner())
     }
 
-    /// The picture's tags as they stand in its sidecars now: indexed tags with this
-    /// session's writes applied. The flag marks tags written in this session.
+    /// The picture's tags as they stand in its sidecars now: indexed tags with the writes
+    /// made since this page started applied. The flag marks tags written since then.
     fn tags_now(&self, row: usize, notes: Option<&PictureNotes>) -> Vec<(String, bool)> {
         let item = self.item(row);
         let mut tags: Vec<(String, bool)> = item
@@ -667,8 +667,8 @@ impl App {
         self.page(200, pages::written(&written))
     }
 
-    /// Sets a suggestion or doubt aside for this session (nothing is written), then goes
-    /// back to the page the button was on.
+    /// Sets a suggestion or doubt aside until this page stops (nothing is written), then
+    /// goes back to the page the button was on.
     fn set_aside(&self, row: usize, form: &[(String, String)]) -> Reply {
         let item = self.item(row);
         let Some(tag) = first(form, "tag").and_then(normalize_tag) else {

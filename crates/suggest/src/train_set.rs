@@ -9,8 +9,9 @@ use rand_chacha::ChaCha8Rng;
 
 use crate::ranking::label_ranking_average_precision;
 
-/// What a method may learn from: train pictures only. The evaluation runner builds it
-/// from the train part of the split, so held-out tags cannot reach `fit`.
+/// What a method may learn from: train pictures only. Training for the product builds it
+/// from every tagged picture; the evaluation runner from the train part of its split, so
+/// held-out tags cannot reach `fit`.
 #[derive(Debug, Clone, Copy)]
 pub struct TrainSet<'a> {
     /// Standardised features, one row per train picture.
