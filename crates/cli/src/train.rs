@@ -78,9 +78,9 @@ pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainRep
         }
     })?;
     bar.finish_and_clear();
-    let model = load_model(store)?.context("the model just trained is not in the store")?;
+    let trained = load_model(store)?.context("the model just trained is not in the store")?;
     let path = store.dir().join(CURVE_FILE);
-    std::fs::write(&path, curve::render(&model.history, report.epochs))
+    std::fs::write(&path, curve::render(&trained.history, report.epochs))
         .with_context(|| format!("cannot write the training curves to {}", path.display()))?;
     Ok((report, path))
 }

@@ -192,7 +192,7 @@ pub fn scan(
     skipped_files.extend(failures.into_iter().map(|(_, skip)| skip));
     // Pictures new since the last training get their codes from the stored model.
     let coded = match load_model(store) {
-        Ok(Some(model)) => code_missing(store, &model, &mut |done, total| {
+        Ok(Some(trained)) => code_missing(store, &trained, &mut |done, total| {
             progress(ScanProgress::Coding { done, total })
         })?,
         Ok(None) => 0,

@@ -141,26 +141,26 @@ pub fn train(
     history.pictures = data.rows.len();
     history.seconds = started.elapsed().as_secs_f64();
 
-    let model = TrainedModel::new(&columns, standardiser, suggester, &data, history)?;
+    let trained = TrainedModel::new(&columns, standardiser, suggester, &data, history)?;
     store.clear_vectors(CODES)?;
-    store.put_blob(MODEL_BLOB, &model)?;
-    let coded = code_missing(store, &model, &mut |done, total| {
+    store.put_blob(MODEL_BLOB, &trained)?;
+    let coded = code_missing(store, &trained, &mut |done, total| {
         progress(TrainProgress::Coding { done, total })
     })?;
 
-    let h = &model.history;
-    let m = &model.suggester.network;
+    let h = &trained.history;
+    let m = &trained.suggester.network;
     Ok(TrainReport {
         pictures: data.rows.len(),
         without_variants,
         untagged: table.items.len() - data.rows.len(),
-        tags: model.vocabulary.len(),
+        tags: trained.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
-        epochs: model.suggester.epochs,
-        readout_weight: model.suggester.readout_weight,
-        k: model.suggester.k,
-        calibrated: model.suggester.calibration.is_some(),
-        hash_bits: model.hash_thresholds.len(),
+        epochs: trained.suggester.epochs,
+        readout_weight: trained.suggester.readout_weight,
+        k: trained.suggester.k,
+        calibrated: trained.suggester.calibration.is_some(),
+        hash_bits: trained.hash_thresholds.len(),
         coded,
         final_reconstruction: h
             .pretraining
@@ -237,7 +237,7 @@ pub fn load_model(store: &Store) -> Result<Option<TrainedModel>, IndexError> {
 /// Codes every item that has features but no code yet; returns how many were coded.
 pub fn code_missing(
     store: &Store,
-    model: &TrainedModel,
+    trained: &TrainedModel,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Result<usize, IndexError> {
     let mut missing = Vec::new();
@@ -255,7 +255,7 @@ pub fn code_missing(
         let flat: Vec<f32> = chunk.iter().flat_map(|(_, r)| r.iter().copied()).collect();
         let raw = Array2::from_shape_vec((chunk.len(), width), flat)
             .map_err(|e| StoreError::Inconsistent(e.to_string()))?;
-        let codes = model.codes(raw.view())?;
+        let codes = trained.codes(raw.view())?;
         let rows: Vec<(String, Vec<f32>)> = chunk
             .iter()
             .zip(codes.outer_iter())
