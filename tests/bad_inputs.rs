@@ -438,7 +438,7 @@ fn every_kind_of_bad_input_is_named_counted_and_passed_over() {
         assert_eq!(items[*file].tags.len(), *tags, "{file}");
         assert!(
             store
-                .vector(tagweave_indexer::FEATURES, &items[*file].id)
+                .vector(tagweave_store::FEATURES, &items[*file].id)
                 .unwrap()
                 .is_some_and(|v| v.iter().all(|x| x.is_finite())),
             "{file} is described with finite features"

@@ -55,6 +55,20 @@ pub fn copy_tree(from: &Path, to: &Path) {
     }
 }
 
+/// Copies a folder with everything in it, its store included.
+pub fn copy_everything(from: &Path, to: &Path) {
+    std::fs::create_dir_all(to).unwrap();
+    for entry in std::fs::read_dir(from).unwrap() {
+        let entry = entry.unwrap();
+        let target = to.join(entry.file_name());
+        if entry.file_type().unwrap().is_dir() {
+            copy_everything(&entry.path(), &target);
+        } else {
+            std::fs::copy(entry.path(), &target).unwrap();
+        }
+    }
+}
+
 /// One row of demo-collection/TRUTH.csv (its list fields are `;`-separated).
 pub struct TruthRow {
     pub file: String,
@@ -179,23 +193,11 @@ pub fn try_open_store_copy(
     tempfile::TempDir,
     Result<tagweave_store::Store, tagweave_store::StoreError>,
 ) {
-    fn copy_dir(from: &Path, to: &Path) {
-        std::fs::create_dir_all(to).unwrap();
-        for entry in std::fs::read_dir(from).unwrap() {
-            let entry = entry.unwrap();
-            let target = to.join(entry.file_name());
-            if entry.file_type().unwrap().is_dir() {
-                copy_dir(&entry.path(), &target);
-            } else {
-                std::fs::copy(entry.path(), &target).unwrap();
-            }
-        }
-    }
     let scratch = tempfile::tempdir().unwrap();
     let copy = scratch.path().join(".tagweave");
     let original = folder.join(".tagweave");
     if original.is_dir() {
-        copy_dir(&original, &copy);
+        copy_everything(&original, &copy);
     }
     let store = tagweave_store::Store::open(&copy);
     (scratch, store)

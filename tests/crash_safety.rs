@@ -212,13 +212,13 @@ fn store_state(folder: &Path, total_items: usize) -> String {
         .iter()
         .filter(|i| {
             store
-                .vector(tagweave_indexer::FEATURES, &i.id)
+                .vector(tagweave_store::FEATURES, &i.id)
                 .unwrap()
                 .is_some()
         })
         .count();
     let learned = store
-        .blob::<serde_json::Value>(tagweave_indexer::EXTRACTOR_BLOB)
+        .blob::<serde_json::Value>(tagweave_store::EXTRACTOR_BLOB)
         .unwrap()
         .is_some();
     match (items.len(), learned, described) {
@@ -253,7 +253,7 @@ fn scan_result(folder: &Path) -> (Vec<String>, Vec<Vec<u32>>, serde_json::Value)
         .iter()
         .map(|i| {
             store
-                .vector(tagweave_indexer::FEATURES, &i.id)
+                .vector(tagweave_store::FEATURES, &i.id)
                 .unwrap()
                 .unwrap_or_else(|| panic!("{} has features", i.rel_path))
                 .iter()
@@ -262,7 +262,7 @@ fn scan_result(folder: &Path) -> (Vec<String>, Vec<Vec<u32>>, serde_json::Value)
         })
         .collect();
     let extractor = store
-        .blob(tagweave_indexer::EXTRACTOR_BLOB)
+        .blob(tagweave_store::EXTRACTOR_BLOB)
         .unwrap()
         .expect("an extractor");
     (records, vectors, extractor)
@@ -410,20 +410,6 @@ fn demo_template(trained: bool) -> &'static Path {
     .path()
 }
 
-/// Copies a folder with everything in it, its store included.
-fn copy_all(from: &Path, to: &Path) {
-    std::fs::create_dir_all(to).unwrap();
-    for entry in std::fs::read_dir(from).unwrap() {
-        let entry = entry.unwrap();
-        let target = to.join(entry.file_name());
-        if entry.file_type().unwrap().is_dir() {
-            copy_all(&entry.path(), &target);
-        } else {
-            std::fs::copy(entry.path(), &target).unwrap();
-        }
-    }
-}
-
 /// Every code and the stored model of a folder's store, to compare runs.
 fn codes_and_model(folder: &Path) -> (Vec<(String, Vec<u32>)>, serde_json::Value) {
     let (_copy, store) = open_store_copy(folder);
@@ -452,7 +438,7 @@ fn kills_from_env(default: usize) -> usize {
 fn train_killed_at_random_moments_is_completed_by_the_next_train() {
     let _serial = one_at_a_time();
     let template = demo_template(false);
-    let prepare = |folder: &Path| copy_all(template, folder);
+    let prepare = |folder: &Path| copy_everything(template, folder);
     let expected = OnceLock::new();
     let verify = |folder: &Path, reference: &Path| {
         let want = expected.get_or_init(|| codes_and_model(reference));
@@ -498,7 +484,7 @@ fn apply_killed_at_random_moments_leaves_every_sidecar_old_or_new() {
         falsified.file, falsified.false_tags[0]
     ));
     let prepare = |folder: &Path| {
-        copy_all(template, folder);
+        copy_everything(template, folder);
         std::fs::write(folder.join("review.csv"), &sheet).unwrap();
     };
     let verify = |folder: &Path, _reference: &Path| {

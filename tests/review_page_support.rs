@@ -62,19 +62,6 @@ pub fn trained_copy() -> tempfile::TempDir {
     temp
 }
 
-fn copy_everything(from: &Path, to: &Path) {
-    std::fs::create_dir_all(to).unwrap();
-    for entry in std::fs::read_dir(from).unwrap() {
-        let entry = entry.unwrap();
-        let target = to.join(entry.file_name());
-        if entry.file_type().unwrap().is_dir() {
-            copy_everything(&entry.path(), &target);
-        } else {
-            std::fs::copy(entry.path(), &target).unwrap();
-        }
-    }
-}
-
 /// A running `tagweave serve`; killed when dropped.
 pub struct Served {
     child: Child,

@@ -337,8 +337,8 @@ fn the_same_folder_and_seed_give_identical_features() {
     let items = a.items().unwrap();
     assert_eq!(items.len(), 400);
     for item in &items {
-        let va = a.vector(tagweave_indexer::FEATURES, &item.id).unwrap();
-        let vb = b.vector(tagweave_indexer::FEATURES, &item.id).unwrap();
+        let va = a.vector(tagweave_store::FEATURES, &item.id).unwrap();
+        let vb = b.vector(tagweave_store::FEATURES, &item.id).unwrap();
         assert!(va.is_some(), "{} has features", item.rel_path);
         let bits =
             |v: Option<Vec<f32>>| v.map(|v| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>());

@@ -177,10 +177,10 @@ fn the_committed_store_of_format_1_still_reads() {
             ]
         );
         let extractor: tagweave_vision::FeatureExtractor = store
-            .blob(tagweave_indexer::EXTRACTOR_BLOB)
+            .blob(tagweave_store::EXTRACTOR_BLOB)
             .unwrap()
             .expect("the fixture holds a learned extractor");
-        let table = tagweave_indexer::FeatureTable::load(&store).unwrap();
+        let table = tagweave_store::FeatureTable::load(&store).unwrap();
         assert_eq!(table.features.dim(), (3, extractor.dimension()));
         assert!(table.features.iter().all(|v| v.is_finite()));
     }

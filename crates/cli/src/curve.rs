@@ -3,7 +3,7 @@
 
 use std::fmt::Write;
 
-use tagweave_indexer::TrainingHistory;
+use tagweave_suggest::TrainingHistory;
 
 const PANEL_W: f64 = 300.0;
 const PANEL_H: f64 = 220.0;

@@ -103,18 +103,10 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
         "== Step 4: how good is it? (a quarter of the tagged pictures held back, scored blind)"
     );
     let truth = folder.join("TRUTH.csv");
-    crate::eval::run(&crate::eval::EvalArgs {
+    crate::eval::run(&crate::eval::EvalArgs::plain(
         folder,
-        seed: 7,
-        train_fraction: 0.75,
-        known_mislabels: truth.is_file().then_some(truth),
-        json: false,
-        markdown: false,
-        tag_layer: crate::eval::TagLayerChoice::Binary,
-        mean_field_steps: tagweave_model::JointOptions::default().mean_field_steps,
-        view_share: tagweave_model::JointOptions::default().variant_share,
-        view_rows: tagweave_model::JointOptions::default().variant_rows,
-    })?;
+        truth.is_file().then_some(truth),
+    ))?;
     println!();
     println!(
         "The audit's review sheet is {}; `tagweave suggest --untagged` writes one for the \

@@ -1,13 +1,13 @@
+//! `tagweave eval`: scan a tagged folder, then measure the suggester beside the baselines.
+
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
-use tagweave_eval::{
-    audit_out_of_fold, baselines, evaluate_with_views, EvalOptions, JointScorer, Progress,
-    TagScorer,
-};
-use tagweave_indexer::{view_features, FeatureTable};
+use tagweave_eval::{run_experiment, Collection, EvalOptions, Progress};
+use tagweave_indexer::variant_features;
 use tagweave_model::{JointOptions, TagUnits};
+use tagweave_store::FeatureTable;
 
 use crate::exit::Outcome;
 use crate::progress;
@@ -15,10 +15,6 @@ use crate::scan::{open_for_scan, scan_with_progress, ScanArgs};
 
 /// Fewest tagged pictures worth splitting into a train and a test part.
 const MIN_TAGGED: usize = 8;
-/// Folds of the out-of-fold audit behind `--known-mislabels`.
-const AUDIT_FOLDS: usize = 5;
-/// Keeps the audit's folds independent of the split drawn from the same seed.
-const AUDIT_SEED: u64 = 0x6175_6469;
 /// The column of the known-mislabels file that marks a wrong tag.
 const FALSE_TAGS: &str = "false_tags";
 
@@ -46,21 +42,23 @@ pub struct EvalArgs {
     #[arg(long)]
     pub markdown: bool,
     /// How the joint model's tag pathway sees a bag of tags (an experiment switch).
-    #[arg(long, value_enum, default_value_t = TagLayerChoice::Binary)]
+    #[arg(long, value_enum, default_value_t = TagLayerChoice::Binary, hide = true)]
     pub tag_layer: TagLayerChoice,
     /// Mean-field steps of the joint model's fill-in (an experiment switch; the default
     /// is the one `train` uses).
-    #[arg(long, value_name = "N", default_value_t = JointOptions::default().mean_field_steps)]
+    #[arg(long, value_name = "N", default_value_t = JointOptions::default().mean_field_steps,
+          hide = true)]
     pub mean_field_steps: usize,
-    /// Chance that the joint model sees a training picture through a view (mirror or
+    /// Chance that the joint model sees a training picture through a variant (mirror or
     /// centre crop) instead of the original, each epoch (an experiment switch; 0 = off).
-    #[arg(long, value_name = "X", default_value_t = JointOptions::default().variant_share)]
-    pub view_share: f32,
-    /// Whether the joint model also trains on every view as an example of its own (an
+    #[arg(long, value_name = "X", default_value_t = JointOptions::default().variant_share,
+          hide = true)]
+    pub variant_share: f32,
+    /// Whether the joint model also trains on every variant as an example of its own (an
     /// experiment switch).
     #[arg(long, value_name = "BOOL", action = clap::ArgAction::Set,
-          default_value_t = JointOptions::default().variant_rows)]
-    pub view_rows: bool,
+          default_value_t = JointOptions::default().variant_rows, hide = true)]
+    pub variant_rows: bool,
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -69,6 +67,38 @@ pub enum TagLayerChoice {
     Binary,
     /// Replicated softmax over the vocabulary.
     Softmax,
+}
+
+impl EvalArgs {
+    /// The arguments a plain `tagweave eval FOLDER` would have, with `known_mislabels`.
+    pub fn plain(folder: PathBuf, known_mislabels: Option<PathBuf>) -> EvalArgs {
+        let joint = JointOptions::default();
+        EvalArgs {
+            folder,
+            seed: 7,
+            train_fraction: 0.75,
+            known_mislabels,
+            json: false,
+            markdown: false,
+            tag_layer: TagLayerChoice::Binary,
+            mean_field_steps: joint.mean_field_steps,
+            variant_share: joint.variant_share,
+            variant_rows: joint.variant_rows,
+        }
+    }
+
+    fn joint_options(&self) -> JointOptions {
+        JointOptions {
+            tag_units: match self.tag_layer {
+                TagLayerChoice::Binary => TagUnits::Binary,
+                TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
+            },
+            mean_field_steps: self.mean_field_steps,
+            variant_share: self.variant_share,
+            variant_rows: self.variant_rows,
+            ..JointOptions::default()
+        }
+    }
 }
 
 pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
@@ -95,28 +125,12 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         }
         None => None,
     };
-    let tags: Vec<Vec<String>> = table.items.iter().map(|i| i.tags.clone()).collect();
-    let keys: Vec<String> = table.items.iter().map(|i| i.content_hash.clone()).collect();
-    let options = EvalOptions {
-        seed: args.seed,
-        train_fraction: args.train_fraction,
-        ..EvalOptions::default()
-    };
-    let joint = JointOptions {
-        tag_units: match args.tag_layer {
-            TagLayerChoice::Binary => TagUnits::Binary,
-            TagLayerChoice::Softmax => TagUnits::ReplicatedSoftmax,
-        },
-        mean_field_steps: args.mean_field_steps,
-        variant_share: args.view_share,
-        variant_rows: args.view_rows,
-        ..JointOptions::default()
-    };
-    // Views of every picture, decoded again from the folder; only the train pictures'
+    let joint = args.joint_options();
+    // Variants of every picture, decoded again from the folder; only the train pictures'
     // reach the joint model. A picture that no longer decodes trains as itself.
-    let views = if joint.variant_share > 0.0 || joint.variant_rows {
-        let bar = progress::bar("describing views");
-        let (views, _) = view_features(
+    let variants = if joint.variant_share > 0.0 || joint.variant_rows {
+        let bar = progress::bar("describing variants");
+        let (variants, _) = variant_features(
             &store,
             &table.items,
             table.features.view(),
@@ -126,45 +140,40 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
             },
         )?;
         bar.finish_and_clear();
-        views
+        variants
     } else {
         Vec::new()
     };
-    let views: Vec<_> = views.iter().map(|v| v.view()).collect();
-    let mut methods = all_methods(joint);
+    let variants: Vec<_> = variants.iter().map(|v| v.view()).collect();
+    let tags: Vec<Vec<String>> = table.items.iter().map(|i| i.tags.clone()).collect();
+    let keys: Vec<String> = table.items.iter().map(|i| i.content_hash.clone()).collect();
+    let collection = Collection {
+        features: table.features.view(),
+        variants: &variants,
+        tags: &tags,
+        content_keys: &keys,
+        known_mislabels: known.as_deref(),
+    };
+    let options = EvalOptions {
+        seed: args.seed,
+        train_fraction: args.train_fraction,
+        ..EvalOptions::default()
+    };
     let bar = progress::bar("evaluating");
-    let mut on_progress = |event: Progress| {
+    let report = run_experiment(&collection, &options, &joint, &mut |event| {
         let (done, total) = match event {
             Progress::Fitting { index, total, .. } => (2 * index, 2 * total),
             Progress::Measuring { index, total, .. } => (2 * index + 1, 2 * total),
-            Progress::Auditing { fold, folds } => (fold, folds),
+            Progress::Auditing { fold, folds } => {
+                bar.set_message("auditing out of fold");
+                (fold, folds)
+            }
         };
         bar.set_length(total as u64);
         bar.set_position(done as u64);
-    };
-    let mut report = evaluate_with_views(
-        table.features.view(),
-        &views,
-        &tags,
-        &keys,
-        &options,
-        &mut methods,
-        &mut on_progress,
-    )?;
-    if let (Some(known), Some(file)) = (known, &args.known_mislabels) {
-        bar.set_message("auditing out of fold");
-        let audit = audit_out_of_fold(
-            table.features.view(),
-            &tags,
-            &keys,
-            AUDIT_FOLDS,
-            args.seed ^ AUDIT_SEED,
-            // Baselines only: the joint methods made the demo's audit 36 s instead of a
-            // few (5 folds × 2 fine-tunings each).
-            &baselines,
-            &mut on_progress,
-        )?;
-        let measured = audit.against_known(&known)?;
+    })?;
+    bar.finish_and_clear();
+    if let (Some(measured), Some(file)) = (&report.known_mislabels, &args.known_mislabels) {
         if measured.known == 0 {
             bail!(
                 "{} marks no tagged picture of {} as carrying a wrong tag, so there is nothing \
@@ -173,9 +182,7 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
                 args.folder.display()
             );
         }
-        report.known_mislabels = Some(measured);
     }
-    bar.finish_and_clear();
     if args.json {
         println!("{}", serde_json::to_string(&report)?);
     } else if args.markdown {
@@ -184,13 +191,6 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         print!("{}", report.to_table());
     }
     Ok(Outcome::Done)
-}
-
-/// The baselines and tagweave's joint model, in report order.
-fn all_methods(joint: JointOptions) -> Vec<Box<dyn TagScorer>> {
-    let mut all = baselines();
-    all.push(Box::new(JointScorer::with_options(joint)));
-    all
 }
 
 /// One flag per picture of `rel_paths`: does the known-mislabels file

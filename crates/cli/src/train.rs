@@ -3,10 +3,10 @@
 use std::path::PathBuf;
 
 use anyhow::Context;
-use tagweave_eval::TrainingRun;
-use tagweave_indexer::{TrainOptions, TrainProgress, TrainReport, TrainedModel};
+use tagweave_indexer::{load_model, TrainProgress, TrainReport, TrainRunOptions};
 use tagweave_model::JointProgress;
 use tagweave_store::Store;
+use tagweave_suggest::TrainingRun;
 
 use crate::exit::Outcome;
 use crate::{curve, progress, store_path, StoreArgs};
@@ -42,9 +42,9 @@ pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
 /// Trains, shows progress, writes the curve picture; returns the report and its path.
 pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainReport, PathBuf)> {
     let bar = progress::bar("pretraining");
-    let options = TrainOptions {
+    let options = TrainRunOptions {
         seed,
-        ..TrainOptions::default()
+        ..TrainRunOptions::default()
     };
     let max_epochs = options.joint.max_epochs as u64;
     let report = tagweave_indexer::train(store, &options, &mut |event| match event {
@@ -66,8 +66,8 @@ pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainRep
             bar.set_length(max_epochs);
             bar.set_position(r.epoch as u64 + 1);
         }
-        TrainProgress::Views { done, total } => {
-            bar.set_message("describing views");
+        TrainProgress::Variants { done, total } => {
+            bar.set_message("describing variants");
             bar.set_length(total as u64);
             bar.set_position(done as u64);
         }
@@ -78,9 +78,9 @@ pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainRep
         }
     })?;
     bar.finish_and_clear();
-    let model = TrainedModel::load(store)?.context("the model just trained is not in the store")?;
+    let trained = load_model(store)?.context("the model just trained is not in the store")?;
     let path = store.dir().join(CURVE_FILE);
-    std::fs::write(&path, curve::render(&model.history, report.epochs))
+    std::fs::write(&path, curve::render(&trained.history, report.epochs))
         .with_context(|| format!("cannot write the training curves to {}", path.display()))?;
     Ok((report, path))
 }
@@ -125,11 +125,11 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
             "too few held-out pictures to calibrate: scores are not probabilities"
         }
     );
-    if report.without_views > 0 {
+    if report.without_variants > 0 {
         println!(
-            "  views       {} tagged pictures could not be read again; they trained without \
-             mirrored and cropped views",
-            report.without_views
+            "  variants    {} tagged pictures could not be read again; they trained without \
+             mirrored and cropped variants",
+            report.without_variants
         );
     }
     println!(

@@ -7,11 +7,11 @@ use std::collections::BTreeMap;
 use ndarray::{ArrayView2, Axis};
 use serde::Serialize;
 
-use crate::baselines::grouped_folds;
+use tagweave_suggest::{group_ids, grouped_folds, Standardiser, TagColumns, TrainSet};
+
 use crate::metrics::{precision_at_count, roc_auc};
 use crate::runner::{check_collection, check_method_names, check_scores};
-use crate::split::group_ids;
-use crate::{disagreement, EvalError, Progress, Standardiser, TagScorer, TrainSet, Vocabulary};
+use crate::{disagreement, EvalError, Progress, TagScorer};
 
 /// Dispute scores of one audit, one entry per feature row.
 #[derive(Debug, Clone, PartialEq)]
@@ -67,14 +67,14 @@ pub fn audit_out_of_fold(
         held.iter().for_each(|&p| in_fold[p] = true);
         let train_pos: Vec<usize> = (0..tagged.len()).filter(|&p| !in_fold[p]).collect();
         let train_rows: Vec<usize> = train_pos.iter().map(|&p| tagged[p]).collect();
-        let vocabulary = Vocabulary::from_items(train_rows.iter().map(|&i| tags[i].as_slice()));
+        let columns = TagColumns::from_items(train_rows.iter().map(|&i| tags[i].as_slice()));
         let train_tags: Vec<Vec<usize>> = train_rows
             .iter()
-            .map(|&i| vocabulary.encode(&tags[i]))
+            .map(|&i| columns.encode(&tags[i]))
             .collect();
         let (judged_rows, judged_tags): (Vec<usize>, Vec<Vec<usize>>) = held
             .iter()
-            .map(|&p| (tagged[p], vocabulary.encode(&tags[tagged[p]])))
+            .map(|&p| (tagged[p], columns.encode(&tags[tagged[p]])))
             .filter(|(_, t)| !t.is_empty())
             .unzip();
         let standardiser = Standardiser::fit(features.select(Axis(0), &train_rows).view());
@@ -84,10 +84,10 @@ pub fn audit_out_of_fold(
         let train_set = TrainSet {
             features: train_x.view(),
             tags: &train_tags,
-            n_tags: vocabulary.len(),
+            n_tags: columns.len(),
             groups: &train_groups,
             seed,
-            views: &[],
+            variants: &[],
         };
         let mut methods = make_methods();
         check_method_names(&methods)?;
@@ -100,7 +100,7 @@ pub fn audit_out_of_fold(
             }
             method.fit(&train_set)?;
             let scores = method.score(judged_x.view())?;
-            check_scores(method.name(), &scores, judged_rows.len(), vocabulary.len())?;
+            check_scores(method.name(), &scores, judged_rows.len(), columns.len())?;
             for (&i, d) in judged_rows
                 .iter()
                 .zip(disagreement(scores.view(), &judged_tags))
@@ -183,7 +183,8 @@ mod tests {
 
     use super::*;
     use crate::baselines::tests::synthetic;
-    use crate::{baselines, KnnScorer, PriorScorer};
+    use crate::{baselines, PriorScorer};
+    use tagweave_suggest::KnnScorer;
 
     fn names(tags: &[Vec<usize>]) -> Vec<Vec<String>> {
         tags.iter()

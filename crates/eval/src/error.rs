@@ -3,20 +3,16 @@
 /// Everything that can stop an evaluation, worded so the caller can act on it.
 #[derive(Debug, thiserror::Error)]
 pub enum EvalError {
-    #[error("method '{method}' could not be trained: {source}")]
-    Model {
-        method: String,
-        #[source]
-        source: tagweave_model::ModelError,
-    },
+    #[error(transparent)]
+    Suggest(#[from] tagweave_suggest::SuggestError),
     #[error("{what} has {got} entries but the feature matrix has {expected} rows; pass exactly one entry per picture, in the same order as the feature rows")]
     LengthMismatch {
         what: &'static str,
         got: usize,
         expected: usize,
     },
-    #[error("a view matrix has {got} columns but the features have {expected}; describe the views with the same feature extractor as the pictures")]
-    ViewWidth { got: usize, expected: usize },
+    #[error("a variant matrix has {got} columns but the features have {expected}; describe the variants with the same feature extractor as the pictures")]
+    VariantWidth { got: usize, expected: usize },
     #[error("the feature matrix has no columns; extract picture features before evaluating")]
     NoFeatures,
     #[error("train fraction {0} is outside the open interval (0, 1); use a value such as 0.75")]
@@ -33,8 +29,6 @@ pub enum EvalError {
     NonFiniteFeature { row: usize, col: usize },
     #[error("two methods are both named '{0}'; give every method a distinct name")]
     DuplicateMethod(String),
-    #[error("method '{0}' was asked for scores before it was fitted; call fit first")]
-    NotFitted(String),
     #[error("method '{method}' returned a {got_rows}x{got_cols} score matrix, expected {rows}x{cols} (test pictures x vocabulary); fix the method's score function")]
     BadScoreShape {
         method: String,
@@ -51,8 +45,6 @@ pub enum EvalError {
     },
     #[error("an out-of-fold audit needs at least 2 folds, got {0}; use 5")]
     BadFolds(usize),
-    #[error("no candidate values were given for {0}; pass at least one")]
-    NoCandidates(&'static str),
     #[error("ridge regression system is not positive definite at pivot {pivot}; features may hold huge values, standardise them or raise the ridge strength")]
     NotPositiveDefinite { pivot: usize },
 }

@@ -7,28 +7,32 @@
 //! runner [`evaluate`] builds the split, fits every method on train rows only
 //! and returns a serialisable [`Report`]; [`audit_out_of_fold`] disputes every
 //! tagged picture with methods that never saw its tags, to be scored against
-//! pictures known to be mislabelled.
+//! pictures known to be mislabelled; [`run_experiment`] does both for the baselines and
+//! tagweave's suggester, as `tagweave eval` reports them.
+//!
+//! The product never depends on this crate: it measures the suggester (from
+//! `tagweave-suggest`), never the other way round.
 
 mod audit;
 mod baselines;
-mod calibration;
 mod error;
+mod experiment;
 mod joint;
 mod linalg;
 pub mod metrics;
 mod mislabel;
+mod reliability;
 mod report;
 mod runner;
 mod split;
 
 pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
-pub use baselines::{
-    knn_leave_one_out_scores, KnnScorer, PriorScorer, RidgeScorer, TagScorer, TrainSet,
-};
-pub use calibration::{Calibration, Reliability, ReliabilityBin};
+pub use baselines::{PriorScorer, RidgeScorer, TagScorer};
 pub use error::EvalError;
-pub use joint::{JointScorer, TagSuggester, TrainingRun};
+pub use experiment::{all_methods, run_experiment, Collection, AUDIT_FOLDS};
+pub use joint::JointScorer;
 pub use mislabel::{disagreement, inject_mislabels, Injection};
+pub use reliability::{Reliability, ReliabilityBin};
 pub use report::{MethodReport, Report, SplitSummary};
-pub use runner::{baselines, evaluate, evaluate_with_views, EvalOptions, Progress, SUGGESTIONS};
-pub use split::{group_ids, split, Split, Standardiser, Vocabulary};
+pub use runner::{baselines, evaluate, evaluate_with_variants, EvalOptions, Progress, SUGGESTIONS};
+pub use split::{split, Split};

@@ -12,30 +12,18 @@ use ndarray::{Array2, ArrayView2};
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
+pub use tagweave_suggest::ranking::{column_midranks, label_ranking_average_precision, mean};
+use tagweave_suggest::ranking::{midranks, tied_blocks_desc, to_f64};
 
 /// Queries (tags or tag pairs) need at least this many relevant test
 /// pictures: with a single one, AP is just a reciprocal rank and very noisy.
 pub const MIN_SEARCH_POSITIVES: usize = 2;
 
-fn as_f64<S: Copy + Into<f64>>(scores: &[S]) -> Vec<f64> {
-    scores.iter().map(|&s| s.into()).collect()
-}
-
-/// Indices by descending score, then grouped into blocks of equal score.
-fn tied_blocks_desc(scores: &[f64]) -> Vec<Vec<usize>> {
-    let mut order: Vec<usize> = (0..scores.len()).collect();
-    order.sort_by(|&a, &b| scores[b].total_cmp(&scores[a]));
-    order
-        .chunk_by(|&a, &b| scores[a] == scores[b])
-        .map(<[usize]>::to_vec)
-        .collect()
-}
-
 /// Expected membership of each entry in the top `k` when ties are broken
 /// uniformly at random: 1 above the cut, 0 below, and for the tied block
 /// straddling the cut (free slots / block size). Weights sum to `min(k, n)`.
 pub fn top_k_weights<S: Copy + Into<f64>>(scores: &[S], k: usize) -> Vec<f64> {
-    let scores = as_f64(scores);
+    let scores = to_f64(scores);
     let mut weights = vec![0.0; scores.len()];
     let mut free = k;
     for block in tied_blocks_desc(&scores) {
@@ -51,33 +39,6 @@ pub fn top_k_weights<S: Copy + Into<f64>>(scores: &[S], k: usize) -> Vec<f64> {
     weights
 }
 
-/// Mid-ranks in ascending order (1 = smallest; tied values share the mean
-/// of the ranks they span).
-pub(crate) fn midranks(values: &[f64]) -> Vec<f64> {
-    let mut ranks = vec![0.0; values.len()];
-    let mut above = values.len();
-    for block in tied_blocks_desc(values) {
-        let mid = (above - block.len() + 1 + above) as f64 / 2.0;
-        for &i in &block {
-            ranks[i] = mid;
-        }
-        above -= block.len();
-    }
-    ranks
-}
-
-/// Each column's scores replaced by their mid-ranks (1 = lowest).
-pub fn column_midranks(scores: ArrayView2<f32>) -> Array2<f64> {
-    let mut out = Array2::zeros(scores.raw_dim());
-    for (col, mut dest) in scores.columns().into_iter().zip(out.columns_mut()) {
-        let values: Vec<f64> = col.iter().map(|&v| f64::from(v)).collect();
-        dest.iter_mut()
-            .zip(midranks(&values))
-            .for_each(|(d, r)| *d = r);
-    }
-    out
-}
-
 /// Each column's scores replaced by mid-rank / rows, in (0, 1]: makes columns
 /// of any method comparable ("how high is this picture among the others
 /// for this tag"), whatever the scale of its scores.
@@ -85,45 +46,12 @@ pub(crate) fn column_ranks(scores: ArrayView2<f32>) -> Array2<f64> {
     column_midranks(scores) / scores.nrows() as f64
 }
 
-pub(crate) fn mean(values: impl IntoIterator<Item = f64>) -> Option<f64> {
-    let (sum, count) = values
-        .into_iter()
-        .fold((0.0, 0usize), |(s, c), v| (s + v, c + 1));
-    (count > 0).then(|| sum / count as f64)
-}
-
-/// Label-ranking average precision of one picture (scikit-learn's
-/// definition): for each relevant tag j with rank_j = |{tags scoring ≥ s_j}|,
-/// take |{relevant tags scoring ≥ s_j}| / rank_j; average over relevant tags.
-/// A picture whose tags are all relevant or all irrelevant scores 1.
-pub fn label_ranking_average_precision<S: Copy + Into<f64>>(
-    scores: &[S],
-    relevant: &[bool],
-) -> f64 {
-    let scores = as_f64(scores);
-    let n_rel = relevant.iter().filter(|&&r| r).count();
-    if n_rel == 0 || n_rel == scores.len() {
-        return 1.0;
-    }
-    let mut total = 0.0;
-    for (&s, _) in scores.iter().zip(relevant).filter(|(_, &r)| r) {
-        let rank = scores.iter().filter(|&&x| x >= s).count();
-        let rel_rank = scores
-            .iter()
-            .zip(relevant)
-            .filter(|(&x, &r)| r && x >= s)
-            .count();
-        total += rel_rank as f64 / rank as f64;
-    }
-    total / n_rel as f64
-}
-
 /// Coverage error of one picture (scikit-learn's definition): how far down
 /// the ranking one must go to cover every relevant tag, counting every tag
 /// that scores at least as high as the lowest-scored relevant one. 0 when
 /// nothing is relevant; the best possible value is the number of relevant tags.
 pub fn coverage_error<S: Copy + Into<f64>>(scores: &[S], relevant: &[bool]) -> f64 {
-    let scores = as_f64(scores);
+    let scores = to_f64(scores);
     let lowest = scores
         .iter()
         .zip(relevant)
@@ -222,7 +150,7 @@ pub fn average_precision<S: Copy + Into<f64>>(scores: &[S], relevant: &[bool]) -
         return None;
     }
     let (mut seen, mut hits, mut ap) = (0usize, 0usize, 0.0);
-    for block in tied_blocks_desc(&as_f64(scores)) {
+    for block in tied_blocks_desc(&to_f64(scores)) {
         let new_hits = block.iter().filter(|&&i| relevant[i]).count();
         seen += block.len();
         hits += new_hits;
@@ -347,20 +275,10 @@ mod tests {
     }
 
     #[test]
-    fn lrap_and_coverage_match_scikit_learn_documentation() {
+    fn coverage_matches_scikit_learn_documentation() {
         // source: scikit-learn 1.9.1,
-        //   label_ranking_average_precision_score([[1,0,0],[0,0,1]], [[0.75,0.5,1],[1,0.2,0.1]])
-        //   = 0.41666666666666663 (also the docstring example);
         //   coverage_error([[1,0,0],[0,1,1]], [[0.75,0.5,1],[1,0.2,0.1]]) = 2.5 (docstring example)
         let scores: [&[f64]; 2] = [&[0.75, 0.5, 1.0], &[1.0, 0.2, 0.1]];
-        close(
-            mean_rows(
-                &[&[1, 0, 0], &[0, 0, 1]],
-                &scores,
-                label_ranking_average_precision,
-            ),
-            0.41666666666666663,
-        );
         close(
             mean_rows(&[&[1, 0, 0], &[0, 1, 1]], &scores, coverage_error),
             2.5,
@@ -368,46 +286,19 @@ mod tests {
     }
 
     #[test]
-    fn lrap_and_coverage_with_ties_match_scikit_learn() {
+    fn coverage_with_ties_matches_scikit_learn() {
         // source: scikit-learn 1.9.1, y_true=[[1,0,1,0],[0,1,0,0],[1,1,0,1]],
         //   y_score=[[.5,.5,.2,.9],[.3,.3,.3,.1],[.1,.4,.4,.4]]:
-        //   label_ranking_average_precision_score = 0.4814814814814814 (rows: 0.41666666666666663,
-        //   0.3333333333333333, 0.6944444444444443); coverage_error = 3.6666666666666665 (rows 4, 3, 4)
+        //   coverage_error = 3.6666666666666665 (rows 4, 3, 4)
         let truth: [&[u8]; 3] = [&[1, 0, 1, 0], &[0, 1, 0, 0], &[1, 1, 0, 1]];
         let scores: [&[f64]; 3] = [
             &[0.5, 0.5, 0.2, 0.9],
             &[0.3, 0.3, 0.3, 0.1],
             &[0.1, 0.4, 0.4, 0.4],
         ];
-        let lraps = [0.41666666666666663, 0.3333333333333333, 0.6944444444444443];
-        for ((t, s), want) in truth.iter().zip(&scores).zip(lraps) {
-            assert!((label_ranking_average_precision(s, &mask(t)) - want).abs() < 1e-12);
-        }
-        close(
-            mean_rows(&truth, &scores, label_ranking_average_precision),
-            0.4814814814814814,
-        );
         close(
             mean_rows(&truth, &scores, coverage_error),
             3.6666666666666665,
-        );
-    }
-
-    #[test]
-    fn lrap_edge_cases_follow_scikit_learn() {
-        // source: scikit-learn convention (label_ranking_average_precision_score docs): a sample
-        // with no relevant or only relevant labels scores 1.
-        assert_eq!(
-            label_ranking_average_precision(&[0.1f32, 0.2], &[false, false]),
-            1.0
-        );
-        assert_eq!(
-            label_ranking_average_precision(&[0.1f32, 0.2], &[true, true]),
-            1.0
-        );
-        assert_eq!(
-            label_ranking_average_precision(&[0.1f32, 0.2], &[true, false]),
-            0.5
         );
     }
 
@@ -562,10 +453,5 @@ mod tests {
         close(precision_at_count(&d, &noisy, 3).unwrap(), 2.0 / 3.0);
         close(precision_at_count(&d, &noisy, 1).unwrap(), 0.5);
         assert_eq!(precision_at_count(&d, &noisy, 0), None);
-    }
-
-    #[test]
-    fn midranks_average_ties() {
-        assert_eq!(midranks(&[0.3, 0.1, 0.3, 0.2]), vec![3.5, 1.0, 3.5, 2.0]);
     }
 }

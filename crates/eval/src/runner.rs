@@ -6,15 +6,17 @@ use std::time::Instant;
 
 use ndarray::{Array2, ArrayView2, Axis};
 
+use tagweave_suggest::{group_ids, KnnScorer, Standardiser, TagColumns, TrainSet};
+
 use crate::metrics::{
     annotation_scores, coverage_error, label_ranking_average_precision, mean, pair_search_map,
     precision_at_count, precision_at_k, recall_at_k, roc_auc, select_pairs, tag_search_map,
     MIN_SEARCH_POSITIVES,
 };
-use crate::split::group_ids;
+
 use crate::{
-    inject_mislabels, split, EvalError, Injection, KnnScorer, MethodReport, PriorScorer,
-    Reliability, Report, RidgeScorer, SplitSummary, Standardiser, TagScorer, TrainSet, Vocabulary,
+    inject_mislabels, split, EvalError, Injection, MethodReport, PriorScorer, Reliability, Report,
+    RidgeScorer, SplitSummary, TagScorer,
 };
 
 /// Tags suggested per picture for P@5, R@5 and per-tag annotation.
@@ -129,23 +131,26 @@ fn check_inputs(
     Ok(())
 }
 
-/// Every view matrix must match the features in shape and hold finite values.
-fn check_views(features: ArrayView2<f32>, views: &[ArrayView2<f32>]) -> Result<(), EvalError> {
-    for view in views {
-        if view.nrows() != features.nrows() {
+/// Every variant matrix must match the features in shape and hold finite values.
+fn check_variants(
+    features: ArrayView2<f32>,
+    variants: &[ArrayView2<f32>],
+) -> Result<(), EvalError> {
+    for variant in variants {
+        if variant.nrows() != features.nrows() {
             return Err(EvalError::LengthMismatch {
-                what: "a view matrix",
-                got: view.nrows(),
+                what: "a variant matrix",
+                got: variant.nrows(),
                 expected: features.nrows(),
             });
         }
-        if view.ncols() != features.ncols() {
-            return Err(EvalError::ViewWidth {
-                got: view.ncols(),
+        if variant.ncols() != features.ncols() {
+            return Err(EvalError::VariantWidth {
+                got: variant.ncols(),
                 expected: features.ncols(),
             });
         }
-        if let Some(((row, col), _)) = view.indexed_iter().find(|(_, v)| !v.is_finite()) {
+        if let Some(((row, col), _)) = variant.indexed_iter().find(|(_, v)| !v.is_finite()) {
             return Err(EvalError::NonFiniteFeature { row, col });
         }
     }
@@ -234,7 +239,7 @@ pub fn evaluate(
     methods: &mut [Box<dyn TagScorer>],
     on_progress: &mut dyn FnMut(Progress),
 ) -> Result<Report, EvalError> {
-    evaluate_with_views(
+    evaluate_with_variants(
         features,
         &[],
         tags,
@@ -245,13 +250,13 @@ pub fn evaluate(
     )
 }
 
-/// [`evaluate`] with views of every picture (`views[v]` row `i`: view `v` of feature
-/// row `i`, raw like `features`). The train pictures' views, standardised with the
-/// features' standardiser, reach the methods as [`TrainSet::views`]; test pictures are
+/// [`evaluate`] with variants of every picture (`variants[v]` row `i`: variant `v` of feature
+/// row `i`, raw like `features`). The train pictures' variants, standardised with the
+/// features' standardiser, reach the methods as [`TrainSet::variants`]; test pictures are
 /// scored on their originals only.
-pub fn evaluate_with_views(
+pub fn evaluate_with_variants(
     features: ArrayView2<f32>,
-    views: &[ArrayView2<f32>],
+    variants: &[ArrayView2<f32>],
     tags: &[Vec<String>],
     content_keys: &[String],
     options: &EvalOptions,
@@ -259,21 +264,21 @@ pub fn evaluate_with_views(
     on_progress: &mut dyn FnMut(Progress),
 ) -> Result<Report, EvalError> {
     check_inputs(features, tags, content_keys, options, methods)?;
-    check_views(features, views)?;
+    check_variants(features, variants)?;
     let parts = split(
         features.nrows(),
         content_keys,
         options.train_fraction,
         options.seed,
     )?;
-    let vocabulary = Vocabulary::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
-    if vocabulary.is_empty() {
+    let columns = TagColumns::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
+    if columns.is_empty() {
         return Err(EvalError::EmptyVocabulary);
     }
     let encoded = |items: &[usize]| -> (Vec<usize>, Vec<Vec<usize>>) {
         items
             .iter()
-            .map(|&i| (i, vocabulary.encode(&tags[i])))
+            .map(|&i| (i, columns.encode(&tags[i])))
             .filter(|(_, t)| !t.is_empty())
             .unzip()
     };
@@ -286,20 +291,20 @@ pub fn evaluate_with_views(
         .test
         .iter()
         .flat_map(|&i| &tags[i])
-        .filter(|t| vocabulary.index_of(t).is_none())
+        .filter(|t| columns.index_of(t).is_none())
         .collect();
 
     let standardiser = Standardiser::fit(features.select(Axis(0), &train_rows).view());
     let train_x = standardiser.apply(features.select(Axis(0), &train_rows).view());
     let test_x = standardiser.apply(features.select(Axis(0), &test_rows).view());
-    let train_views: Vec<Array2<f32>> = views
+    let train_variants: Vec<Array2<f32>> = variants
         .iter()
         .map(|v| standardiser.apply(v.select(Axis(0), &train_rows).view()))
         .collect();
     let all_groups = group_ids(content_keys);
     let train_groups: Vec<usize> = train_rows.iter().map(|&i| all_groups[i]).collect();
 
-    let n_tags = vocabulary.len();
+    let n_tags = columns.len();
     let mut matrix = Array2::from_elem((test_rows.len(), n_tags), false);
     for (i, list) in test_lists.iter().enumerate() {
         list.iter().for_each(|&t| matrix[[i, t]] = true);
@@ -327,7 +332,7 @@ pub fn evaluate_with_views(
         n_tags,
         groups: &train_groups,
         seed: options.seed,
-        views: &train_views,
+        variants: &train_variants,
     };
     let total = methods.len();
     let mut reports = BTreeMap::new();
@@ -477,16 +482,19 @@ mod tests {
         }
     }
 
-    /// Records the views the runner hands a method.
-    struct ViewRecorder(Rc<RefCell<Vec<Array2<f32>>>>);
+    /// Records the variants the runner hands a method.
+    struct VariantRecorder(Rc<RefCell<Vec<Array2<f32>>>>);
 
-    impl TagScorer for ViewRecorder {
+    impl TagScorer for VariantRecorder {
         fn name(&self) -> &str {
-            "views"
+            "variants"
         }
         fn fit(&mut self, train: &TrainSet) -> Result<(), EvalError> {
-            assert!(train.views.iter().all(|v| v.dim() == train.features.dim()));
-            self.0.borrow_mut().extend(train.views.iter().cloned());
+            assert!(train
+                .variants
+                .iter()
+                .all(|v| v.dim() == train.features.dim()));
+            self.0.borrow_mut().extend(train.variants.iter().cloned());
             Ok(())
         }
         fn score(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, EvalError> {
@@ -497,22 +505,22 @@ mod tests {
     }
 
     #[test]
-    fn views_of_train_pictures_reach_methods_scaled_like_the_features() {
+    fn variants_of_train_pictures_reach_methods_scaled_like_the_features() {
         let (x, tags, keys) = collection(100, 2);
         let seed = 9;
         let parts = split(100, &keys, 0.75, seed).unwrap();
         let mirror = x.mapv(|v| 3.0 * v + 1.0);
         let crop = x.mapv(|v| -v);
         let seen = Rc::new(RefCell::new(Vec::new()));
-        let mut methods: Vec<Box<dyn TagScorer>> = vec![Box::new(ViewRecorder(seen.clone()))];
+        let mut methods: Vec<Box<dyn TagScorer>> = vec![Box::new(VariantRecorder(seen.clone()))];
         let options = EvalOptions {
             seed,
             ..EvalOptions::default()
         };
-        let views = [mirror.view(), crop.view()];
-        evaluate_with_views(
+        let variants = [mirror.view(), crop.view()];
+        evaluate_with_variants(
             x.view(),
-            &views,
+            &variants,
             &tags,
             &keys,
             &options,
@@ -527,15 +535,15 @@ mod tests {
             .map(|v| standardiser.apply(v.select(Axis(0), &parts.train).view()))
             .collect();
         assert_eq!(*seen.borrow(), want);
-        // without views the methods get none
+        // without variants the methods get none
         seen.borrow_mut().clear();
         evaluate(x.view(), &tags, &keys, &options, &mut methods, &mut |_| {}).unwrap();
         assert!(seen.borrow().is_empty());
-        // views of the wrong shape are refused
+        // variants of the wrong shape are refused
         let short = x.slice(ndarray::s![..10, ..]);
         let narrow = x.slice(ndarray::s![.., ..3]);
         for (bad, wrong_rows) in [(short, true), (narrow, false)] {
-            let e = evaluate_with_views(
+            let e = evaluate_with_variants(
                 x.view(),
                 &[bad],
                 &tags,
@@ -551,7 +559,7 @@ mod tests {
                 "{e}"
             );
             assert_eq!(
-                matches!(e, EvalError::ViewWidth { got: 3, .. }),
+                matches!(e, EvalError::VariantWidth { got: 3, .. }),
                 !wrong_rows,
                 "{e}"
             );
@@ -579,8 +587,8 @@ mod tests {
         let report = evaluate(x.view(), &tags, &keys, &options, &mut methods, &mut |_| {}).unwrap();
         assert_eq!(report.split.unseen_test_tags, 1);
 
-        let vocabulary = Vocabulary::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
-        assert!(vocabulary.index_of("held-out-canary").is_none());
+        let columns = TagColumns::from_items(parts.train.iter().map(|&i| tags[i].as_slice()));
+        assert!(columns.index_of("held-out-canary").is_none());
         let standardiser = Standardiser::fit(x.select(Axis(0), &parts.train).view());
         let fitted = fitted_on.borrow();
         assert_eq!(fitted.len(), 1);
@@ -589,7 +597,7 @@ mod tests {
         let want: Vec<Vec<usize>> = parts
             .train
             .iter()
-            .map(|&i| vocabulary.encode(&tags[i]))
+            .map(|&i| columns.encode(&tags[i]))
             .collect();
         assert_eq!(got_tags, &want);
         assert_eq!(

@@ -3,19 +3,13 @@
 
 use std::path::Path;
 
-use ndarray::Array2;
 use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{ItemRecord, SkipReason, Skipped};
-use tagweave_store::Store;
+use tagweave_store::{Store, CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
 use tagweave_vision::FeatureExtractor;
 
 use crate::{IndexError, ScanOptions, ScanProgress, BATCH};
-
-/// Store blob holding the learned [`FeatureExtractor`].
-pub const EXTRACTOR_BLOB: &str = "feature_extractor";
-/// Vector kind under which each item's raw feature vector is kept.
-pub const FEATURES: &str = "features";
 
 /// What the feature stage did.
 #[derive(Debug, Clone, Default, Serialize)]
@@ -62,8 +56,8 @@ pub(crate) fn update(
             // Old vectors were made by another extractor: drop them (and the model trained
             // on them, and its codes) before the new one is stored, so a crash in between
             // never pairs vectors with the wrong extractor.
-            store.remove_blob(crate::MODEL_BLOB)?;
-            store.clear_vectors(crate::CODES)?;
+            store.remove_blob(MODEL_BLOB)?;
+            store.clear_vectors(CODES)?;
             store.clear_vectors(FEATURES)?;
             store.put_blob(EXTRACTOR_BLOB, &extractor)?;
             extractor
@@ -132,42 +126,4 @@ fn describe(
             };
             (item.id.clone(), Skipped { path, reason })
         })
-}
-
-/// Every item that has a feature vector, with those vectors as the rows of one matrix
-/// (raw, not standardised), ordered by relative path.
-pub struct FeatureTable {
-    pub items: Vec<ItemRecord>,
-    pub features: Array2<f32>,
-}
-
-impl FeatureTable {
-    pub fn load(store: &Store) -> Result<FeatureTable, IndexError> {
-        let mut items = store.items()?;
-        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
-        let mut kept = Vec::with_capacity(items.len());
-        let mut values = Vec::new();
-        let mut dimension = None;
-        for item in items {
-            let Some(row) = store.vector(FEATURES, &item.id)? else {
-                continue;
-            };
-            if *dimension.get_or_insert(row.len()) != row.len() {
-                return Err(IndexError::Inconsistent(format!(
-                    "feature vectors of different lengths ({} has {}); rebuild features with \
-                     `tagweave scan FOLDER --relearn`",
-                    item.rel_path,
-                    row.len()
-                )));
-            }
-            values.extend_from_slice(&row);
-            kept.push(item);
-        }
-        let features = Array2::from_shape_vec((kept.len(), dimension.unwrap_or(0)), values)
-            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
-        Ok(FeatureTable {
-            items: kept,
-            features,
-        })
-    }
 }

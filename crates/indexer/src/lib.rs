@@ -17,10 +17,9 @@ use tagweave_vision::{FeatureOptions, VisionError};
 
 mod features;
 mod training;
-pub use features::{FeatureSummary, FeatureTable, EXTRACTOR_BLOB, FEATURES};
+pub use features::FeatureSummary;
 pub use training::{
-    code_missing, train, view_features, TrainOptions, TrainProgress, TrainReport, TrainedModel,
-    TrainingData, TrainingHistory, CODES, MODEL_BLOB, MODEL_FORMAT,
+    code_missing, load_model, train, variant_features, TrainProgress, TrainReport, TrainRunOptions,
 };
 
 /// How many pictures are read between two flushes of the store.
@@ -34,20 +33,13 @@ pub enum IndexError {
     Store(#[from] StoreError),
     #[error(transparent)]
     Vision(#[from] VisionError),
-    #[error("the store disagrees with itself: {0}")]
-    Inconsistent(String),
     #[error(transparent)]
-    Model(tagweave_eval::EvalError),
+    Suggest(#[from] tagweave_suggest::SuggestError),
     #[error(
         "only {tagged} tagged picture(s) with features: the model needs at least 2 to learn \
          from; tag a few pictures (a text sidecar beside each, one tag per line) and scan again"
     )]
     NotEnoughTags { tagged: usize },
-    #[error(
-        "the stored model has format {found}, this tagweave reads format {expected}; \
-         run `tagweave train` again"
-    )]
-    ModelFormat { found: u32, expected: u32 },
 }
 
 #[derive(Debug, Clone)]
@@ -199,13 +191,13 @@ pub fn scan(
     store.update_items(&[], &undecodable)?;
     skipped_files.extend(failures.into_iter().map(|(_, skip)| skip));
     // Pictures new since the last training get their codes from the stored model.
-    let coded = match TrainedModel::load(store) {
-        Ok(Some(model)) => code_missing(store, &model, &mut |done, total| {
+    let coded = match load_model(store) {
+        Ok(Some(trained)) => code_missing(store, &trained, &mut |done, total| {
             progress(ScanProgress::Coding { done, total })
         })?,
         Ok(None) => 0,
         // A model from another tagweave version cannot code; the scan itself is fine.
-        Err(error @ IndexError::ModelFormat { .. }) => {
+        Err(IndexError::Store(error @ StoreError::ModelFormat { .. })) => {
             notes.push(Note {
                 path: store.dir().to_path_buf(),
                 message: error.to_string(),
@@ -290,12 +282,12 @@ pub(crate) mod tests {
         assert!(first.features.learned);
 
         // As if the process died after the items were written but before any feature was.
-        store.clear_vectors(FEATURES).unwrap();
+        store.clear_vectors(tagweave_store::FEATURES).unwrap();
         let second = scan(&store, &quick_options(), &|_| {}).unwrap();
         assert_eq!(second.unchanged, 10);
         assert_eq!(second.features.encoded, 10, "missing features are made");
         assert!(!second.features.learned, "the stored extractor is reused");
-        let table = FeatureTable::load(&store).unwrap();
+        let table = tagweave_store::FeatureTable::load(&store).unwrap();
         assert_eq!(table.features.dim(), (10, second.features.dimension));
     }
 

@@ -1,80 +1,38 @@
-//! Training the joint model on a store's tagged pictures, keeping it in the store, and
+//! Training the suggester on a store's tagged pictures, keeping it in the store, and
 //! giving every picture its code.
-//!
-//! The trained model travels with its own vocabulary and feature scaling, so a later
-//! scan (new pictures, changed tags) never changes what the model's inputs mean.
 
 use std::time::Instant;
 
 use ndarray::{Array2, ArrayView2, Axis};
 use rayon::prelude::*;
-use serde::{Deserialize, Serialize};
+use serde::Serialize;
 use tagweave_collection::ItemRecord;
-use tagweave_eval::{
-    group_ids, KnnScorer, Standardiser, TagSuggester, TrainSet, TrainingRun, Vocabulary,
-};
 use tagweave_model::{JointOptions, JointProgress};
-use tagweave_store::Store;
-use tagweave_vision::{FeatureExtractor, TRAINING_VIEWS};
+use tagweave_store::{
+    FeatureTable, Store, StoreError, CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB,
+};
+use tagweave_suggest::{
+    Standardiser, TagColumns, TagSuggester, TrainSet, TrainedModel, TrainingData, TrainingHistory,
+    TrainingRun, MODEL_FORMAT,
+};
+use tagweave_vision::{FeatureExtractor, TRAINING_VARIANTS};
 
-use crate::{FeatureTable, IndexError, BATCH, EXTRACTOR_BLOB, FEATURES};
-
-/// Store blob holding the [`TrainedModel`].
-pub const MODEL_BLOB: &str = "tag_model";
-/// Vector kind of each picture's code (shared-layer probabilities).
-pub const CODES: &str = "code";
-/// Bumped when [`TrainedModel`] changes shape; an older model is retrained, not guessed at.
-pub const MODEL_FORMAT: u32 = 2;
+use crate::{IndexError, BATCH};
 
 /// Pictures coded per store write.
 const CODE_BATCH: usize = 256;
 
-/// A model as kept in the store: everything needed to suggest tags for, and code,
-/// any picture described by the store's feature extractor.
-#[derive(Debug, Clone, Serialize, Deserialize)]
-pub struct TrainedModel {
-    pub format: u32,
-    /// Tag of each model column, sorted.
-    pub vocabulary: Vec<String>,
-    /// Scaling of raw features fitted on the training pictures.
-    pub standardiser: Standardiser,
-    pub suggester: TagSuggester,
-    /// Per shared unit, its median over the training pictures' codes: bit j of a
-    /// picture's hash is `code[j] > threshold[j]`, so every bit splits the
-    /// collection about in half (the most informative a bit can be).
-    pub hash_thresholds: Vec<f32>,
-    /// Per tag (model column), the mean code of the training pictures carrying it: the
-    /// tag's place among picture codes, for finding pictures by tags and for moving a
-    /// picture's code from one tag toward another.
-    pub tag_centroids: Vec<Vec<f32>>,
-    pub history: TrainingHistory,
-}
-
-/// What training went through, for the summary and the loss-curve picture.
-#[derive(Debug, Clone, Default, Serialize, Deserialize)]
-pub struct TrainingHistory {
-    /// Per pretrained layer ("image", "tags", "shared"): reconstruction error per
-    /// epoch of the final run.
-    pub pretraining: Vec<(String, Vec<f32>)>,
-    /// Fine-tuning loss per epoch while choosing the length (validation run).
-    pub choosing_loss: Vec<f32>,
-    /// Validation LRAP per epoch of that run.
-    pub validation_lrap: Vec<f32>,
-    /// Fine-tuning loss per epoch of the final run.
-    pub final_loss: Vec<f32>,
-    pub pictures: usize,
-    pub seconds: f64,
-}
-
+/// Options of one `train` run over a store: the seed of every random choice and the
+/// joint model's own options.
 #[derive(Debug, Clone)]
-pub struct TrainOptions {
+pub struct TrainRunOptions {
     pub seed: u64,
     pub joint: JointOptions,
 }
 
-impl Default for TrainOptions {
+impl Default for TrainRunOptions {
     fn default() -> Self {
-        TrainOptions {
+        TrainRunOptions {
             seed: 7,
             joint: JointOptions::default(),
         }
@@ -90,8 +48,8 @@ pub enum TrainProgress {
         done: usize,
         total: usize,
     },
-    /// Tagged pictures decoded again so far for their training views.
-    Views {
+    /// Tagged pictures decoded again so far for their training variants.
+    Variants {
         done: usize,
         total: usize,
     },
@@ -102,9 +60,9 @@ pub enum TrainProgress {
 pub struct TrainReport {
     /// Tagged pictures the model learned from.
     pub pictures: usize,
-    /// Of those, pictures that could not be decoded again for their training views
-    /// (they trained as themselves only); 0 when views were not used.
-    pub without_views: usize,
+    /// Of those, pictures that could not be decoded again for their training variants
+    /// (they trained as themselves only); 0 when variants were not used.
+    pub without_variants: usize,
     /// Pictures without tags (coded, not learned from).
     pub untagged: usize,
     pub tags: usize,
@@ -123,63 +81,12 @@ pub struct TrainReport {
     pub seconds: f64,
 }
 
-/// The store's tagged pictures in model columns, with features scaled for the model.
-pub struct TrainingData {
-    pub items: Vec<ItemRecord>,
-    /// Row of each item in the [`FeatureTable`] it was picked from.
-    pub table_rows: Vec<usize>,
-    /// Standardised features, one row per item.
-    pub features: Array2<f32>,
-    pub tags: Vec<Vec<usize>>,
-    pub groups: Vec<usize>,
-}
-
-impl TrainingData {
-    pub fn train_set(&self, n_tags: usize, seed: u64) -> TrainSet<'_> {
-        TrainSet {
-            features: self.features.view(),
-            tags: &self.tags,
-            n_tags,
-            groups: &self.groups,
-            seed,
-            views: &[],
-        }
-    }
-}
-
-/// Picks the tagged rows of `table`, encodes their tags with `vocabulary` (rows
-/// left with no known tag are dropped) and scales their features.
-fn tagged_rows(
-    table: &FeatureTable,
-    vocabulary: &Vocabulary,
-    standardiser: &Standardiser,
-) -> TrainingData {
-    let mut rows = Vec::new();
-    let mut tags = Vec::new();
-    for (i, item) in table.items.iter().enumerate() {
-        let known = vocabulary.encode(&item.tags);
-        if !known.is_empty() {
-            rows.push(i);
-            tags.push(known);
-        }
-    }
-    let items: Vec<ItemRecord> = rows.iter().map(|&i| table.items[i].clone()).collect();
-    let keys: Vec<String> = items.iter().map(|i| i.content_hash.clone()).collect();
-    TrainingData {
-        features: standardiser.apply(table.features.select(Axis(0), &rows).view()),
-        groups: group_ids(&keys),
-        items,
-        table_rows: rows,
-        tags,
-    }
-}
-
 /// Trains the joint model on every tagged picture with features, stores it, and
 /// codes every picture. The previous model and codes are replaced only at the end,
 /// model first, so a crash leaves the old model or codes that a scan completes.
 pub fn train(
     store: &Store,
-    options: &TrainOptions,
+    options: &TrainRunOptions,
     progress: &mut dyn FnMut(TrainProgress),
 ) -> Result<TrainReport, IndexError> {
     let started = Instant::now();
@@ -195,71 +102,65 @@ pub fn train(
             tagged: tagged.len(),
         });
     }
-    let vocabulary = Vocabulary::from_items(tagged.iter().copied());
+    let columns = TagColumns::from_items(tagged.iter().copied());
     let tagged_features: Vec<usize> = (0..table.items.len())
         .filter(|&i| !table.items[i].tags.is_empty())
         .collect();
     let standardiser = Standardiser::fit(table.features.select(Axis(0), &tagged_features).view());
-    let data = tagged_rows(&table, &vocabulary, &standardiser);
-    let uses_views = options.joint.variant_share > 0.0 || options.joint.variant_rows;
-    let (raw_views, without_views) = if uses_views {
-        let raw = table.features.select(Axis(0), &data.table_rows);
-        view_features(store, &data.items, raw.view(), &mut |done, total| {
-            progress(TrainProgress::Views { done, total })
+    let data = TrainingData::tagged(
+        &table.tags(),
+        &table.content_keys(),
+        table.features.view(),
+        &columns,
+        &standardiser,
+    );
+    let uses_variants = options.joint.variant_share > 0.0 || options.joint.variant_rows;
+    let (raw_variants, without_variants) = if uses_variants {
+        let items: Vec<ItemRecord> = data.rows.iter().map(|&i| table.items[i].clone()).collect();
+        let raw = table.features.select(Axis(0), &data.rows);
+        variant_features(store, &items, raw.view(), &mut |done, total| {
+            progress(TrainProgress::Variants { done, total })
         })?
     } else {
         (Vec::new(), 0)
     };
-    let views: Vec<Array2<f32>> = raw_views
+    let variants: Vec<Array2<f32>> = raw_variants
         .iter()
         .map(|v| standardiser.apply(v.view()))
         .collect();
     let train_set = TrainSet {
-        views: &views,
-        ..data.train_set(vocabulary.len(), options.seed)
+        variants: &variants,
+        ..data.train_set(columns.len(), options.seed)
     };
 
     let mut history = TrainingHistory::default();
     let (suggester, _) = TagSuggester::train(&train_set, &options.joint, &mut |run, p| {
-        record(&mut history, run, &p);
+        history.record(run, &p);
         progress(TrainProgress::Model(run, p));
-    })
-    .map_err(IndexError::Model)?;
-    history.pictures = data.items.len();
+    })?;
+    history.pictures = data.rows.len();
     history.seconds = started.elapsed().as_secs_f64();
 
-    let codes = suggester
-        .model
-        .shared_code(data.features.view())
-        .map_err(|e| IndexError::Model(model_error(e)))?;
-    let model = TrainedModel {
-        format: MODEL_FORMAT,
-        vocabulary: vocabulary.tags().to_vec(),
-        standardiser,
-        hash_thresholds: column_medians(codes.view()),
-        tag_centroids: centroids(codes.view(), &data.tags, vocabulary.len()),
-        suggester,
-        history,
-    };
+    let trained = TrainedModel::new(&columns, standardiser, suggester, &data, history)?;
     store.clear_vectors(CODES)?;
-    store.put_blob(MODEL_BLOB, &model)?;
-    let coded = code_missing(store, &model, &mut |done, total| {
+    store.put_blob(MODEL_BLOB, &trained)?;
+    let coded = code_missing(store, &trained, &mut |done, total| {
         progress(TrainProgress::Coding { done, total })
     })?;
 
-    let h = &model.history;
-    let m = &model.suggester.model;
+    let h = &trained.history;
+    let m = &trained.suggester.network;
     Ok(TrainReport {
-        pictures: data.items.len(),
-        without_views,
-        untagged: table.items.len() - data.items.len(),
-        tags: model.vocabulary.len(),
+        pictures: data.rows.len(),
+        without_variants,
+        untagged: table.items.len() - data.rows.len(),
+        tags: trained.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
-        epochs: model.suggester.epochs,
-        readout_weight: model.suggester.readout_weight,
-        k: model.suggester.k,
-        calibrated: model.suggester.calibration.is_some(),
-        hash_bits: model.hash_thresholds.len(),
+        epochs: trained.suggester.epochs,
+        readout_weight: trained.suggester.readout_weight,
+        k: trained.suggester.k,
+        calibrated: trained.suggester.calibration.is_some(),
+        hash_bits: trained.hash_thresholds.len(),
         coded,
         final_reconstruction: h
             .pretraining
@@ -272,11 +173,11 @@ pub fn train(
     })
 }
 
-/// The raw feature rows of the training views of `items` (`features`: their stored
-/// rows, same order): `views[v]` row `i` is view `v` of `items[i]`, decoded again from
+/// The raw feature rows of the training variants of `items` (`features`: their stored
+/// rows, same order): `variants[v]` row `i` is variant `v` of `items[i]`, decoded again from
 /// the collection folder. A picture that no longer decodes keeps its own features in
-/// every view (so it trains as itself only) and is counted in the second value.
-pub fn view_features(
+/// every variant (so it trains as itself only) and is counted in the second value.
+pub fn variant_features(
     store: &Store,
     items: &[ItemRecord],
     features: ArrayView2<f32>,
@@ -286,34 +187,37 @@ pub fn view_features(
         return Ok((Vec::new(), 0));
     };
     if items.len() != features.nrows() {
-        return Err(IndexError::Inconsistent(format!(
-            "{} pictures but {} feature rows given for their views",
+        return Err(StoreError::Inconsistent(format!(
+            "{} pictures but {} feature rows given for their variants",
             items.len(),
             features.nrows()
-        )));
+        ))
+        .into());
     }
     if extractor.dimension() != features.ncols() {
-        return Err(IndexError::Inconsistent(format!(
+        return Err(StoreError::Inconsistent(format!(
             "stored features have {} values but the feature extractor makes {}; rebuild \
              features with `tagweave scan FOLDER --relearn`",
             features.ncols(),
             extractor.dimension()
-        )));
+        ))
+        .into());
     }
     let root = store.collection_root();
-    let mut views = vec![features.to_owned(); TRAINING_VIEWS.len()];
+    let mut variants = vec![features.to_owned(); TRAINING_VARIANTS.len()];
     let mut failed = 0;
     let mut done = 0;
     for (chunk_index, chunk) in items.chunks(BATCH).enumerate() {
         let described: Vec<_> = chunk
             .par_iter()
-            .map(|item| extractor.training_views(&root.join(&item.rel_path)).ok())
+            .map(|item| extractor.training_variants(&root.join(&item.rel_path)).ok())
             .collect();
         for (offset, rows) in described.into_iter().enumerate() {
             let i = chunk_index * BATCH + offset;
             match rows {
-                Some(rows) => views.iter_mut().zip(&rows).for_each(|(view, row)| {
-                    view.row_mut(i)
+                Some(rows) => variants.iter_mut().zip(&rows).for_each(|(variant, row)| {
+                    variant
+                        .row_mut(i)
                         .assign(&ndarray::ArrayView1::from(row.as_slice()))
                 }),
                 None => failed += 1,
@@ -322,135 +226,18 @@ pub fn view_features(
         done += chunk.len();
         progress(done, items.len());
     }
-    Ok((views, failed))
+    Ok((variants, failed))
 }
 
-fn record(history: &mut TrainingHistory, run: TrainingRun, p: &JointProgress) {
-    match (run, p) {
-        (TrainingRun::Final, JointProgress::Pretraining { layer, report }) => {
-            match history.pretraining.iter_mut().find(|(l, _)| l == layer) {
-                Some((_, errors)) => errors.push(report.reconstruction_error),
-                None => history
-                    .pretraining
-                    .push((layer.to_string(), vec![report.reconstruction_error])),
-            }
-        }
-        (TrainingRun::Choosing, JointProgress::FineTuning(r)) => {
-            history.choosing_loss.push(r.train_loss);
-            if let Some(score) = r.validation_score {
-                history.validation_lrap.push(score);
-            }
-        }
-        (TrainingRun::Final, JointProgress::FineTuning(r)) => history.final_loss.push(r.train_loss),
-        (TrainingRun::Choosing, JointProgress::Pretraining { .. }) => {}
-    }
-}
-
-fn centroids(codes: ArrayView2<f32>, tags: &[Vec<usize>], n_tags: usize) -> Vec<Vec<f32>> {
-    let mut sums = vec![vec![0.0f64; codes.ncols()]; n_tags];
-    let mut counts = vec![0usize; n_tags];
-    for (code, carried) in codes.outer_iter().zip(tags) {
-        for &t in carried {
-            counts[t] += 1;
-            sums[t]
-                .iter_mut()
-                .zip(code)
-                .for_each(|(s, &c)| *s += f64::from(c));
-        }
-    }
-    sums.into_iter()
-        .zip(counts)
-        .map(|(sum, n)| {
-            sum.into_iter()
-                .map(|s| (s / n.max(1) as f64) as f32)
-                .collect()
-        })
-        .collect()
-}
-
-fn column_medians(codes: ArrayView2<f32>) -> Vec<f32> {
-    codes
-        .columns()
-        .into_iter()
-        .map(|c| {
-            let mut v = c.to_vec();
-            v.sort_by(f32::total_cmp);
-            match v.len() {
-                0 => 0.5,
-                n if n % 2 == 1 => v[n / 2],
-                n => 0.5 * (v[n / 2 - 1] + v[n / 2]),
-            }
-        })
-        .collect()
-}
-
-fn model_error(source: tagweave_model::ModelError) -> tagweave_eval::EvalError {
-    tagweave_eval::EvalError::Model {
-        method: "joint".into(),
-        source,
-    }
-}
-
-impl TrainedModel {
-    /// The store's model; `None` before the first `tagweave train`.
-    ///
-    /// Read once; only when that fails is the format number read on its own, so that
-    /// a model of another shape is reported as "train again", not as damage.
-    pub fn load(store: &Store) -> Result<Option<TrainedModel>, IndexError> {
-        #[derive(Deserialize)]
-        struct FormatOnly {
-            format: u32,
-        }
-        let outdated = |found| IndexError::ModelFormat {
-            found,
-            expected: MODEL_FORMAT,
-        };
-        match store.blob::<TrainedModel>(MODEL_BLOB) {
-            Ok(Some(model)) if model.format != MODEL_FORMAT => Err(outdated(model.format)),
-            Ok(model) => Ok(model),
-            Err(error) => match store.blob::<FormatOnly>(MODEL_BLOB) {
-                Ok(Some(header)) if header.format != MODEL_FORMAT => Err(outdated(header.format)),
-                _ => Err(error.into()),
-            },
-        }
-    }
-
-    /// Raw feature rows (as stored) scaled for the model.
-    pub fn scale(&self, raw: ArrayView2<f32>) -> Result<Array2<f32>, IndexError> {
-        if raw.ncols() != self.standardiser.width() {
-            return Err(IndexError::Inconsistent(format!(
-                "pictures have {} features but the model was trained on {}; run `tagweave train` again",
-                raw.ncols(),
-                self.standardiser.width()
-            )));
-        }
-        Ok(self.standardiser.apply(raw))
-    }
-
-    /// Codes (shared-layer probabilities) of raw feature rows.
-    pub fn codes(&self, raw: ArrayView2<f32>) -> Result<Array2<f32>, IndexError> {
-        self.suggester
-            .model
-            .shared_code(self.scale(raw)?.view())
-            .map_err(|e| IndexError::Model(model_error(e)))
-    }
-
-    /// The kNN part of the suggestions, on the store's tagged pictures as they are
-    /// now (tags accepted since training count at once), plus those pictures.
-    pub fn neighbours(&self, table: &FeatureTable) -> Result<(KnnScorer, Vec<String>), IndexError> {
-        let vocabulary = Vocabulary::from_items([self.vocabulary.as_slice()]);
-        let data = tagged_rows(table, &vocabulary, &self.standardiser);
-        let knn = self
-            .suggester
-            .neighbours(&data.train_set(self.vocabulary.len(), 0));
-        Ok((knn, data.items.into_iter().map(|i| i.id).collect()))
-    }
+/// The store's model; `None` before the first `tagweave train`.
+pub fn load_model(store: &Store) -> Result<Option<TrainedModel>, IndexError> {
+    Ok(store.model(MODEL_FORMAT, |m: &TrainedModel| m.format)?)
 }
 
 /// Codes every item that has features but no code yet; returns how many were coded.
 pub fn code_missing(
     store: &Store,
-    model: &TrainedModel,
+    trained: &TrainedModel,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Result<usize, IndexError> {
     let mut missing = Vec::new();
@@ -467,8 +254,8 @@ pub fn code_missing(
         let width = chunk[0].1.len();
         let flat: Vec<f32> = chunk.iter().flat_map(|(_, r)| r.iter().copied()).collect();
         let raw = Array2::from_shape_vec((chunk.len(), width), flat)
-            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
-        let codes = model.codes(raw.view())?;
+            .map_err(|e| StoreError::Inconsistent(e.to_string()))?;
+        let codes = trained.codes(raw.view())?;
         let rows: Vec<(String, Vec<f32>)> = chunk
             .iter()
             .zip(codes.outer_iter())
@@ -487,7 +274,7 @@ mod tests {
     use crate::tests::{quick_options, small_collection};
 
     #[test]
-    fn views_are_described_again_and_an_unreadable_picture_only_loses_its_views() {
+    fn variants_are_described_again_and_an_unreadable_picture_only_loses_its_variants() {
         let temp = tempfile::tempdir().unwrap();
         small_collection(temp.path(), 10);
         let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
@@ -500,7 +287,7 @@ mod tests {
         let broken = &table.items[b];
         std::fs::write(temp.path().join(&broken.rel_path), b"no longer a picture").unwrap();
         let mut reported = Vec::new();
-        let (views, failed) = view_features(
+        let (variants, failed) = variant_features(
             &store,
             &table.items,
             table.features.view(),
@@ -509,58 +296,41 @@ mod tests {
         .unwrap();
         assert_eq!(failed, 1);
         assert_eq!(reported.last(), Some(&(10, 10)));
-        assert_eq!(views.len(), TRAINING_VIEWS.len());
+        assert_eq!(variants.len(), TRAINING_VARIANTS.len());
         for (i, item) in table.items.iter().enumerate() {
             if i == b {
-                for view in &views {
-                    assert_eq!(view.row(i), table.features.row(i));
+                for variant in &variants {
+                    assert_eq!(variant.row(i), table.features.row(i));
                 }
                 continue;
             }
             let want = extractor
-                .training_views(&temp.path().join(&item.rel_path))
+                .training_variants(&temp.path().join(&item.rel_path))
                 .unwrap();
-            for (view, row) in views.iter().zip(&want) {
-                assert_eq!(view.row(i).to_vec(), *row);
-                assert_ne!(view.row(i), table.features.row(i));
+            for (variant, row) in variants.iter().zip(&want) {
+                assert_eq!(variant.row(i).to_vec(), *row);
+                assert_ne!(variant.row(i), table.features.row(i));
             }
         }
-        // Training with views goes on without that picture's views and says so.
-        let options = TrainOptions {
+        // Training with variants goes on without that picture's variants and says so.
+        let options = TrainRunOptions {
             joint: JointOptions {
                 max_epochs: 3,
                 pretrain_epochs: 1,
                 variant_share: 0.5,
                 ..JointOptions::default()
             },
-            ..TrainOptions::default()
+            ..TrainRunOptions::default()
         };
         let mut events = Vec::new();
         let report = train(&store, &options, &mut |p| {
-            if let TrainProgress::Views { done, total } = p {
+            if let TrainProgress::Variants { done, total } = p {
                 events.push((done, total));
             }
         })
         .unwrap();
         assert!(report.pictures >= 2, "{report:?}");
-        assert_eq!(report.without_views, 1);
+        assert_eq!(report.without_variants, 1);
         assert_eq!(events.last(), Some(&(report.pictures, report.pictures)));
-    }
-
-    // by hand: tag 0 on rows 0 and 2 → mean of [1, 0] and [3, 2] = [2, 1]; tag 1 on row 1 only.
-    #[test]
-    fn tag_centroids_are_mean_codes_of_carriers() {
-        let codes = ndarray::array![[1.0f32, 0.0], [5.0, 5.0], [3.0, 2.0]];
-        let c = centroids(codes.view(), &[vec![0], vec![1], vec![0]], 3);
-        assert_eq!(c, vec![vec![2.0, 1.0], vec![5.0, 5.0], vec![0.0, 0.0]]);
-    }
-
-    // by hand: medians of [3, 1, 2] = 2 and of [0.1, 0.4, 0.2, 0.3] = 0.25.
-    #[test]
-    fn hash_thresholds_are_column_medians() {
-        let odd = ndarray::array![[3.0f32], [1.0], [2.0]];
-        assert_eq!(column_medians(odd.view()), vec![2.0]);
-        let even = ndarray::array![[0.1f32], [0.4], [0.2], [0.3]];
-        assert!((column_medians(even.view())[0] - 0.25).abs() < 1e-7);
     }
 }

@@ -8,12 +8,13 @@
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
-use ndarray::{Array2, Axis};
+use ndarray::{Array1, Array2, Axis};
 use serde::Serialize;
 use tagweave_collection::{normalize_tag, ItemRecord};
-use tagweave_eval::KnnScorer;
-use tagweave_indexer::{FeatureTable, IndexError, TrainedModel, CODES, EXTRACTOR_BLOB};
-use tagweave_store::{CodeIndex, SearchMode, Store, StoreError};
+use tagweave_store::{
+    CodeIndex, FeatureTable, SearchMode, Store, StoreError, CODES, EXTRACTOR_BLOB,
+};
+use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_FORMAT};
 use tagweave_vision::{FeatureExtractor, VisionError};
 
 mod audit;
@@ -42,11 +43,9 @@ pub enum QueryError {
     )]
     NotIndexed { path: PathBuf },
     #[error(transparent)]
-    Index(#[from] IndexError),
-    #[error(transparent)]
     Store(#[from] StoreError),
     #[error(transparent)]
-    Eval(#[from] tagweave_eval::EvalError),
+    Suggest(#[from] SuggestError),
 }
 
 pub type Result<T> = std::result::Result<T, QueryError>;
@@ -92,7 +91,7 @@ impl Default for Ranking {
 /// A trained store opened for questions.
 pub struct Queries {
     root: PathBuf,
-    model: TrainedModel,
+    trained: TrainedModel,
     /// Every picture with features, by relative path.
     items: Vec<ItemRecord>,
     /// Their features, scaled for the model (same row order).
@@ -104,37 +103,32 @@ pub struct Queries {
     neighbours: KnnScorer,
     /// For each item row, its row among the neighbours' pictures (tagged ones only).
     neighbour_row: Vec<Option<usize>>,
-    tag_column: HashMap<String, usize>,
+    columns: TagColumns,
     extractor: Option<FeatureExtractor>,
 }
 
 impl Queries {
     pub fn open(store: &Store) -> Result<Queries> {
-        let model = TrainedModel::load(store)?.ok_or(QueryError::NotTrained)?;
+        let trained = store
+            .model(MODEL_FORMAT, |m: &TrainedModel| m.format)?
+            .ok_or(QueryError::NotTrained)?;
         let table = FeatureTable::load(store)?;
-        let scaled = model.scale(table.features.view())?;
-        let (neighbours, neighbour_ids) = model.neighbours(&table)?;
-        let row_of_id: HashMap<String, usize> = table
+        let scaled = trained.scale(table.features.view())?;
+        let (neighbours, neighbour_rows) =
+            trained.neighbours(&table.tags(), &table.content_keys(), table.features.view());
+        let mut neighbour_row = vec![None; table.items.len()];
+        for (j, &i) in neighbour_rows.iter().enumerate() {
+            neighbour_row[i] = Some(j);
+        }
+        let row_of_id: HashMap<&str, usize> = table
             .items
             .iter()
             .enumerate()
-            .map(|(i, item)| (item.id.clone(), i))
+            .map(|(i, item)| (item.id.as_str(), i))
             .collect();
-        let mut neighbour_row = vec![None; table.items.len()];
-        for (j, id) in neighbour_ids.iter().enumerate() {
-            if let Some(&i) = row_of_id.get(id) {
-                neighbour_row[i] = Some(j);
-            }
-        }
-        let codes = CodeIndex::load(store, CODES, &model.hash_thresholds)?;
+        let codes = CodeIndex::load(store, CODES, &trained.hash_thresholds)?;
         let item_of_code = (0..codes.len())
             .map(|r| row_of_id.get(codes.id(r)).copied())
-            .collect();
-        let tag_column = model
-            .vocabulary
-            .iter()
-            .enumerate()
-            .map(|(i, t)| (t.clone(), i))
             .collect();
         Ok(Queries {
             root: store.collection_root().to_path_buf(),
@@ -145,8 +139,8 @@ impl Queries {
             item_of_code,
             neighbours,
             neighbour_row,
-            tag_column,
-            model,
+            columns: trained.columns(),
+            trained,
         })
     }
 
@@ -155,7 +149,7 @@ impl Queries {
     }
 
     pub fn vocabulary(&self) -> &[String] {
-        &self.model.vocabulary
+        &self.trained.vocabulary
     }
 
     /// The row of a picture given as a path (relative to the current folder, absolute,
@@ -178,7 +172,7 @@ impl Queries {
         let x = self.scaled.select(Axis(0), rows);
         let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
         Ok(self
-            .model
+            .trained
             .suggester
             .suggest(x.view(), &self.neighbours, &exclude)?)
     }
@@ -201,12 +195,10 @@ impl Queries {
                 path: path.to_path_buf(),
                 source,
             })?;
-        let n = raw.len();
-        let raw = Array2::from_shape_vec((1, n), raw)
-            .map_err(|e| IndexError::Inconsistent(e.to_string()))?;
-        let x = self.model.scale(raw.view())?;
+        let raw = Array1::from(raw).insert_axis(Axis(0));
+        let x = self.trained.scale(raw.view())?;
         let p = self
-            .model
+            .trained
             .suggester
             .suggest(x.view(), &self.neighbours, &[])?;
         Ok(p.row(0).to_vec())
@@ -214,23 +206,7 @@ impl Queries {
 
     /// Probabilities as tag scores, best first; `carried` marks the picture's own tags.
     pub fn tag_scores(&self, probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
-        let mut out: Vec<TagScore> = self
-            .model
-            .vocabulary
-            .iter()
-            .zip(probabilities)
-            .map(|(tag, &p)| TagScore {
-                tag: tag.clone(),
-                probability: p,
-                carried: carried.contains(tag),
-            })
-            .collect();
-        out.sort_by(|a, b| {
-            b.probability
-                .total_cmp(&a.probability)
-                .then(a.tag.cmp(&b.tag))
-        });
-        out
+        tag_scores(&self.trained.vocabulary, probabilities, carried)
     }
 
     /// Normalised tags as a 0/1 row in model columns; unknown tags are an error.
@@ -238,11 +214,11 @@ impl Queries {
         if tags.is_empty() {
             return Err(QueryError::NoTags);
         }
-        let mut row = Array2::zeros((1, self.model.vocabulary.len()));
+        let mut row = Array2::zeros((1, self.columns.len()));
         let mut unknown = Vec::new();
         for tag in tags {
-            match normalize_tag(tag).and_then(|t| self.tag_column.get(&t)) {
-                Some(&c) => row[[0, c]] = 1.0,
+            match normalize_tag(tag).and_then(|t| self.columns.index_of(&t)) {
+                Some(c) => row[[0, c]] = 1.0,
                 None => unknown.push(tag.clone()),
             }
         }
@@ -257,20 +233,14 @@ impl Queries {
     /// mean code of the training pictures carrying the tag).
     pub fn code_of_tags(&self, tags: &[String]) -> Result<Vec<f32>> {
         let row = self.tag_row(tags)?;
-        let chosen: Vec<&Vec<f32>> = row
+        let chosen = row
             .row(0)
             .iter()
-            .zip(&self.model.tag_centroids)
+            .zip(&self.trained.tag_centroids)
             .filter(|(&v, _)| v > 0.0)
-            .map(|(_, c)| c)
-            .collect();
-        let mut code = vec![0.0f32; self.codes.dim()];
-        for c in &chosen {
-            code.iter_mut().zip(c.iter()).for_each(|(a, &b)| *a += b);
-        }
-        code.iter_mut()
-            .for_each(|v| *v /= chosen.len().max(1) as f32);
-        Ok(code)
+            .map(|(_, c)| c.as_slice())
+            .collect::<Vec<_>>();
+        Ok(mean_code(&chosen, self.codes.dim()))
     }
 
     /// Pictures whose code is nearest the tags' code.
@@ -300,26 +270,16 @@ impl Queries {
         } else {
             self.code_of_tags(toward)?
         };
-        let query: Vec<f32> = start
-            .iter()
-            .zip(&away_code)
-            .zip(&toward_code)
-            .map(|((s, a), t)| s - a + t)
-            .collect();
+        let query = shifted_code(&start, &away_code, &toward_code);
         let wanted: Vec<String> = toward.iter().filter_map(|t| normalize_tag(t)).collect();
         self.nearest(&query, ranking, Some(row), &wanted)
     }
 
     fn code_of_row(&self, row: usize) -> Result<Vec<f32>> {
         let code = self
-            .model
+            .trained
             .suggester
-            .model
-            .shared_code(self.scaled.select(Axis(0), &[row]).view())
-            .map_err(|source| tagweave_eval::EvalError::Model {
-                method: "joint".into(),
-                source,
-            })?;
+            .codes(self.scaled.select(Axis(0), &[row]).view())?;
         Ok(code.row(0).to_vec())
     }
 
@@ -337,21 +297,208 @@ impl Queries {
         };
         let item_of_code = &self.item_of_code;
         let hits = self.codes.search_where(query, ranking.limit, mode, |r| {
-            item_of_code[r].is_some_and(|i| {
-                Some(i) != skip && (!ranking.untagged_only || self.items[i].tags.is_empty())
-            })
+            listable(item_of_code[r], skip, ranking.untagged_only, &self.items)
         })?;
-        Ok(hits
-            .into_iter()
-            .filter_map(|hit| {
-                let item = &self.items[item_of_code[hit.row]?];
-                Some(Found {
-                    picture: item.rel_path.clone(),
-                    similarity: hit.similarity,
-                    carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
-                    tagged: !item.tags.is_empty(),
-                })
+        Ok(answers(
+            hits.into_iter().map(|hit| (hit.row, hit.similarity)),
+            item_of_code,
+            &self.items,
+            wanted,
+        ))
+    }
+}
+
+/// The tags of `vocabulary` (model columns) with their probabilities, best first (ties by
+/// tag); `carried` marks the picture's own tags.
+fn tag_scores(vocabulary: &[String], probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
+    let mut out: Vec<TagScore> = vocabulary
+        .iter()
+        .zip(probabilities)
+        .map(|(tag, &p)| TagScore {
+            tag: tag.clone(),
+            probability: p,
+            carried: carried.contains(tag),
+        })
+        .collect();
+    out.sort_by(|a, b| {
+        b.probability
+            .total_cmp(&a.probability)
+            .then(a.tag.cmp(&b.tag))
+    });
+    out
+}
+
+/// The mean of `codes`, each `dim` values long; zeros when there are none.
+fn mean_code(codes: &[&[f32]], dim: usize) -> Vec<f32> {
+    let mut code = vec![0.0f32; dim];
+    for c in codes {
+        code.iter_mut().zip(c.iter()).for_each(|(a, &b)| *a += b);
+    }
+    code.iter_mut()
+        .for_each(|v| *v /= codes.len().max(1) as f32);
+    code
+}
+
+/// `start − away + toward`, value by value (all three of one length).
+fn shifted_code(start: &[f32], away: &[f32], toward: &[f32]) -> Vec<f32> {
+    start
+        .iter()
+        .zip(away)
+        .zip(toward)
+        .map(|((s, a), t)| s - a + t)
+        .collect()
+}
+
+/// Whether the picture of a code row may be answered: it is indexed (`item`), it is not
+/// `skip`, and it is untagged when only untagged pictures are asked for.
+fn listable(
+    item: Option<usize>,
+    skip: Option<usize>,
+    untagged_only: bool,
+    items: &[ItemRecord],
+) -> bool {
+    item.is_some_and(|i| Some(i) != skip && (!untagged_only || items[i].tags.is_empty()))
+}
+
+/// Search hits `(code row, similarity)`, in their order, as answers; a code row without an
+/// indexed picture is dropped. An answer "carries" when its picture's tags include every
+/// `wanted` tag (never when nothing is wanted).
+fn answers(
+    hits: impl IntoIterator<Item = (usize, f32)>,
+    item_of_code: &[Option<usize>],
+    items: &[ItemRecord],
+    wanted: &[String],
+) -> Vec<Found> {
+    hits.into_iter()
+        .filter_map(|(row, similarity)| {
+            let item = &items[item_of_code[row]?];
+            Some(Found {
+                picture: item.rel_path.clone(),
+                similarity,
+                carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
+                tagged: !item.tags.is_empty(),
             })
-            .collect())
+        })
+        .collect()
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use tagweave_collection::{FileStamp, ImageFormat};
+
+    pub(crate) fn strings(v: &[&str]) -> Vec<String> {
+        v.iter().map(|s| s.to_string()).collect()
+    }
+
+    /// An indexed picture as the queries see it: only its path and tags matter.
+    pub(crate) fn item(rel_path: &str, tags: &[&str]) -> ItemRecord {
+        ItemRecord {
+            id: tagweave_collection::item_id(rel_path),
+            rel_path: rel_path.to_string(),
+            format: ImageFormat::Jpeg,
+            stamp: FileStamp {
+                size: 1,
+                mtime_ns: 1,
+            },
+            content_hash: String::new(),
+            sidecars: vec![],
+            tags: strings(tags),
+        }
+    }
+
+    // worked by hand: probabilities [0.2, 0.9, 0.2] over [boat, night, sea]: night first,
+    // then the tie boat / sea in tag order; "sea" is carried.
+    #[test]
+    fn tag_scores_rank_by_probability_then_tag() {
+        let scores = tag_scores(
+            &strings(&["boat", "night", "sea"]),
+            &[0.2, 0.9, 0.2],
+            &strings(&["sea"]),
+        );
+        let got: Vec<(&str, f32, bool)> = scores
+            .iter()
+            .map(|s| (s.tag.as_str(), s.probability, s.carried))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                ("night", 0.9, false),
+                ("boat", 0.2, false),
+                ("sea", 0.2, true)
+            ]
+        );
+    }
+
+    // worked by hand: the mean of [1, 0, 2] and [3, 4, 0] is [2, 2, 1]; of nothing, zeros.
+    #[test]
+    fn the_code_of_tags_is_the_mean_of_their_centroids() {
+        let (a, b) = ([1.0f32, 0.0, 2.0], [3.0f32, 4.0, 0.0]);
+        assert_eq!(mean_code(&[&a, &b], 3), vec![2.0, 2.0, 1.0]);
+        assert_eq!(mean_code(&[&a], 3), a.to_vec());
+        assert_eq!(mean_code(&[], 2), vec![0.0, 0.0]);
+    }
+
+    // worked by hand: [0.5, 0.25, 1] − [0.25, 0, 0.5] + [0, 0.5, 0.25] = [0.25, 0.75, 0.75];
+    // with nothing to move away from or toward (zeros), the start is unchanged.
+    #[test]
+    fn a_shift_subtracts_away_and_adds_toward() {
+        let start = [0.5f32, 0.25, 1.0];
+        assert_eq!(
+            shifted_code(&start, &[0.25, 0.0, 0.5], &[0.0, 0.5, 0.25]),
+            vec![0.25, 0.75, 0.75]
+        );
+        assert_eq!(shifted_code(&start, &[0.0; 3], &[0.0; 3]), start.to_vec());
+    }
+
+    // Code rows 0..4 point at items [1, none, 0, 2]; item 0 is untagged. Hits come in the
+    // index's order (best first) and keep it; the row without an item is dropped.
+    #[test]
+    fn hits_become_answers_in_their_order() {
+        let items = [
+            item("a.jpg", &[]),
+            item("b.jpg", &["night", "harbour"]),
+            item("c.jpg", &["night"]),
+        ];
+        let item_of_code = [Some(1), None, Some(0), Some(2)];
+        let wanted = strings(&["night", "harbour"]);
+        let found = answers(
+            [(3, 0.9), (1, 0.8), (0, 0.7), (2, 0.5)],
+            &item_of_code,
+            &items,
+            &wanted,
+        );
+        let got: Vec<(&str, f32, bool, bool)> = found
+            .iter()
+            .map(|f| (f.picture.as_str(), f.similarity, f.carries, f.tagged))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                ("c.jpg", 0.9, false, true),
+                ("b.jpg", 0.7, true, true),
+                ("a.jpg", 0.5, false, false),
+            ]
+        );
+        // nothing wanted (a plain shift): nothing "carries"
+        let plain = answers([(0, 0.7)], &item_of_code, &items, &[]);
+        assert!(!plain[0].carries);
+    }
+
+    #[test]
+    fn only_indexed_pictures_other_than_the_start_are_listed() {
+        let items = [item("a.jpg", &[]), item("b.jpg", &["night"])];
+        assert!(listable(Some(0), None, false, &items));
+        assert!(!listable(None, None, false, &items), "no item for the code");
+        assert!(
+            !listable(Some(1), Some(1), false, &items),
+            "the start itself"
+        );
+        assert!(listable(Some(1), Some(0), false, &items));
+        assert!(listable(Some(0), None, true, &items), "untagged");
+        assert!(
+            !listable(Some(1), None, true, &items),
+            "tagged, untagged asked for"
+        );
     }
 }

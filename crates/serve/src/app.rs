@@ -319,8 +319,8 @@ impl App {
         self.session.lock().unwrap_or_else(|p| p.into_inner())
     }
 
-    /// The picture's tags as they stand in its sidecars now: indexed tags with this
-    /// session's writes applied. The flag marks tags written in this session.
+    /// The picture's tags as they stand in its sidecars now: indexed tags with the writes
+    /// made since this page started applied. The flag marks tags written since then.
     fn tags_now(&self, row: usize, notes: Option<&PictureNotes>) -> Vec<(String, bool)> {
         let item = self.item(row);
         let mut tags: Vec<(String, bool)> = item
@@ -361,7 +361,7 @@ impl App {
             .iter()
             .filter(|i| !i.tags.is_empty())
             .count();
-        let mut view = pages::SearchView {
+        let mut content = pages::SearchContent {
             typed: typed.clone(),
             untagged_only,
             vocabulary,
@@ -372,7 +372,7 @@ impl App {
         };
         let tags = tag_words(&typed);
         if tags.is_empty() {
-            return self.page(200, pages::search(&view));
+            return self.page(200, pages::search(&content));
         }
         let ranking = Ranking {
             limit,
@@ -389,12 +389,12 @@ impl App {
                         Some(self.card(row, Some(badge), Some(f.similarity)))
                     })
                     .collect();
-                view.cards = Some(cards);
-                self.page(200, pages::search(&view))
+                content.cards = Some(cards);
+                self.page(200, pages::search(&content))
             }
             Err(error @ (QueryError::UnknownTags { .. } | QueryError::NoTags)) => {
-                view.problem = Some(error.to_string());
-                self.page(400, pages::search(&view))
+                content.problem = Some(error.to_string());
+                self.page(400, pages::search(&content))
             }
             Err(error) => self.failed(&error),
         }
@@ -404,7 +404,7 @@ impl App {
         let away = tag_words(first(query, "away").unwrap_or(""));
         let toward = tag_words(first(query, "toward").unwrap_or(""));
         let start = self.card(row, None, None);
-        let mut view = pages::LikeView {
+        let mut content = pages::LikeContent {
             start,
             away: away.clone(),
             toward: toward.clone(),
@@ -413,9 +413,9 @@ impl App {
             cards: Vec::new(),
         };
         if away.is_empty() && toward.is_empty() {
-            view.problem =
+            content.problem =
                 Some("Say what to change: tags to move away from, toward, or both.".into());
-            return self.page(400, pages::like(&view));
+            return self.page(400, pages::like(&content));
         }
         let ranking = Ranking {
             limit: limit_of(query),
@@ -423,7 +423,7 @@ impl App {
         };
         match self.queries.shift(row, &away, &toward, ranking) {
             Ok(found) => {
-                view.cards = found
+                content.cards = found
                     .iter()
                     .filter_map(|f| {
                         let r = *self.row_of_path.get(&f.picture)?;
@@ -437,11 +437,11 @@ impl App {
                         Some(self.card(r, badge, Some(f.similarity)))
                     })
                     .collect();
-                self.page(200, pages::like(&view))
+                self.page(200, pages::like(&content))
             }
             Err(error @ (QueryError::UnknownTags { .. } | QueryError::NoTags)) => {
-                view.problem = Some(error.to_string());
-                self.page(400, pages::like(&view))
+                content.problem = Some(error.to_string());
+                self.page(400, pages::like(&content))
             }
             Err(error) => self.failed(&error),
         }
@@ -476,7 +476,7 @@ impl App {
             .take(SUGGESTIONS)
             .map(|s| (s.tag, s.probability))
             .collect();
-        let view = pages::PictureView {
+        let content = pages::PictureContent {
             id: item.id.clone(),
             picture: item.rel_path.clone(),
             sidecars: item.sidecars.iter().map(|s| s.rel_path.clone()).collect(),
@@ -493,7 +493,7 @@ impl App {
             changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),
         };
         drop(session);
-        self.page(200, pages::picture(&view))
+        self.page(200, pages::picture(&content))
     }
 
     /// The token to put in forms, or `None` when the page must offer no changes.
@@ -554,7 +554,7 @@ impl App {
             })
             .collect();
         drop(session);
-        let view = pages::QueueView {
+        let content = pages::QueueContent {
             judged: disputes.len(),
             flagged: flagged.len(),
             page,
@@ -562,7 +562,7 @@ impl App {
             entries,
             token: self.writable_token(),
         };
-        self.page(200, pages::review(&view))
+        self.page(200, pages::review(&content))
     }
 
     fn jpeg(&self, row: usize, size: Rendition) -> Reply {
@@ -667,8 +667,8 @@ impl App {
         self.page(200, pages::written(&written))
     }
 
-    /// Sets a suggestion or doubt aside for this session (nothing is written), then goes
-    /// back to the page the button was on.
+    /// Sets a suggestion or doubt aside until this page stops (nothing is written), then
+    /// goes back to the page the button was on.
     fn set_aside(&self, row: usize, form: &[(String, String)]) -> Reply {
         let item = self.item(row);
         let Some(tag) = first(form, "tag").and_then(normalize_tag) else {

@@ -21,7 +21,7 @@ pub struct Card {
     pub similarity: Option<f32>,
 }
 
-pub struct SearchView<'a> {
+pub struct SearchContent<'a> {
     pub typed: String,
     pub untagged_only: bool,
     pub vocabulary: &'a [String],
@@ -32,7 +32,7 @@ pub struct SearchView<'a> {
     pub cards: Option<Vec<Card>>,
 }
 
-pub struct LikeView<'a> {
+pub struct LikeContent<'a> {
     pub start: Card,
     pub away: Vec<String>,
     pub toward: Vec<String>,
@@ -41,11 +41,12 @@ pub struct LikeView<'a> {
     pub cards: Vec<Card>,
 }
 
-pub struct PictureView<'a> {
+pub struct PictureContent<'a> {
     pub id: String,
     pub picture: String,
     pub sidecars: Vec<String>,
-    /// Tags now, whether written this session, and the share of similar pictures carrying it.
+    /// Tags now, whether written since this page started, and the share of similar pictures
+    /// carrying it.
     pub tags: Vec<(String, bool, Option<f32>)>,
     pub suggestions: Vec<(String, f32)>,
     pub vocabulary: &'a [String],
@@ -63,7 +64,7 @@ pub struct QueueEntry {
     pub changed: bool,
 }
 
-pub struct QueueView<'a> {
+pub struct QueueContent<'a> {
     pub judged: usize,
     pub flagged: usize,
     pub page: usize,
@@ -189,7 +190,7 @@ fn datalist(vocabulary: &[String]) -> String {
     out
 }
 
-pub fn search(view: &SearchView) -> Page {
+pub fn search(content: &SearchContent) -> Page {
     let mut body = format!(
         "<section class=\"ask\"><h1>Find pictures by their tags</h1>\
          <form method=\"get\" action=\"/\" class=\"search\">\
@@ -202,40 +203,44 @@ pub fn search(view: &SearchView) -> Page {
          <p class=\"hint\">{pictures} pictures indexed, {tagged} of them tagged. \
          <span class=\"badge carries\">carries</span> the sidecar has every asked tag; \
          <span class=\"badge inferred\">inferred</span> the model thinks it fits.</p></section>\n",
-        typed = html(&view.typed),
-        checked = if view.untagged_only { " checked" } else { "" },
-        datalist = datalist(view.vocabulary),
-        pictures = view.pictures,
-        tagged = view.tagged,
+        typed = html(&content.typed),
+        checked = if content.untagged_only {
+            " checked"
+        } else {
+            ""
+        },
+        datalist = datalist(content.vocabulary),
+        pictures = content.pictures,
+        tagged = content.tagged,
     );
-    if let Some(problem) = &view.problem {
+    if let Some(problem) = &content.problem {
         let _ = write!(body, "<p class=\"problem\">{}</p>", html(problem));
     }
-    match &view.cards {
+    match &content.cards {
         Some(cards) if cards.is_empty() => body.push_str("<p class=\"empty\">No pictures.</p>"),
         Some(cards) => {
             let _ = write!(
                 body,
                 "<h2 class=\"results\">{} pictures for “{}”, best first</h2>\n{}",
                 cards.len(),
-                html(&view.typed),
+                html(&content.typed),
                 grid(cards)
             );
         }
         None => {}
     }
-    if view.cards.is_none() || view.problem.is_some() {
+    if content.cards.is_none() || content.problem.is_some() {
         let _ = write!(
             body,
             "<h2>Tags of this collection</h2>{}",
-            tag_cloud(view.vocabulary)
+            tag_cloud(content.vocabulary)
         );
     }
     Page {
-        title: if view.typed.is_empty() {
+        title: if content.typed.is_empty() {
             "Search".into()
         } else {
-            format!("Search: {}", view.typed)
+            format!("Search: {}", content.typed)
         },
         body,
     }
@@ -255,22 +260,22 @@ fn like_form(id: &str, away: &str, toward: &str) -> String {
     )
 }
 
-pub fn like(view: &LikeView) -> Page {
-    let away = view.away.join(" ");
-    let toward = view.toward.join(" ");
+pub fn like(content: &LikeContent) -> Page {
+    let away = content.away.join(" ");
+    let toward = content.toward.join(" ");
     let mut body = format!(
         "<section class=\"ask likehead\"><a href=\"{href}\"><img class=\"start\" \
          src=\"/picture/{id}/thumbnail\" alt=\"{alt}\"></a><div><h1>Like {alt}, but…</h1>{form}{list}\
          </div></section>\n",
-        id = view.start.id,
-        href = picture_href(&view.start.id),
-        alt = html(&view.start.picture),
-        form = like_form(&view.start.id, &away, &toward),
-        list = datalist(view.vocabulary),
+        id = content.start.id,
+        href = picture_href(&content.start.id),
+        alt = html(&content.start.picture),
+        form = like_form(&content.start.id, &away, &toward),
+        list = datalist(content.vocabulary),
     );
-    if let Some(problem) = &view.problem {
+    if let Some(problem) = &content.problem {
         let _ = write!(body, "<p class=\"problem\">{}</p>", html(problem));
-    } else if view.cards.is_empty() {
+    } else if content.cards.is_empty() {
         body.push_str("<p class=\"empty\">No pictures.</p>");
     } else {
         let mut said = Vec::new();
@@ -283,13 +288,13 @@ pub fn like(view: &LikeView) -> Page {
         let _ = write!(
             body,
             "<h2 class=\"results\">{} pictures: {}; badges refer to the “more of” tags</h2>\n{}",
-            view.cards.len(),
+            content.cards.len(),
             said.join(", "),
-            grid(&view.cards)
+            grid(&content.cards)
         );
     }
     Page {
-        title: format!("Like {}", view.start.picture),
+        title: format!("Like {}", content.start.picture),
         body,
     }
 }
@@ -329,17 +334,17 @@ fn percent(p: f32) -> String {
     format!("{:.0} %", p * 100.0)
 }
 
-pub fn picture(view: &PictureView) -> Page {
-    let id = &view.id;
+pub fn picture(content: &PictureContent) -> Page {
+    let id = &content.id;
     let mut body = format!(
         "<article class=\"picture\"><figure><img class=\"large\" src=\"/picture/{id}/large\" \
          alt=\"{alt}\"><figcaption>{alt}</figcaption></figure><div class=\"side\">",
-        alt = html(&view.picture),
+        alt = html(&content.picture),
     );
-    let source = if view.sidecars.is_empty() {
+    let source = if content.sidecars.is_empty() {
         "No sidecar yet (accepting a tag makes one).".to_string()
     } else {
-        let files: Vec<String> = view
+        let files: Vec<String> = content
             .sidecars
             .iter()
             .map(|s| format!("<code>{}</code>", html(s)))
@@ -351,10 +356,10 @@ pub fn picture(view: &PictureView) -> Page {
         "<h1>Tags now</h1><p class=\"hint\">{source} Share: how many of the most similar \
          pictures carry the tag.</p><ul class=\"tags\">"
     );
-    if view.tags.is_empty() {
+    if content.tags.is_empty() {
         body.push_str("<li class=\"empty\">none</li>");
     }
-    for (tag, written, share) in &view.tags {
+    for (tag, written, share) in &content.tags {
         let share = share
             .map(|s| format!("<span class=\"share\">{} of similar</span>", percent(s)))
             .unwrap_or_default();
@@ -363,7 +368,7 @@ pub fn picture(view: &PictureView) -> Page {
         } else {
             ""
         };
-        let button = view
+        let button = content
             .token
             .map(|t| button_form(t, id, "tags", "remove", tag, "remove", ""))
             .unwrap_or_default();
@@ -375,15 +380,15 @@ pub fn picture(view: &PictureView) -> Page {
         );
     }
     body.push_str("</ul>");
-    if view.changed {
+    if content.changed {
         let _ = write!(body, "<p class=\"written\">{SCAN_NOTE}</p>");
     }
     body.push_str("<h2>Suggested</h2><ul class=\"suggestions\">");
-    if view.suggestions.is_empty() {
+    if content.suggestions.is_empty() {
         body.push_str("<li class=\"empty\">nothing more to suggest</li>");
     }
-    for (tag, p) in &view.suggestions {
-        let buttons = view
+    for (tag, p) in &content.suggestions {
+        let buttons = content
             .token
             .map(|t| {
                 button_form(t, id, "tags", "add", tag, "accept", "")
@@ -399,7 +404,7 @@ pub fn picture(view: &PictureView) -> Page {
         );
     }
     body.push_str("</ul>");
-    if let Some(token) = view.token {
+    if let Some(token) = content.token {
         let _ = write!(
             body,
             "<form method=\"post\" action=\"/picture/{id}/tags\" class=\"own\">\
@@ -410,37 +415,37 @@ pub fn picture(view: &PictureView) -> Page {
         );
     }
     body.push_str(&like_form(id, "", ""));
-    body.push_str(&datalist(view.vocabulary));
+    body.push_str(&datalist(content.vocabulary));
     body.push_str("</div></article>");
     Page {
-        title: view.picture.clone(),
+        title: content.picture.clone(),
         body,
     }
 }
 
-pub fn review(view: &QueueView) -> Page {
+pub fn review(content: &QueueContent) -> Page {
     let mut body = format!(
         "<section class=\"ask\"><h1>Review queue</h1><p class=\"hint\">{flagged} of {judged} \
          tagged pictures carry a tag that few similar pictures carry; the most doubtful \
          first. Remove a doubtful tag, or keep it; accept or reject proposed ones.</p></section>\n",
-        flagged = view.flagged,
-        judged = view.judged,
+        flagged = content.flagged,
+        judged = content.judged,
     );
-    if view.entries.is_empty() {
+    if content.entries.is_empty() {
         body.push_str("<p class=\"empty\">Nothing to review.</p>");
     }
     body.push_str("<ol class=\"queue\">\n");
     let back = format!(
         "<input type=\"hidden\" name=\"back\" value=\"review\"><input type=\"hidden\" \
          name=\"page\" value=\"{}\">",
-        view.page
+        content.page
     );
-    for entry in &view.entries {
+    for entry in &content.entries {
         let card = &entry.card;
         let id = &card.id;
         let mut doubtful = String::new();
         for (tag, share) in &entry.doubtful {
-            let buttons = view
+            let buttons = content
                 .token
                 .map(|t| {
                     button_form(t, id, "tags", "remove", tag, "remove", &back)
@@ -457,7 +462,7 @@ pub fn review(view: &QueueView) -> Page {
         }
         let mut proposed = String::new();
         for (tag, p) in &entry.proposed {
-            let buttons = view
+            let buttons = content
                 .token
                 .map(|t| {
                     button_form(t, id, "tags", "add", tag, "accept", &back)
@@ -495,21 +500,25 @@ pub fn review(view: &QueueView) -> Page {
         );
     }
     body.push_str("</ol>");
-    if view.pages > 1 {
+    if content.pages > 1 {
         body.push_str("<nav class=\"pages\">");
-        if view.page > 1 {
+        if content.page > 1 {
             let _ = write!(
                 body,
                 "<a href=\"/review?page={}\">← previous</a>",
-                view.page - 1
+                content.page - 1
             );
         }
-        let _ = write!(body, "<span>page {} of {}</span>", view.page, view.pages);
-        if view.page < view.pages {
+        let _ = write!(
+            body,
+            "<span>page {} of {}</span>",
+            content.page, content.pages
+        );
+        if content.page < content.pages {
             let _ = write!(
                 body,
                 "<a href=\"/review?page={}\">next →</a>",
-                view.page + 1
+                content.page + 1
             );
         }
         body.push_str("</nav>");
@@ -520,17 +529,17 @@ pub fn review(view: &QueueView) -> Page {
     }
 }
 
-pub fn written(view: &Written) -> Page {
-    let card = &view.card;
-    let verb = if view.adding { "Added" } else { "Removed" };
+pub fn written(content: &Written) -> Page {
+    let card = &content.card;
+    let verb = if content.adding { "Added" } else { "Removed" };
     let mut body = format!(
         "<section class=\"done\"><a href=\"/picture/{id}\"><img src=\"/picture/{id}/thumbnail\" \
          alt=\"{alt}\"></a><div>",
         id = card.id,
         alt = html(&card.picture),
     );
-    if view.edits.is_empty() {
-        let state = if view.adding {
+    if content.edits.is_empty() {
+        let state = if content.adding {
             "already carries"
         } else {
             "does not carry"
@@ -539,8 +548,8 @@ pub fn written(view: &Written) -> Page {
             body,
             "<h1>Nothing to write</h1><p><code>{alt}</code> {state} <b>{tag}</b>{why}.</p>",
             alt = html(&card.picture),
-            tag = html(&view.tag),
-            why = if view.already {
+            tag = html(&content.tag),
+            why = if content.already {
                 ""
             } else {
                 " (nothing changed)"
@@ -550,10 +559,10 @@ pub fn written(view: &Written) -> Page {
         let _ = write!(
             body,
             "<h1>{verb} “{tag}”</h1><p>Picture <code>{alt}</code>.</p>",
-            tag = html(&view.tag),
+            tag = html(&content.tag),
             alt = html(&card.picture),
         );
-        for file in &view.edits {
+        for file in &content.edits {
             let kept = match &file.original {
                 Some(o) => format!(
                     "original kept as <code>{}</code> (first change only)",
@@ -576,11 +585,11 @@ pub fn written(view: &Written) -> Page {
         body,
         "<p class=\"next\"><a class=\"button\" href=\"{back}\">Back</a> \
          <a href=\"/picture/{id}\">the picture</a> · <a href=\"/review\">review queue</a></p></div></section>",
-        back = html(&view.back),
+        back = html(&content.back),
         id = card.id,
     );
     Page {
-        title: format!("{verb} {}", view.tag),
+        title: format!("{verb} {}", content.tag),
         body,
     }
 }
@@ -602,7 +611,7 @@ mod tests {
     #[test]
     fn collection_text_never_becomes_markup() {
         let hostile = "<script>alert(1)</script>";
-        let view = PictureView {
+        let content = PictureContent {
             id: "0123456789abcdef".into(),
             picture: format!("odd/{hostile}.jpg"),
             sidecars: vec![format!("odd/{hostile}.txt")],
@@ -612,7 +621,7 @@ mod tests {
             token: Some("tok\"en"),
             changed: true,
         };
-        let page = picture(&view);
+        let page = picture(&content);
         let all = layout(&page, false, hostile);
         assert!(!all.contains("<script"), "{all}");
         assert!(all.contains("&lt;script&gt;"));
@@ -626,7 +635,7 @@ mod tests {
 
     #[test]
     fn read_only_pages_offer_no_changes() {
-        let view = PictureView {
+        let content = PictureContent {
             id: "0123456789abcdef".into(),
             picture: "a.jpg".into(),
             sidecars: vec![],
@@ -636,14 +645,14 @@ mod tests {
             token: None,
             changed: false,
         };
-        let page = layout(&picture(&view), true, "/x");
+        let page = layout(&picture(&content), true, "/x");
         assert!(!page.contains("method=\"post\""), "{page}");
         assert!(page.contains("--read-only"));
-        let view = PictureView {
+        let content = PictureContent {
             token: Some("abc"),
-            ..view
+            ..content
         };
-        let page = layout(&picture(&view), false, "/x");
+        let page = layout(&picture(&content), false, "/x");
         assert!(page.contains("method=\"post\""));
         assert!(page.contains("name=\"token\" value=\"abc\""));
     }

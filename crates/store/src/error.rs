@@ -58,6 +58,15 @@ pub enum StoreError {
     )]
     BadQuery { detail: String },
 
+    #[error("the store disagrees with itself: {0}")]
+    Inconsistent(String),
+
+    #[error(
+        "the stored model has format {found}, this tagweave reads format {expected}; \
+         run `tagweave train` again"
+    )]
+    ModelFormat { found: u32, expected: u32 },
+
     #[error("{path}: {source}")]
     Io {
         path: PathBuf,

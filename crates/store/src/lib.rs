@@ -5,8 +5,10 @@
 //! a guess. One process at a time holds a store; the lock dies with the process.
 
 mod error;
+mod layout;
 mod lock;
 mod search;
+mod table;
 
 use std::path::{Path, PathBuf};
 
@@ -14,8 +16,10 @@ use serde::{de::DeserializeOwned, Serialize};
 use tagweave_collection::{ItemRecord, Vocabulary};
 
 pub use error::StoreError;
+pub use layout::{CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
 use lock::StoreLock;
 pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
+pub use table::FeatureTable;
 
 /// Bumped whenever the on-disk layout changes in a way older code cannot read.
 pub const FORMAT_VERSION: u32 = 1;
@@ -290,6 +294,33 @@ impl Store {
             .map_err(|e| self.db_error(e))?
             .map(|bytes| self.decode(name, &bytes))
             .transpose()
+    }
+
+    /// The trained model (of the caller's type `T`), or `None` before the first training.
+    /// A model records the format it was written in (`format_of` reads it); one of
+    /// another format than `format` is [`StoreError::ModelFormat`] ("train again"), not
+    /// damage. Read once; only when that fails is the format number read on its own.
+    pub fn model<T: DeserializeOwned>(
+        &self,
+        format: u32,
+        format_of: impl Fn(&T) -> u32,
+    ) -> Result<Option<T>> {
+        #[derive(serde::Deserialize)]
+        struct FormatOnly {
+            format: u32,
+        }
+        let outdated = |found| StoreError::ModelFormat {
+            found,
+            expected: format,
+        };
+        match self.blob::<T>(MODEL_BLOB) {
+            Ok(Some(model)) if format_of(&model) != format => Err(outdated(format_of(&model))),
+            Ok(model) => Ok(model),
+            Err(error) => match self.blob::<FormatOnly>(MODEL_BLOB) {
+                Ok(Some(header)) if header.format != format => Err(outdated(header.format)),
+                _ => Err(error),
+            },
+        }
     }
 
     /// Removes a named blob (for example to force relearning).

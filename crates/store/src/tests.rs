@@ -231,3 +231,50 @@ fn a_holder_that_has_not_written_its_pid_yet_is_still_named() {
     }
     writer.join().unwrap();
 }
+
+/// A model type of the caller's, as far as the store is concerned.
+#[derive(serde::Serialize, serde::Deserialize, Debug, PartialEq)]
+struct Model {
+    format: u32,
+    weights: Vec<f32>,
+}
+
+#[test]
+fn the_model_is_read_only_in_the_format_asked_for() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let format_of = |m: &Model| m.format;
+    assert!(
+        store.model(2, format_of).unwrap().is_none(),
+        "before training"
+    );
+    let model = Model {
+        format: 2,
+        weights: vec![0.5, -1.0],
+    };
+    store.put_blob(MODEL_BLOB, &model).unwrap();
+    assert_eq!(store.model(2, format_of).unwrap(), Some(model));
+    // readable but of another format, or of another shape with another format number:
+    // "train again", not damage
+    for (blob, found) in [
+        (serde_json::json!({"format": 1, "weights": [0.5]}), 1),
+        (serde_json::json!({"format": 3, "layers": 4}), 3),
+    ] {
+        store.put_blob(MODEL_BLOB, &blob).unwrap();
+        match store.model(2, format_of) {
+            Err(StoreError::ModelFormat {
+                found: f,
+                expected: 2,
+            }) => assert_eq!(f, found),
+            other => panic!("expected a format mismatch, got {other:?}"),
+        }
+    }
+    // of the right format number but the wrong shape: damage
+    store
+        .put_blob(MODEL_BLOB, &serde_json::json!({"format": 2, "layers": 4}))
+        .unwrap();
+    assert!(matches!(
+        store.model(2, format_of),
+        Err(StoreError::Corrupt { .. })
+    ));
+}

@@ -70,7 +70,7 @@ impl WorkingImage {
         &self.rgb
     }
 
-    /// The picture flipped left to right: a view of the same scene that keeps its tags,
+    /// The picture flipped left to right: a variant of the same scene that keeps its tags,
     /// used as an extra training example.
     pub fn mirrored(&self) -> WorkingImage {
         let row_len = self.width as usize * 3;
@@ -287,7 +287,7 @@ fn flatten_on_white(picture: DynamicImage) -> Vec<u8> {
 
 /// RGB pixels of a `from` picture resized (bilinear) to `to`; `crop` = [left, top, width,
 /// height] of the part of the source to use, `None` for all of it. The one resize path of
-/// decoding and of the training views.
+/// decoding and of the training variants.
 fn bilinear_resize(
     rgb: Vec<u8>,
     from: (u32, u32),

@@ -9,23 +9,23 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::{
-    load_working_image, ColourOptions, DecodeOptions, PatchDictionary, PatchOptions, Progress,
+    load_working_image, ColourOptions, DecodeOptions, PatchDictionary, PatchOptions, ProgressFn,
     VisionError, WorkingImage,
 };
 
-/// A view of a picture that keeps what it shows (and so its tags).
+/// A variant of a picture that keeps what it shows (and so its tags).
 #[derive(Clone, Copy, Debug, PartialEq)]
-pub enum View {
+pub enum Variant {
     /// Flipped left to right.
     Mirrored,
     /// The centre share of each side, enlarged back to the working size.
     CentreCrop(f32),
 }
 
-/// The views [`FeatureExtractor::training_views`] describes: a mirror and a 90 % centre
+/// The variants [`FeatureExtractor::training_variants`] describes: a mirror and a 90 % centre
 /// crop, both of which keep a photo's tags (a prototype on the shared sets measured
 /// +0.03 LRAP on photographic cut-outs from these two as extra training rows).
-pub const TRAINING_VIEWS: [View; 2] = [View::Mirrored, View::CentreCrop(0.9)];
+pub const TRAINING_VARIANTS: [Variant; 2] = [Variant::Mirrored, Variant::CentreCrop(0.9)];
 
 /// Everything that decides the feature vector.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -65,7 +65,7 @@ impl FeatureExtractor {
         paths: &[PathBuf],
         opts: &FeatureOptions,
         seed: u64,
-        progress: Progress,
+        progress: ProgressFn,
     ) -> Result<Self, VisionError> {
         let mut chosen: Vec<usize> = if paths.len() > opts.learn_images {
             let mut rng = ChaCha8Rng::seed_from_u64(seed);
@@ -112,7 +112,7 @@ impl FeatureExtractor {
         samples: &[WorkingImage],
         opts: &FeatureOptions,
         seed: u64,
-        progress: Progress,
+        progress: ProgressFn,
     ) -> Result<Self, VisionError> {
         opts.colour
             .validate()
@@ -148,21 +148,21 @@ impl FeatureExtractor {
         Ok(self.features_of(&load_working_image(path, &self.decode)?))
     }
 
-    /// Feature vectors of the picture's training views, in [`TRAINING_VIEWS`] order:
-    /// decoded once, each view described like a picture. Views of a photo keep its tags,
+    /// Feature vectors of the picture's training variants, in [`TRAINING_VARIANTS`] order:
+    /// decoded once, each variant described like a picture. Variants of a photo keep its tags,
     /// so they serve as extra training examples.
-    pub fn training_views(&self, path: &Path) -> Result<Vec<Vec<f32>>, VisionError> {
-        self.training_views_of(&load_working_image(path, &self.decode)?)
+    pub fn training_variants(&self, path: &Path) -> Result<Vec<Vec<f32>>, VisionError> {
+        self.training_variants_of(&load_working_image(path, &self.decode)?)
     }
 
-    /// [`Self::training_views`] of a picture already at working size.
-    pub fn training_views_of(&self, img: &WorkingImage) -> Result<Vec<Vec<f32>>, VisionError> {
-        TRAINING_VIEWS
+    /// [`Self::training_variants`] of a picture already at working size.
+    pub fn training_variants_of(&self, img: &WorkingImage) -> Result<Vec<Vec<f32>>, VisionError> {
+        TRAINING_VARIANTS
             .iter()
-            .map(|view| {
-                Ok(match view {
-                    View::Mirrored => self.features_of(&img.mirrored()),
-                    View::CentreCrop(fraction) => self.features_of(&img.centre_crop(*fraction)?),
+            .map(|variant| {
+                Ok(match variant {
+                    Variant::Mirrored => self.features_of(&img.mirrored()),
+                    Variant::CentreCrop(fraction) => self.features_of(&img.centre_crop(*fraction)?),
                 })
             })
             .collect()
@@ -273,24 +273,24 @@ mod tests {
     }
 
     #[test]
-    fn training_views_describe_the_mirror_and_the_crop() {
+    fn training_variants_describe_the_mirror_and_the_crop() {
         let dir = tempfile::tempdir().unwrap();
         let pictures = synthetic_pictures(10, 3);
         let paths = write_pictures(dir.path(), &pictures);
         let fx = FeatureExtractor::learn(&paths, &opts(), 1, &|_, _| {}).unwrap();
         let img = load_working_image(&paths[2], fx.decode_options()).unwrap();
-        let views = fx.training_views(&paths[2]).unwrap();
-        assert_eq!(views.len(), TRAINING_VIEWS.len());
-        assert_eq!(views[0], fx.features_of(&img.mirrored()));
-        assert_eq!(views[1], fx.features_of(&img.centre_crop(0.9).unwrap()));
+        let variants = fx.training_variants(&paths[2]).unwrap();
+        assert_eq!(variants.len(), TRAINING_VARIANTS.len());
+        assert_eq!(variants[0], fx.features_of(&img.mirrored()));
+        assert_eq!(variants[1], fx.features_of(&img.centre_crop(0.9).unwrap()));
         let original = fx.features(&paths[2]).unwrap();
-        for view in &views {
-            assert_eq!(view.len(), fx.dimension());
-            assert_ne!(view, &original);
+        for variant in &variants {
+            assert_eq!(variant.len(), fx.dimension());
+            assert_ne!(variant, &original);
         }
         let bad = dir.path().join("bad.png");
         std::fs::write(&bad, b"nothing").unwrap();
-        assert!(fx.training_views(&bad).is_err());
+        assert!(fx.training_variants(&bad).is_err());
     }
 
     // The colour layout of a mirror is the original's, mirrored: with a 4×4 moment

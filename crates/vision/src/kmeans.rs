@@ -8,7 +8,7 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
 use crate::linalg::BLOCK_ROWS;
-use crate::Progress;
+use crate::ProgressFn;
 
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub(crate) enum Metric {
@@ -108,7 +108,7 @@ pub(crate) fn lloyd(
     metric: Metric,
     max_iter: usize,
     rng: &mut ChaCha8Rng,
-    progress: Progress,
+    progress: ProgressFn,
 ) -> KMeansFit {
     let mut centres = init;
     if metric == Metric::Spherical {

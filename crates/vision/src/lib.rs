@@ -16,8 +16,8 @@ mod patches;
 pub use colour::{srgb_to_lab, ColourOptions};
 pub use decode::{load_working_image, DecodeOptions, WorkingImage};
 pub use error::VisionError;
-pub use extractor::{FeatureExtractor, FeatureOptions, View, TRAINING_VIEWS};
+pub use extractor::{FeatureExtractor, FeatureOptions, Variant, TRAINING_VARIANTS};
 pub use patches::{Activation, PatchDictionary, PatchOptions};
 
 /// Progress callback: `(done, total)` work units; called from worker threads.
-pub type Progress<'a> = &'a (dyn Fn(usize, usize) + Sync);
+pub type ProgressFn<'a> = &'a (dyn Fn(usize, usize) + Sync);

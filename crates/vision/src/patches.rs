@@ -16,7 +16,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::kmeans::{lloyd, Metric};
 use crate::linalg::zca;
-use crate::{Progress, VisionError, WorkingImage};
+use crate::{ProgressFn, VisionError, WorkingImage};
 
 /// How a whitened patch z is turned into a code from the atom responses d·z.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
@@ -182,7 +182,7 @@ impl PatchDictionary {
         samples: &[WorkingImage],
         opts: &PatchOptions,
         seed: u64,
-        progress: Progress,
+        progress: ProgressFn,
     ) -> Result<Self, VisionError> {
         opts.validate()?;
         let d = opts.patch_dim();

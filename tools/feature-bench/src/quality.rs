@@ -11,10 +11,8 @@ use ndarray::{s, Array2, ArrayView2};
 use rayon::prelude::*;
 use tagweave_collection::{crawl, read_item, CrawlOptions};
 use tagweave_eval::metrics::label_ranking_average_precision;
-use tagweave_eval::{
-    evaluate, knn_leave_one_out_scores, EvalOptions, KnnScorer, PriorScorer, Standardiser,
-    TagScorer, Vocabulary,
-};
+use tagweave_eval::{evaluate, EvalOptions, PriorScorer, TagScorer};
+use tagweave_suggest::{knn_leave_one_out_scores, KnnScorer, Standardiser, TagColumns};
 use tagweave_vision::FeatureExtractor;
 
 use crate::FeatureArgs;
@@ -163,7 +161,7 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
             hashes,
             left_out,
         } = tagged_pictures(&folder)?;
-        let vocab = Vocabulary::from_items(tags.iter().map(Vec::as_slice));
+        let vocab = TagColumns::from_items(tags.iter().map(Vec::as_slice));
         let truth: Vec<Vec<usize>> = tags.iter().map(|t| vocab.encode(t)).collect();
         let mut counts = vec![0usize; vocab.len()];
         truth.iter().flatten().for_each(|&t| counts[t] += 1);
