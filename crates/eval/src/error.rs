@@ -45,6 +45,4 @@ pub enum EvalError {
     },
     #[error("an out-of-fold audit needs at least 2 folds, got {0}; use 5")]
     BadFolds(usize),
-    #[error("ridge regression system is not positive definite at pivot {pivot}; features may hold huge values, standardise them or raise the ridge strength")]
-    NotPositiveDefinite { pivot: usize },
 }

@@ -14,4 +14,6 @@ pub enum SuggestError {
          `tagweave train` again"
     )]
     FeatureWidth { got: usize, expected: usize },
+    #[error("ridge regression system is not positive definite at pivot {pivot}; features may hold huge values, standardise them or raise the ridge strength")]
+    NotPositiveDefinite { pivot: usize },
 }

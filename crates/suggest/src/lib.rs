@@ -11,7 +11,9 @@ mod calibration;
 mod columns;
 mod error;
 mod knn;
+mod linalg;
 pub mod ranking;
+mod ridge;
 mod standardiser;
 mod suggester;
 #[cfg(test)]
@@ -23,6 +25,7 @@ pub use calibration::Calibration;
 pub use columns::TagColumns;
 pub use error::SuggestError;
 pub use knn::{knn_leave_one_out_scores, KnnScorer};
+pub use ridge::RidgeScorer;
 pub use standardiser::Standardiser;
 pub use suggester::{TagSuggester, TrainingRun};
 pub use train_set::{

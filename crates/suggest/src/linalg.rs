@@ -2,7 +2,7 @@
 
 use ndarray::{Array2, ArrayView2};
 
-use crate::EvalError;
+use crate::SuggestError;
 
 /// Solves `A X = B` for symmetric positive definite `A` (n×n) and `B` (n×m)
 /// by Cholesky factorisation `A = L Lᵀ`, then forward and back substitution.
@@ -10,7 +10,7 @@ use crate::EvalError;
 pub(crate) fn cholesky_solve(
     a: ArrayView2<f64>,
     b: ArrayView2<f64>,
-) -> Result<Array2<f64>, EvalError> {
+) -> Result<Array2<f64>, SuggestError> {
     let n = a.nrows();
     let m = b.ncols();
     let mut l: Vec<f64> = a.iter().copied().collect();
@@ -18,7 +18,7 @@ pub(crate) fn cholesky_solve(
         let row_j = &mut l[j * n..j * n + n];
         let pivot = row_j[j] - row_j[..j].iter().map(|v| v * v).sum::<f64>();
         if pivot.is_nan() || pivot <= 0.0 {
-            return Err(EvalError::NotPositiveDefinite { pivot: j });
+            return Err(SuggestError::NotPositiveDefinite { pivot: j });
         }
         row_j[j] = pivot.sqrt();
         for i in j + 1..n {
@@ -90,7 +90,7 @@ mod tests {
         let e = cholesky_solve(a.view(), array![[1.0], [1.0]].view());
         assert!(matches!(
             e,
-            Err(EvalError::NotPositiveDefinite { pivot: 1 })
+            Err(SuggestError::NotPositiveDefinite { pivot: 1 })
         ));
     }
 }
