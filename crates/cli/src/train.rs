@@ -114,16 +114,22 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
             .final_loss
             .map_or_else(|| "-".to_string(), |l| format!("{l:.3}"))
     );
+    let [readout, ridge, near] = report.picture_weights.map(|w| w * 100.0);
     println!(
-        "  suggestions {:.0} % model read-out, {:.0} % tags of the {} most similar pictures; {}",
-        report.readout_weight * 100.0,
-        (1.0 - report.readout_weight) * 100.0,
+        "  suggestions {readout:.0} % model read-out, {ridge:.0} % linear read-out, {near:.0} % \
+         tags of the {} most similar pictures; {}",
         report.k,
         if report.calibrated {
             "probabilities calibrated on held-out pictures"
         } else {
             "too few held-out pictures to calibrate: scores are not probabilities"
         }
+    );
+    let [given, readout, ridge, near, together] = report.completion_weights.map(|w| w * 100.0);
+    println!(
+        "  for pictures with some tags: {given:.0} % model given those tags, {readout:.0} % \
+         model read-out, {ridge:.0} % linear read-out, {near:.0} % similar pictures, \
+         {together:.0} % tags seen together"
     );
     if report.without_variants > 0 {
         println!(

@@ -23,6 +23,30 @@ pub trait TagScorer {
     fn calibrated(&self) -> bool {
         false
     }
+    /// Scores for pictures that also reveal tags they carry (`revealed[i]`: tag columns
+    /// of row `i`). Methods that read pixels only ignore them.
+    fn score_given(
+        &self,
+        features: ArrayView2<f32>,
+        revealed: &[Vec<usize>],
+    ) -> Result<Array2<f32>, EvalError> {
+        let _ = revealed;
+        self.score(features)
+    }
+    /// Further named answers to the same completion question, measured beside the
+    /// method's own (e.g. one of its parts alone).
+    fn completion_parts(
+        &self,
+        features: ArrayView2<f32>,
+        revealed: &[Vec<usize>],
+    ) -> Result<Vec<(String, Array2<f32>)>, EvalError> {
+        let _ = (features, revealed);
+        Ok(Vec::new())
+    }
+    /// Whether the method is measured on tag completion only (it needs revealed tags).
+    fn completion_only(&self) -> bool {
+        false
+    }
 }
 
 /// Scores every tag by how many train pictures carry it; ignores the picture.

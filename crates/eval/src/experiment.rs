@@ -6,8 +6,8 @@ use ndarray::ArrayView2;
 use tagweave_model::JointOptions;
 
 use crate::{
-    audit_out_of_fold, baselines, evaluate_with_variants, EvalError, EvalOptions, JointScorer,
-    Progress, Report, TagScorer,
+    audit_out_of_fold, baselines, completion_baselines, evaluate_with_variants, EvalError,
+    EvalOptions, JointScorer, Progress, Report, TagScorer,
 };
 
 /// Folds of the out-of-fold audit behind the known-mislabel measurement.
@@ -32,9 +32,10 @@ pub struct Collection<'a> {
     pub known_mislabels: Option<&'a [bool]>,
 }
 
-/// The baselines and tagweave's joint model, in report order.
+/// The baselines, the completion baselines and tagweave's joint model, in report order.
 pub fn all_methods(joint: JointOptions) -> Vec<Box<dyn TagScorer>> {
     let mut all = baselines();
+    all.extend(completion_baselines());
     all.push(Box::new(JointScorer::with_options(joint)));
     all
 }

@@ -21,6 +21,13 @@ impl JointScorer {
             fitted: None,
         }
     }
+
+    fn fitted(&self) -> Result<&(TagSuggester, KnnScorer), EvalError> {
+        Ok(self
+            .fitted
+            .as_ref()
+            .ok_or_else(|| SuggestError::NotFitted("joint".into()))?)
+    }
 }
 
 impl TagScorer for JointScorer {
@@ -34,11 +41,29 @@ impl TagScorer for JointScorer {
     }
 
     fn score(&self, features: ArrayView2<f32>) -> Result<Array2<f32>, EvalError> {
-        let (suggester, knn) = self
-            .fitted
-            .as_ref()
-            .ok_or_else(|| SuggestError::NotFitted(self.name().into()))?;
+        let (suggester, knn) = self.fitted()?;
         Ok(suggester.suggest(features, knn, &[])?)
+    }
+
+    fn score_given(
+        &self,
+        features: ArrayView2<f32>,
+        revealed: &[Vec<usize>],
+    ) -> Result<Array2<f32>, EvalError> {
+        let (suggester, knn) = self.fitted()?;
+        Ok(suggester.suggest_given(features, revealed, knn, &[])?)
+    }
+
+    fn completion_parts(
+        &self,
+        features: ArrayView2<f32>,
+        revealed: &[Vec<usize>],
+    ) -> Result<Vec<(String, Array2<f32>)>, EvalError> {
+        let (suggester, _) = self.fitted()?;
+        Ok(vec![(
+            "joint model alone".into(),
+            suggester.network_given(features, revealed)?,
+        )])
     }
 
     fn settings(&self) -> Option<String> {

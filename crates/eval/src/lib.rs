@@ -15,6 +15,7 @@
 
 mod audit;
 mod baselines;
+mod completion;
 mod error;
 mod experiment;
 mod joint;
@@ -27,12 +28,18 @@ mod split;
 
 pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
 pub use baselines::{PriorScorer, TagScorer};
+pub use completion::{
+    measure_completion, CompletionReport, CooccurrenceScorer, RidgeCooccurrenceBlend,
+};
 pub use error::EvalError;
 pub use experiment::{all_methods, run_experiment, Collection, AUDIT_FOLDS};
 pub use joint::JointScorer;
 pub use mislabel::{disagreement, inject_mislabels, Injection};
 pub use reliability::{Reliability, ReliabilityBin};
-pub use report::{MethodReport, Report, SplitSummary};
-pub use runner::{baselines, evaluate, evaluate_with_variants, EvalOptions, Progress, SUGGESTIONS};
+pub use report::{Completion, CompletionSplit, MethodReport, Report, SplitSummary};
+pub use runner::{
+    baselines, completion_baselines, evaluate, evaluate_with_variants, EvalOptions, Progress,
+    SUGGESTIONS,
+};
 pub use split::{split, Split};
 pub use tagweave_suggest::RidgeScorer;

@@ -14,10 +14,32 @@ use crate::KnownMislabels;
 pub struct Report {
     pub split: SplitSummary,
     pub methods: BTreeMap<String, MethodReport>,
+    /// Tag completion: the same test pictures revealing half of their tags; absent
+    /// when no test picture carries two known tags.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub completion: Option<Completion>,
     /// Out-of-fold audit against pictures known to carry a wrong tag, when
     /// the caller has such a list (see [`crate::audit_out_of_fold`]).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub known_mislabels: Option<KnownMislabels>,
+}
+
+/// Tag completion on the test pictures with two or more known tags: ⌊n/2⌋ of each
+/// one's tags revealed (chosen by the seed), the others ranked.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Completion {
+    pub split: CompletionSplit,
+    pub methods: BTreeMap<String, crate::CompletionReport>,
+}
+
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct CompletionSplit {
+    /// Test pictures that reveal some tags.
+    pub pictures: usize,
+    /// Tags revealed, over all of them.
+    pub revealed: usize,
+    /// Tags to be found, over all of them.
+    pub hidden: usize,
 }
 
 /// How the pictures were divided and what could be measured on them.
@@ -152,6 +174,10 @@ impl Report {
     pub fn to_markdown(&self) -> String {
         let mut out = format!("{}\n\n", self.summary_line());
         out += &markdown_table(&COLUMNS, &self.rows());
+        if let Some(completion) = &self.completion {
+            out += &format!("\n{}\n\n", completion.summary_line());
+            out += &markdown_table(&Completion::COLUMNS, &completion.rows());
+        }
         if let Some(known) = &self.known_mislabels {
             out += &format!("\n{}\n\n", known.summary_line());
             out += &markdown_table(&known.columns(), &known.rows());
@@ -175,6 +201,10 @@ impl Report {
     pub fn to_table(&self) -> String {
         let mut out = format!("{}\n", self.summary_line());
         out += &aligned_table(&COLUMNS, &self.rows(), 2);
+        if let Some(completion) = &self.completion {
+            out += &format!("\n{}\n", completion.summary_line());
+            out += &aligned_table(&Completion::COLUMNS, &completion.rows(), 2);
+        }
         if let Some(known) = &self.known_mislabels {
             out += &format!("\n{}\n", known.summary_line());
             out += &aligned_table(&known.columns(), &known.rows(), 1);
@@ -186,6 +216,36 @@ impl Report {
             );
         }
         out
+    }
+}
+
+impl Completion {
+    const COLUMNS: [&'static str; 7] =
+        ["method", "settings", "LRAP", "P@1", "P@5", "R@5", "seconds"];
+
+    fn summary_line(&self) -> String {
+        format!(
+            "tag completion: {} test pictures with two or more tags show {} of them; the other {} \
+             are ranked (LRAP etc. over the tags not shown)",
+            self.split.pictures, self.split.revealed, self.split.hidden
+        )
+    }
+
+    fn rows(&self) -> Vec<Vec<String>> {
+        self.methods
+            .iter()
+            .map(|(name, m)| {
+                vec![
+                    name.clone(),
+                    m.settings.clone().unwrap_or_default(),
+                    number(m.lrap),
+                    number(m.p_at_1),
+                    number(m.p_at_5),
+                    number(m.r_at_5),
+                    format!("{:.1}", m.seconds),
+                ]
+            })
+            .collect()
     }
 }
 

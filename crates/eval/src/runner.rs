@@ -15,9 +15,23 @@ use crate::metrics::{
 };
 
 use crate::{
-    inject_mislabels, split, EvalError, Injection, MethodReport, PriorScorer, Reliability, Report,
+    inject_mislabels, measure_completion, split, Completion, CompletionSplit, CooccurrenceScorer,
+    EvalError, Injection, MethodReport, PriorScorer, Reliability, Report, RidgeCooccurrenceBlend,
     RidgeScorer, SplitSummary, TagScorer,
 };
+use tagweave_suggest::reveal_half;
+
+/// Keeps the completion protocol's reveal independent of the split from the same seed.
+const REVEAL_SEED: u64 = 0x7265_7665;
+
+/// The baselines that read revealed tags, measured on tag completion only: tag
+/// co-occurrence and its validated blend with ridge.
+pub fn completion_baselines() -> Vec<Box<dyn TagScorer>> {
+    vec![
+        Box::new(CooccurrenceScorer::default()),
+        Box::new(RidgeCooccurrenceBlend::default()),
+    ]
+}
 
 /// Tags suggested per picture for P@5, R@5 and per-tag annotation.
 pub const SUGGESTIONS: usize = 5;
@@ -326,6 +340,18 @@ pub fn evaluate_with_variants(
         .filter(|c| c.iter().filter(|&&x| x).count() >= MIN_SEARCH_POSITIVES)
         .count();
 
+    // Tag completion: the test pictures with two or more known tags reveal ⌊n/2⌋.
+    let (completion_rows, reveal) = reveal_half(&truth.lists, options.seed ^ REVEAL_SEED);
+    let completion_x = test_x.select(Axis(0), &completion_rows);
+    let mut completion = Completion {
+        split: CompletionSplit {
+            pictures: completion_rows.len(),
+            revealed: reveal.revealed.iter().map(Vec::len).sum(),
+            hidden: reveal.hidden.iter().map(Vec::len).sum(),
+        },
+        methods: BTreeMap::new(),
+    };
+
     let train_set = TrainSet {
         features: train_x.view(),
         tags: &train_tags,
@@ -345,8 +371,28 @@ pub fn evaluate_with_variants(
         });
         let start = Instant::now();
         method.fit(&train_set)?;
+        let fitted = start.elapsed().as_secs_f64();
+        if !completion_rows.is_empty() {
+            let start = Instant::now();
+            let scores = method.score_given(completion_x.view(), &reveal.revealed)?;
+            let seconds = fitted + start.elapsed().as_secs_f64();
+            let parts = method.completion_parts(completion_x.view(), &reveal.revealed)?;
+            for (part, scores) in std::iter::once((name.clone(), scores)).chain(parts) {
+                check_scores(&part, &scores, completion_rows.len(), n_tags)?;
+                let mut report = measure_completion(scores.view(), &reveal)?;
+                if part == name {
+                    report.settings = method.settings();
+                }
+                report.seconds = seconds;
+                completion.methods.insert(part, report);
+            }
+        }
+        if method.completion_only() {
+            continue;
+        }
+        let start = Instant::now();
         let scores = method.score(test_x.view())?;
-        let seconds = start.elapsed().as_secs_f64();
+        let seconds = fitted + start.elapsed().as_secs_f64();
         check_scores(&name, &scores, truth.lists.len(), n_tags)?;
         on_progress(Progress::Measuring {
             method: &name,
@@ -378,6 +424,7 @@ pub fn evaluate_with_variants(
             mislabelled: truth.injection.noisy.iter().filter(|&&x| x).count(),
         },
         methods: reports,
+        completion: (!completion_rows.is_empty()).then_some(completion),
         known_mislabels: None,
     })
 }

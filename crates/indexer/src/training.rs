@@ -69,7 +69,11 @@ pub struct TrainReport {
     /// Hidden units: image pathway, tag pathway, shared layer.
     pub layers: [usize; 3],
     pub epochs: usize,
-    pub readout_weight: f32,
+    /// Weights of (the model's read-out, ridge, kNN) for pictures alone.
+    pub picture_weights: [f32; 3],
+    /// Weights of (model given tags, model read-out, ridge, kNN, tag co-occurrence)
+    /// for pictures that carry some tags.
+    pub completion_weights: [f32; 5],
     pub k: usize,
     pub calibrated: bool,
     pub hash_bits: usize,
@@ -157,7 +161,8 @@ pub fn train(
         tags: trained.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
         epochs: trained.suggester.epochs,
-        readout_weight: trained.suggester.readout_weight,
+        picture_weights: trained.suggester.picture_weights,
+        completion_weights: trained.suggester.completion.weights,
         k: trained.suggester.k,
         calibrated: trained.suggester.calibration.is_some(),
         hash_bits: trained.hash_thresholds.len(),

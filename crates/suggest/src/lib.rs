@@ -9,6 +9,7 @@
 
 mod calibration;
 mod columns;
+mod completion;
 mod error;
 mod knn;
 mod linalg;
@@ -23,12 +24,16 @@ mod trained;
 
 pub use calibration::Calibration;
 pub use columns::TagColumns;
+pub use completion::{
+    best_weights, completion_lrap, mix, reveal_half, unrevealed, weight_grid, Reveal,
+    TagCooccurrence,
+};
 pub use error::SuggestError;
 pub use knn::{knn_leave_one_out_scores, KnnScorer};
 pub use ridge::RidgeScorer;
 pub use standardiser::Standardiser;
 pub use suggester::{TagSuggester, TrainingRun};
 pub use train_set::{
-    choose_by_cv, group_ids, grouped_folds, tag_frequencies, tag_matrix, TrainSet,
+    choose_by_cv, group_ids, grouped_folds, tag_frequencies, tag_matrix, TrainRows, TrainSet,
 };
 pub use trained::{TrainedModel, TrainingData, TrainingHistory, MODEL_FORMAT};

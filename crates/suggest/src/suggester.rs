@@ -1,39 +1,37 @@
-//! tagweave's tag suggester: the joint picture–tag model's read-out blended with kNN tag
-//! transfer, its settings chosen on a validation fold, its scores calibrated.
+//! tagweave's tag suggester: the joint picture–tag model's read-out blended with a
+//! linear read-out and kNN tag transfer, and, for a picture that carries some tags
+//! already, with the model's answer given those tags and with tag co-occurrence. The
+//! blends are chosen on a validation fold and their scores calibrated.
 
 use ndarray::{Array2, ArrayView2, Axis};
 use serde::{Deserialize, Serialize};
 use tagweave_model::{JointModel, JointOptions, JointProgress};
 
+use crate::completion::{
+    best_weights, completion_lrap, mix, unrevealed, validation_fold, validation_reveal,
+    weight_grid, Reveal, TagCooccurrence,
+};
 use crate::ranking::{label_ranking_average_precision, mean};
-use crate::train_set::{grouped_folds, tag_matrix};
-use crate::{Calibration, KnnScorer, SuggestError, TrainSet};
-
-/// One fold in this many of the train pictures (content groups kept whole)
-/// decides when fine-tuning stops, the blend and the calibration: about 14 %.
-const VALIDATION_FOLDS: usize = 7;
-
-/// Weights of the read-out tried against kNN tag transfer (1 = read-out only).
-const BLEND_WEIGHTS: [f32; 5] = [1.0, 0.75, 0.5, 0.25, 0.0];
+use crate::train_set::{tag_matrix, TrainRows};
+use crate::{Calibration, KnnScorer, RidgeScorer, SuggestError, TrainSet};
 
 /// Which of the two training runs a progress report belongs to.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub enum TrainingRun {
     /// On the train pictures minus a validation fold, to choose the length, the
-    /// blend and the calibration.
+    /// blends and the calibrations.
     Choosing,
     /// On every train picture, for the chosen length.
     Final,
 }
 
-/// A trained joint model with everything chosen on the validation fold: how long
-/// to fine-tune, how much kNN tag transfer to blend in, and the map from blended
-/// scores to calibrated probabilities. Serialisable: the product keeps it in the store.
+/// A trained joint model with everything chosen on the validation fold: how long to
+/// fine-tune, how to blend its read-out with ridge and kNN tag transfer, how to blend
+/// for pictures that carry some tags, and the maps from blended scores to calibrated
+/// probabilities. Serialisable: the product keeps it in the store.
 ///
-/// The blend uses kNN on the picture features, not on the shared code: on the two
-/// shared eval sets (seed 7), kNN in the shared code added nothing to the read-out
-/// (the validation fold chose weight 1, or the blend lost 0.004 LRAP); kNN on the
-/// features added 0.00–0.04 LRAP over seeds 1, 2, 3 and 7.
+/// kNN works on the picture features, not on the shared code (BENCHMARKS.md, "What did
+/// not help").
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct TagSuggester {
     /// The joint picture–tag network (stored under its original key, `model`).
@@ -41,21 +39,92 @@ pub struct TagSuggester {
     pub network: JointModel,
     /// Fine-tuning epochs of the final run.
     pub epochs: usize,
-    /// Weight of the read-out in the blend; the rest goes to kNN.
-    pub readout_weight: f32,
+    /// Weights of (the network's read-out, ridge, kNN) for a picture alone.
+    pub picture_weights: [f32; 3],
+    /// The linear read-out.
+    pub ridge: RidgeScorer,
     /// Neighbours of the kNN part (chosen by the kNN's own cross-validation).
     pub k: usize,
     /// `None` when the validation fold had no right or no wrong suggestion.
     pub calibration: Option<Calibration>,
+    /// For pictures that carry some tags already.
+    pub completion: Completion,
+}
+
+/// Tag completion for a picture that carries some tags already: the network given
+/// picture and tags, the network from the picture alone, ridge, kNN, and tag
+/// co-occurrence of the carried tags, blended with weights chosen on the validation
+/// fold with half of each validation picture's tags revealed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Completion {
+    pub cooccurrence: TagCooccurrence,
+    /// Weights of (network given the tags, network from the picture, ridge, kNN,
+    /// co-occurrence).
+    pub weights: [f32; 5],
+    pub calibration: Option<Calibration>,
+}
+
+/// The scores every blend draws from, for some pictures.
+struct Sources {
+    given: Array2<f32>,
+    readout: Array2<f32>,
+    ridge: Array2<f32>,
+    near: Array2<f32>,
+    cooccurring: Array2<f32>,
+}
+
+impl Sources {
+    fn picture(&self) -> [ArrayView2<'_, f32>; 3] {
+        [self.readout.view(), self.ridge.view(), self.near.view()]
+    }
+
+    fn completion(&self) -> [ArrayView2<'_, f32>; 5] {
+        [
+            self.given.view(),
+            self.readout.view(),
+            self.ridge.view(),
+            self.near.view(),
+            self.cooccurring.view(),
+        ]
+    }
+}
+
+/// Fitted parts scoring one set of pictures: `carried` tags per picture (empty lists
+/// for pictures alone).
+fn sources(
+    network: &JointModel,
+    ridge: &RidgeScorer,
+    near: Array2<f32>,
+    cooccurrence: &TagCooccurrence,
+    features: ArrayView2<f32>,
+    carried: &[Vec<usize>],
+) -> Result<Sources, SuggestError> {
+    let shown = tag_matrix(carried, network.n_tags());
+    Ok(Sources {
+        given: network.fill_in_tags_given(features, shown.view())?,
+        readout: network.fill_in_tags(features)?,
+        ridge: ridge.score(features)?,
+        near,
+        cooccurring: cooccurrence.score(carried),
+    })
+}
+
+/// What the validation fold chose.
+struct Choice {
+    epochs: usize,
+    picture_weights: [f32; 3],
+    calibration: Option<Calibration>,
+    completion_weights: [f32; 5],
+    completion_calibration: Option<Calibration>,
 }
 
 impl TagSuggester {
     /// Trains on `train`: a first run holds out one grouped validation fold to
-    /// choose the fine-tuning length (best validation LRAP), the read-out/kNN blend
-    /// and the calibration; the final run trains on every train picture for that
-    /// many epochs, so no picture is lost to validation. The variants of `train` are
-    /// training examples of both runs (the fitted rows' variants only); the validation
-    /// fold is scored on its original pictures.
+    /// choose the fine-tuning length (best validation LRAP), both blends and their
+    /// calibrations; the final run trains on every train picture for that many epochs,
+    /// so no picture is lost to validation. The variants of `train` are training
+    /// examples of both runs (the fitted rows' variants only); the validation fold is
+    /// scored on its original pictures.
     pub fn train(
         train: &TrainSet,
         options: &JointOptions,
@@ -66,67 +135,23 @@ impl TagSuggester {
             seed: train.seed,
             ..options.clone()
         };
-        let all_rows: Vec<usize> = (0..train.tags.len()).collect();
         let mut knn_all = KnnScorer::default();
         knn_all.fit(train)?;
         let k = knn_all.chosen_k().unwrap_or(1);
-        let (epochs, readout_weight, calibration) =
-            match grouped_folds(train.groups, VALIDATION_FOLDS, train.seed).first() {
-                Some(val) => {
-                    let fit: Vec<usize> = all_rows
-                        .iter()
-                        .copied()
-                        .filter(|i| val.binary_search(i).is_err())
-                        .collect();
-                    let val_x = train.features.select(Axis(0), val);
-                    let val_tags: Vec<Vec<bool>> = val
-                        .iter()
-                        .map(|&i| y.row(i).iter().map(|&v| v > 0.5).collect())
-                        .collect();
-                    let mut score = |m: &JointModel| match m.fill_in_tags(val_x.view()) {
-                        Ok(s) => mean_lrap(s.view(), &val_tags) as f32,
-                        Err(_) => f32::NAN,
-                    };
-                    let fit_variants: Vec<Array2<f32>> = train
-                        .variants
-                        .iter()
-                        .map(|v| v.select(Axis(0), &fit))
-                        .collect();
-                    let (network, summary) = JointModel::fit_with_variants(
-                        train.features.select(Axis(0), &fit).view(),
-                        &variants_of(&fit_variants),
-                        y.select(Axis(0), &fit).view(),
-                        Some(&mut score),
-                        &options,
-                        &mut |p| progress(TrainingRun::Choosing, p),
-                    )?;
-                    let knn = knn_with_k(train, &fit, k);
-                    let readout = network.fill_in_tags(val_x.view())?;
-                    let near = knn.score(val_x.view())?;
-                    let blends: Vec<Array2<f32>> = BLEND_WEIGHTS
-                        .iter()
-                        .map(|&w| blend(readout.clone(), near.clone(), w))
-                        .collect();
-                    let lraps: Vec<f64> = blends
-                        .iter()
-                        .map(|b| mean_lrap(b.view(), &val_tags))
-                        .collect();
-                    let best =
-                        (0..lraps.len()).fold(0, |b, i| if lraps[i] > lraps[b] { i } else { b });
-                    let correct: Vec<bool> = val_tags.iter().flatten().copied().collect();
-                    let scores: Vec<f32> = blends[best].iter().copied().collect();
-                    (
-                        summary.kept_epoch + 1,
-                        BLEND_WEIGHTS[best],
-                        Calibration::fit(&scores, &correct),
-                    )
-                }
-                // Too few content groups to hold one out: full length, an even blend,
-                // no calibration.
-                None => (options.max_epochs, 0.5, None),
-            };
+        let choice = match validation_fold(train) {
+            Some((fit, val)) => choose(train, &y, &fit, &val, k, &options, progress)?,
+            // Too few content groups to hold one out: full length, even blends, no
+            // calibration.
+            None => Choice {
+                epochs: options.max_epochs,
+                picture_weights: [1.0 / 3.0; 3],
+                calibration: None,
+                completion_weights: [0.2; 5],
+                completion_calibration: None,
+            },
+        };
         let all = JointOptions {
-            max_epochs: epochs,
+            max_epochs: choice.epochs,
             ..options
         };
         let (network, _) = JointModel::fit_with_variants(
@@ -137,12 +162,20 @@ impl TagSuggester {
             &all,
             &mut |p| progress(TrainingRun::Final, p),
         )?;
+        let mut ridge = RidgeScorer::default();
+        ridge.fit(train)?;
         let suggester = TagSuggester {
             network,
-            epochs,
-            readout_weight,
+            epochs: choice.epochs,
+            picture_weights: choice.picture_weights,
+            ridge,
             k,
-            calibration,
+            calibration: choice.calibration,
+            completion: Completion {
+                cooccurrence: TagCooccurrence::count(train.tags, train.n_tags),
+                weights: choice.completion_weights,
+                calibration: choice.completion_calibration,
+            },
         };
         Ok((suggester, knn_all))
     }
@@ -154,7 +187,7 @@ impl TagSuggester {
     }
 
     /// Tag probabilities (pictures × tag columns) from standardised features:
-    /// calibrated when a calibration was fitted, otherwise blended scores in [0, 1].
+    /// calibrated when a calibration was fitted, otherwise blended scores.
     /// `exclude[i]`: a picture among the neighbours' train rows that row `i` must not
     /// lean on (itself, when it is one of them); empty = none.
     pub fn suggest(
@@ -164,12 +197,47 @@ impl TagSuggester {
         exclude: &[Option<usize>],
     ) -> Result<Array2<f32>, SuggestError> {
         let readout = self.network.fill_in_tags(features)?;
+        let ridge = self.ridge.score(features)?;
         let near = neighbours.score_excluding(features, exclude)?;
-        let blended = blend(readout, near, self.readout_weight);
-        Ok(match &self.calibration {
-            Some(c) => blended.mapv(|s| c.probability(s)),
-            None => blended,
-        })
+        let blended = mix(
+            &[readout.view(), ridge.view(), near.view()],
+            &self.picture_weights,
+        );
+        Ok(calibrated(blended, &self.calibration))
+    }
+
+    /// Tag probabilities for pictures that carry the tag columns `carried[i]` already,
+    /// from their features and those tags (see [`Completion`]). The carried tags' own
+    /// entries are left in; callers drop them.
+    pub fn suggest_given(
+        &self,
+        features: ArrayView2<f32>,
+        carried: &[Vec<usize>],
+        neighbours: &KnnScorer,
+        exclude: &[Option<usize>],
+    ) -> Result<Array2<f32>, SuggestError> {
+        let near = neighbours.score_excluding(features, exclude)?;
+        let parts = sources(
+            &self.network,
+            &self.ridge,
+            near,
+            &self.completion.cooccurrence,
+            features,
+            carried,
+        )?;
+        let blended = mix(&parts.completion(), &self.completion.weights);
+        Ok(calibrated(blended, &self.completion.calibration))
+    }
+
+    /// The network alone given pictures and the tags they carry, uncalibrated: the
+    /// joint model's own answer, reported beside the blend.
+    pub fn network_given(
+        &self,
+        features: ArrayView2<f32>,
+        carried: &[Vec<usize>],
+    ) -> Result<Array2<f32>, SuggestError> {
+        let shown = tag_matrix(carried, self.network.n_tags());
+        Ok(self.network.fill_in_tags_given(features, shown.view())?)
     }
 
     /// Codes (shared-layer probabilities) of standardised features.
@@ -177,18 +245,125 @@ impl TagSuggester {
         Ok(self.network.shared_code(features)?)
     }
 
-    /// Layer sizes, epochs and blend, for reports.
+    /// Layer sizes, epochs and blends, for reports.
     pub fn describe(&self) -> String {
         let m = &self.network;
         format!(
-            "h={}/{}/{} epochs={} w={} k={}",
+            "h={}/{}/{} epochs={} w={:?} k={} completion w={:?}",
             m.image.n_hidden(),
             m.tags.n_hidden(),
             m.shared.n_hidden(),
             self.epochs,
-            self.readout_weight,
-            self.k
+            self.picture_weights,
+            self.k,
+            self.completion.weights
         )
+    }
+}
+
+/// The first run: fine-tune on `fit` with early stopping on `val`, then choose both
+/// blends and their calibrations on `val`.
+fn choose(
+    train: &TrainSet,
+    y: &Array2<f32>,
+    fit: &[usize],
+    val: &[usize],
+    k: usize,
+    options: &JointOptions,
+    progress: &mut dyn FnMut(TrainingRun, JointProgress),
+) -> Result<Choice, SuggestError> {
+    let val_x = train.features.select(Axis(0), val);
+    let val_tags: Vec<Vec<bool>> = val
+        .iter()
+        .map(|&i| y.row(i).iter().map(|&v| v > 0.5).collect())
+        .collect();
+    let mut score = |m: &JointModel| match m.fill_in_tags(val_x.view()) {
+        Ok(s) => mean_lrap(s.view(), &val_tags) as f32,
+        Err(_) => f32::NAN,
+    };
+    let fit_variants: Vec<Array2<f32>> = train
+        .variants
+        .iter()
+        .map(|v| v.select(Axis(0), fit))
+        .collect();
+    let (network, summary) = JointModel::fit_with_variants(
+        train.features.select(Axis(0), fit).view(),
+        &variants_of(&fit_variants),
+        y.select(Axis(0), fit).view(),
+        Some(&mut score),
+        options,
+        &mut |p| progress(TrainingRun::Choosing, p),
+    )?;
+    let rows = TrainRows::of(train, fit);
+    let part = rows.train_set(train);
+    let knn = KnnScorer::with_fixed_k(k, &part);
+    let mut ridge = RidgeScorer::default();
+    ridge.fit(&part)?;
+    let cooccurrence = TagCooccurrence::count(part.tags, train.n_tags);
+
+    // Pictures alone.
+    let alone = vec![Vec::new(); val.len()];
+    let parts = sources(
+        &network,
+        &ridge,
+        knn.score(val_x.view())?,
+        &cooccurrence,
+        val_x.view(),
+        &alone,
+    )?;
+    let picture_weights = best_weights(&weight_grid(3), &parts.picture(), |s| {
+        mean_lrap(s, &val_tags)
+    });
+    let blended = mix(&parts.picture(), &picture_weights);
+    let correct: Vec<bool> = val_tags.iter().flatten().copied().collect();
+    let calibration = Calibration::fit(&blended.iter().copied().collect::<Vec<_>>(), &correct);
+
+    // Pictures carrying half of their tags.
+    let (completion_weights, completion_calibration) = match validation_reveal(train, val) {
+        Some((rows, reveal)) => {
+            let x = train.features.select(Axis(0), &rows);
+            let parts = sources(
+                &network,
+                &ridge,
+                knn.score(x.view())?,
+                &cooccurrence,
+                x.view(),
+                &reveal.revealed,
+            )?;
+            let weights = best_weights(&weight_grid(5), &parts.completion(), |s| {
+                completion_lrap(s, &reveal)
+            });
+            let blended = mix(&parts.completion(), &weights);
+            (weights, hidden_calibration(blended.view(), &reveal))
+        }
+        None => (vec![0.2; 5], None),
+    };
+    Ok(Choice {
+        epochs: summary.kept_epoch + 1,
+        picture_weights: to_array(&picture_weights),
+        calibration,
+        completion_weights: to_array(&completion_weights),
+        completion_calibration,
+    })
+}
+
+fn to_array<const N: usize>(weights: &[f32]) -> [f32; N] {
+    let mut out = [0.0; N];
+    out.iter_mut().zip(weights).for_each(|(o, &w)| *o = w);
+    out
+}
+
+/// A calibration of the scores of the tags the pictures do not reveal.
+fn hidden_calibration(scores: ArrayView2<f32>, reveal: &Reveal) -> Option<Calibration> {
+    let (scores, correct): (Vec<Vec<f32>>, Vec<Vec<bool>>) =
+        unrevealed(scores, reveal).into_iter().unzip();
+    Calibration::fit(&scores.concat(), &correct.concat())
+}
+
+fn calibrated(blended: Array2<f32>, calibration: &Option<Calibration>) -> Array2<f32> {
+    match calibration {
+        Some(c) => blended.mapv(|s| c.probability(s)),
+        None => blended,
     }
 }
 
@@ -204,39 +379,6 @@ fn mean_lrap(scores: ArrayView2<f32>, relevant: &[Vec<bool>]) -> f64 {
             .map(|(row, rel)| label_ranking_average_precision(&row.to_vec(), rel)),
     )
     .unwrap_or(0.0)
-}
-
-/// Each row divided by its largest entry, so both sources put their top tag at 1
-/// and the blend weight means the same for every picture.
-fn row_max_scaled(mut scores: Array2<f32>) -> Array2<f32> {
-    for mut row in scores.outer_iter_mut() {
-        let top = row.fold(0.0f32, |m, &v| m.max(v));
-        if top > 0.0 {
-            row /= top;
-        }
-    }
-    scores
-}
-
-fn blend(readout: Array2<f32>, knn: Array2<f32>, weight: f32) -> Array2<f32> {
-    row_max_scaled(readout) * weight + row_max_scaled(knn) * (1.0 - weight)
-}
-
-/// kNN with a fixed k on some of the train pictures.
-fn knn_with_k(train: &TrainSet, rows: &[usize], k: usize) -> KnnScorer {
-    let features = train.features.select(Axis(0), rows);
-    let tags: Vec<Vec<usize>> = rows.iter().map(|&i| train.tags[i].clone()).collect();
-    let groups: Vec<usize> = rows.iter().map(|&i| train.groups[i]).collect();
-    KnnScorer::with_fixed_k(
-        k,
-        &TrainSet {
-            features: features.view(),
-            tags: &tags,
-            groups: &groups,
-            variants: &[],
-            ..*train
-        },
-    )
 }
 
 #[cfg(test)]
@@ -275,7 +417,7 @@ mod tests {
         assert!(suggester.calibration.is_some());
         let described = suggester.describe();
         assert!(
-            described.starts_with("h=") && described.contains(" w="),
+            described.starts_with("h=") && described.contains(" completion w="),
             "{described}"
         );
         // the kNN part rebuilt from the same rows gives the same suggestions
@@ -299,7 +441,8 @@ mod tests {
             || Array2::from_shape_fn((180, x.ncols()), |_| rng.random_range(-1.0..1.0f32));
         let (mut features, mut variant) = (noise(), x.slice(ndarray::s![..180, ..]).to_owned());
         let groups: Vec<usize> = (0..180).collect();
-        let val = grouped_folds(&groups, VALIDATION_FOLDS, 3).remove(0);
+        let val = crate::train_set::grouped_folds(&groups, crate::completion::VALIDATION_FOLDS, 3)
+            .remove(0);
         let garbage = noise();
         for &i in &val {
             features.row_mut(i).assign(&x.row(i));
@@ -345,24 +488,6 @@ mod tests {
         assert!(
             unlearned < learned - 0.1,
             "read-out LRAP without variants {unlearned}"
-        );
-    }
-
-    // By hand: rows scaled to their maximum, [2, 1, 0] → [1, 0.5, 0] and [0, 4, 4] →
-    // [0, 1, 1]; weight 0.25 on the first: [0.25, 0.875, 0.75].
-    #[test]
-    fn blend_scales_each_source_by_its_row_maximum() {
-        let b = blend(
-            ndarray::array![[2.0f32, 1.0, 0.0]],
-            ndarray::array![[0.0f32, 4.0, 4.0]],
-            0.25,
-        );
-        let want = [0.25f32, 0.875, 0.75];
-        assert!(b.iter().zip(want).all(|(g, w)| (g - w).abs() < 1e-6), "{b}");
-        // an all-zero row stays zero instead of dividing by zero
-        assert_eq!(
-            row_max_scaled(Array2::zeros((1, 3))),
-            Array2::<f32>::zeros((1, 3))
         );
     }
 }

@@ -31,6 +31,35 @@ pub struct TrainSet<'a> {
     pub variants: &'a [Array2<f32>],
 }
 
+/// Some rows of a [`TrainSet`], owned, to fit a method on part of the pictures.
+pub struct TrainRows {
+    features: Array2<f32>,
+    tags: Vec<Vec<usize>>,
+    groups: Vec<usize>,
+}
+
+impl TrainRows {
+    pub fn of(train: &TrainSet, rows: &[usize]) -> Self {
+        TrainRows {
+            features: train.features.select(ndarray::Axis(0), rows),
+            tags: rows.iter().map(|&i| train.tags[i].clone()).collect(),
+            groups: rows.iter().map(|&i| train.groups[i]).collect(),
+        }
+    }
+
+    /// As a train set with `like`'s tag columns and seed, without variants.
+    pub fn train_set<'a>(&'a self, like: &TrainSet) -> TrainSet<'a> {
+        TrainSet {
+            features: self.features.view(),
+            tags: &self.tags,
+            n_tags: like.n_tags,
+            groups: &self.groups,
+            seed: like.seed,
+            variants: &[],
+        }
+    }
+}
+
 /// Folds of the cross-validation that chooses a method's setting.
 const CV_FOLDS: usize = 5;
 

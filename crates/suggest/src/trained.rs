@@ -12,7 +12,7 @@ use crate::{
 };
 
 /// Bumped when [`TrainedModel`] changes shape; an older model is retrained, not guessed at.
-pub const MODEL_FORMAT: u32 = 2;
+pub const MODEL_FORMAT: u32 = 3;
 
 /// A model as kept in the store: everything needed to suggest tags for, and code,
 /// any picture described by the store's feature extractor.
