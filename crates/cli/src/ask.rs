@@ -59,12 +59,16 @@ pub struct RankArgs {
 #[derive(clap::Args)]
 pub struct SuggestArgs {
     /// Picture files (in the collection or not).
-    #[arg(required_unless_present = "untagged")]
+    #[arg(required_unless_present_any = ["untagged", "partly_tagged"])]
     pub pictures: Vec<PathBuf>,
     /// Suggest for every untagged picture of the collection and write a review sheet.
     #[arg(long)]
     pub untagged: bool,
-    /// Where the review sheet goes (with --untagged).
+    /// Suggest more tags for every picture that carries some already, using its tags
+    /// as evidence, and write a review sheet (may be given with --untagged).
+    #[arg(long)]
+    pub partly_tagged: bool,
+    /// Where the review sheet goes (with --untagged or --partly-tagged).
     #[arg(long, value_name = "CSV", default_value = SUGGESTIONS_SHEET)]
     pub sheet: PathBuf,
     /// Tags listed per picture.
@@ -167,54 +171,42 @@ struct PictureSuggestions {
     picture: String,
     indexed: bool,
     carried: Vec<String>,
+    /// Carried tags the model took as evidence (those it knows).
+    evidence: Vec<String>,
     suggestions: Vec<TagScore>,
 }
 
 pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
     let (store, queries) = open(&args.store)?;
     let mut answers = Vec::new();
-    if args.untagged {
-        let rows: Vec<usize> = (0..queries.items().len())
-            .filter(|&i| queries.items()[i].tags.is_empty())
-            .collect();
-        let probabilities = queries.suggest_rows(&rows)?;
-        for (r, &i) in rows.iter().enumerate() {
-            answers.push(PictureSuggestions {
-                picture: queries.items()[i].rel_path.clone(),
-                indexed: true,
-                carried: Vec::new(),
-                suggestions: queries
-                    .tag_scores(&probabilities.row(r).to_vec(), &[])
-                    .into_iter()
-                    .take(args.limit)
-                    .collect(),
-            });
-        }
+    let listed: Vec<usize> = (0..queries.items().len())
+        .filter(|&i| {
+            let tagged = !queries.items()[i].tags.is_empty();
+            (args.untagged && !tagged) || (args.partly_tagged && tagged)
+        })
+        .collect();
+    let probabilities = queries.suggest_rows(&listed)?;
+    for (r, &i) in listed.iter().enumerate() {
+        answers.push(answer(
+            &queries,
+            queries.items()[i].rel_path.clone(),
+            Some(i),
+            &probabilities.row(r).to_vec(),
+            args.limit,
+        ));
     }
     for path in &args.pictures {
-        let (indexed, carried, probabilities) = match queries.row_of_path(path) {
-            Some(row) => {
-                let p = queries.suggest_rows(&[row])?;
-                (true, queries.items()[row].tags.clone(), p.row(0).to_vec())
-            }
-            None => (false, Vec::new(), queries.suggest_file(path)?),
+        let (row, probabilities) = match queries.row_of_path(path) {
+            Some(row) => (Some(row), queries.suggest_rows(&[row])?.row(0).to_vec()),
+            None => (None, queries.suggest_file(path)?),
         };
-        answers.push(PictureSuggestions {
-            picture: path.display().to_string(),
-            indexed,
-            suggestions: queries
-                .tag_scores(&probabilities, &carried)
-                .into_iter()
-                .filter(|s| !s.carried)
-                .take(args.limit)
-                .collect(),
-            carried,
-        });
+        let picture = path.display().to_string();
+        answers.push(answer(&queries, picture, row, &probabilities, args.limit));
     }
-    let sheet = if args.untagged {
+    let sheet = if args.untagged || args.partly_tagged {
         let rows: Vec<SheetRow> = answers
             .iter()
-            .filter(|a| a.indexed && a.carried.is_empty())
+            .take(listed.len())
             .flat_map(|a| {
                 a.suggestions.iter().map(|s| SheetRow {
                     picture: a.picture.clone(),
@@ -250,6 +242,14 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
             );
             if !a.carried.is_empty() {
                 println!("  carries   {}", a.carried.join(", "));
+                if a.evidence.is_empty() {
+                    println!("            (none of them known to the model: judged from the picture alone)");
+                } else {
+                    println!(
+                        "  judged from the picture and its tags {}",
+                        a.evidence.join(", ")
+                    );
+                }
             }
             for s in &a.suggestions {
                 println!("  {:>5.0} %  {}", s.probability * 100.0, s.tag);
@@ -260,6 +260,30 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
         }
     }
     Ok(Outcome::Done)
+}
+
+/// One picture's answer: its carried tags, those taken as evidence, and the best
+/// `limit` tags it does not carry yet.
+fn answer(
+    queries: &Queries,
+    picture: String,
+    row: Option<usize>,
+    probabilities: &[f32],
+    limit: usize,
+) -> PictureSuggestions {
+    let carried = row.map_or_else(Vec::new, |r| queries.items()[r].tags.clone());
+    PictureSuggestions {
+        picture,
+        indexed: row.is_some(),
+        evidence: row.map_or_else(Vec::new, |r| queries.evidence(r)),
+        suggestions: queries
+            .tag_scores(probabilities, &carried)
+            .into_iter()
+            .filter(|s| !s.carried)
+            .take(limit)
+            .collect(),
+        carried,
+    }
 }
 
 fn print_sheet_note(store: &Store, path: &Path, rows: usize) {

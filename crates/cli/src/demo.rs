@@ -74,6 +74,7 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
         ask::suggest(&SuggestArgs {
             pictures: vec![folder.join(picture)],
             untagged: false,
+            partly_tagged: false,
             sheet: store_dir.join(ask::SUGGESTIONS_SHEET),
             limit: 5,
             store: store_args(),

@@ -166,15 +166,56 @@ impl Queries {
         self.items.iter().position(|item| item.rel_path == rel)
     }
 
-    /// Tag probabilities for indexed pictures (rows), each judged without leaning on
-    /// its own tags.
+    /// Tag probabilities for indexed pictures (rows). A picture that carries tags the
+    /// model knows is judged from its pixels and those tags together (its carried tags
+    /// then come back likely; callers leave them out); the kNN part never leans on the
+    /// picture itself.
     pub fn suggest_rows(&self, rows: &[usize]) -> Result<Array2<f32>> {
-        let x = self.scaled.select(Axis(0), rows);
-        let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
-        Ok(self
-            .trained
-            .suggester
-            .suggest(x.view(), &self.neighbours, &exclude)?)
+        let carried: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        let (partly, alone): (Vec<usize>, Vec<usize>) =
+            (0..rows.len()).partition(|&i| !carried[i].is_empty());
+        let mut out = Array2::zeros((rows.len(), self.columns.len()));
+        let suggester = &self.trained.suggester;
+        for (positions, with_tags) in [(alone, false), (partly, true)] {
+            if positions.is_empty() {
+                continue;
+            }
+            let picked: Vec<usize> = positions.iter().map(|&i| rows[i]).collect();
+            let x = self.scaled.select(Axis(0), &picked);
+            let exclude: Vec<Option<usize>> =
+                picked.iter().map(|&r| self.neighbour_row[r]).collect();
+            let p = if with_tags {
+                let shown: Vec<Vec<usize>> =
+                    positions.iter().map(|&i| carried[i].clone()).collect();
+                suggester.suggest_given(x.view(), &shown, &self.neighbours, &exclude)?
+            } else {
+                suggester.suggest(x.view(), &self.neighbours, &exclude)?
+            };
+            for (&i, row) in positions.iter().zip(p.outer_iter()) {
+                out.row_mut(i).assign(&row);
+            }
+        }
+        Ok(out)
+    }
+
+    /// The tags of an indexed picture that the model takes as evidence when it
+    /// suggests more: those it carries and the model knows.
+    pub fn evidence(&self, row: usize) -> Vec<String> {
+        self.evidence_columns(row)
+            .into_iter()
+            .map(|c| self.trained.vocabulary[c].clone())
+            .collect()
+    }
+
+    fn evidence_columns(&self, row: usize) -> Vec<usize> {
+        let mut columns: Vec<usize> = self.items[row]
+            .tags
+            .iter()
+            .filter_map(|t| self.columns.index_of(t))
+            .collect();
+        columns.sort_unstable();
+        columns.dedup();
+        columns
     }
 
     /// For indexed pictures (rows): the share of their most similar tagged pictures
