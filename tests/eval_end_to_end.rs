@@ -42,8 +42,10 @@ fn stdout(out: &Output) -> String {
 /// names the seed, so two reports compare on their measurements alone.
 fn measurements(mut report: Value) -> Value {
     report["split"]["seed"] = Value::Null;
-    for method in report["methods"].as_object_mut().unwrap().values_mut() {
-        method["seconds"] = Value::Null;
+    for protocol in [&mut report["methods"], &mut report["completion"]["methods"]] {
+        for method in protocol.as_object_mut().unwrap().values_mut() {
+            method["seconds"] = Value::Null;
+        }
     }
     report
 }
@@ -61,6 +63,35 @@ fn the_report_has_the_agreed_shape_and_baselines_beat_the_prior(folder: &Path) -
     assert_eq!(split["seed"], 7, "the default seed");
     let methods: Vec<&String> = report["methods"].as_object().unwrap().keys().collect();
     assert_eq!(methods, ["joint", "knn", "prior", "ridge"]);
+    // Tag completion on the same split: test pictures with two or more tags show half.
+    let completion = &report["completion"];
+    let shown = completion["split"]["revealed"].as_u64().unwrap();
+    let hidden = completion["split"]["hidden"].as_u64().unwrap();
+    assert!(
+        completion["split"]["pictures"].as_u64().unwrap() > 0,
+        "{report}"
+    );
+    assert!(
+        shown > 0 && hidden >= shown,
+        "⌊n/2⌋ shown: {shown} shown, {hidden} hidden"
+    );
+    let completed: Vec<&String> = completion["methods"].as_object().unwrap().keys().collect();
+    assert_eq!(
+        completed,
+        [
+            "co-occurrence",
+            "joint",
+            "joint model alone",
+            "knn",
+            "prior",
+            "ridge",
+            "ridge+co-occurrence"
+        ]
+    );
+    for (name, m) in completion["methods"].as_object().unwrap() {
+        let lrap = m["lrap"].as_f64().unwrap();
+        assert!((0.0..=1.0).contains(&lrap), "{name}: {lrap}");
+    }
     for method in ["prior", "knn", "ridge"] {
         for key in [
             "lrap",

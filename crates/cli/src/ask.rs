@@ -112,6 +112,9 @@ impl RankArgs {
     }
 }
 
+/// Below this chance of fitting every asked tag, `find` says no picture is likely to.
+const LIKELY: f32 = 0.5;
+
 fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
     if json {
         println!("{}", serde_json::to_string(found)?);
@@ -121,7 +124,20 @@ fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
         println!("no pictures");
         return Ok(());
     }
-    println!("{:>4}  {:>10}  {:<9}  picture", "rank", "similarity", what);
+    let chance = found.iter().any(|f| f.probability.is_some());
+    if chance && found.iter().all(|f| f.probability.unwrap_or(0.0) < LIKELY) {
+        println!(
+            "no picture is likely to fit all of these tags (none above {:.0} %); the closest:",
+            LIKELY * 100.0
+        );
+    }
+    println!(
+        "{:>4}  {:>10}  {:>7}  {:<9}  picture",
+        "rank",
+        "similarity",
+        if chance { "fits" } else { "" },
+        what
+    );
     for (i, f) in found.iter().enumerate() {
         let how = if f.carries {
             "carries"
@@ -130,10 +146,14 @@ fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
         } else {
             "inferred*"
         };
+        let fits = f
+            .probability
+            .map_or_else(String::new, |p| format!("{:.0} %", p * 100.0));
         println!(
-            "{:>4}  {:>10.3}  {:<9}  {}",
+            "{:>4}  {:>10.3}  {:>7}  {:<9}  {}",
             i + 1,
             f.similarity,
+            fits,
             how,
             f.picture
         );

@@ -64,6 +64,10 @@ pub struct TagScore {
 pub struct Found {
     pub picture: String,
     pub similarity: f32,
+    /// `find`: the suggester's probability that the picture fits every asked tag (a tag
+    /// its sidecar carries counts as sure; the others are taken as independent).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub probability: Option<f32>,
     /// Whether the picture's sidecar carries every asked tag (`false`: inferred).
     pub carries: bool,
     pub tagged: bool,
@@ -284,11 +288,35 @@ impl Queries {
         Ok(mean_code(&chosen, self.codes.dim()))
     }
 
-    /// Pictures whose code is nearest the tags' code.
+    /// Pictures most likely to fit every tag: the code search picks candidates near
+    /// the tags' code ([`FIND_CANDIDATES`] per answer), the suggester's probabilities
+    /// rank them.
     pub fn find(&self, tags: &[String], ranking: Ranking) -> Result<Vec<Found>> {
         let query = self.code_of_tags(tags)?;
-        let wanted: Vec<String> = tags.iter().filter_map(|t| normalize_tag(t)).collect();
-        self.nearest(&query, ranking, None, &wanted)
+        let row = self.tag_row(tags)?;
+        let asked: Vec<usize> = (0..row.ncols()).filter(|&c| row[[0, c]] > 0.0).collect();
+        let wanted: Vec<String> = asked
+            .iter()
+            .map(|&c| self.trained.vocabulary[c].clone())
+            .collect();
+        let wide = Ranking {
+            limit: ranking.limit.saturating_mul(FIND_CANDIDATES),
+            ..ranking
+        };
+        let hits = self.nearest_rows(&query, wide, None)?;
+        let rows: Vec<usize> = hits
+            .iter()
+            .filter_map(|&(r, _)| self.item_of_code[r])
+            .collect();
+        let mut found = answers(hits, &self.item_of_code, &self.items, &wanted);
+        let probabilities = self.suggest_rows(&rows)?;
+        for ((f, &r), p) in found.iter_mut().zip(&rows).zip(probabilities.outer_iter()) {
+            let carried = &self.items[r].tags;
+            f.probability = Some(fits_all(&asked, &wanted, carried, &p.to_vec()));
+        }
+        rank_by_probability(&mut found);
+        found.truncate(ranking.limit);
+        Ok(found)
     }
 
     /// code(picture) − code(away tags) + code(toward tags), nearest pictures (never the
@@ -331,6 +359,17 @@ impl Queries {
         skip: Option<usize>,
         wanted: &[String],
     ) -> Result<Vec<Found>> {
+        let hits = self.nearest_rows(query, ranking, skip)?;
+        Ok(answers(hits, &self.item_of_code, &self.items, wanted))
+    }
+
+    /// (code row, similarity) of the nearest listable pictures.
+    fn nearest_rows(
+        &self,
+        query: &[f32],
+        ranking: Ranking,
+        skip: Option<usize>,
+    ) -> Result<Vec<(usize, f32)>> {
         let mode = if ranking.exact {
             SearchMode::Exact
         } else {
@@ -340,13 +379,41 @@ impl Queries {
         let hits = self.codes.search_where(query, ranking.limit, mode, |r| {
             listable(item_of_code[r], skip, ranking.untagged_only, &self.items)
         })?;
-        Ok(answers(
-            hits.into_iter().map(|hit| (hit.row, hit.similarity)),
-            item_of_code,
-            &self.items,
-            wanted,
-        ))
+        Ok(hits
+            .into_iter()
+            .map(|hit| (hit.row, hit.similarity))
+            .collect())
     }
+}
+
+/// Candidates the code search hands `find` for each answer asked for.
+pub const FIND_CANDIDATES: usize = 10;
+
+/// The chance a picture fits every asked tag (columns `asked`, names `wanted`): 1 for a
+/// tag its sidecar carries, the suggester's probability otherwise, multiplied.
+fn fits_all(asked: &[usize], wanted: &[String], carried: &[String], probabilities: &[f32]) -> f32 {
+    asked
+        .iter()
+        .zip(wanted)
+        .map(|(&c, tag)| {
+            if carried.contains(tag) {
+                1.0
+            } else {
+                probabilities[c].clamp(0.0, 1.0)
+            }
+        })
+        .product()
+}
+
+/// Most probable first; ties by similarity, then path.
+fn rank_by_probability(found: &mut [Found]) {
+    found.sort_by(|a, b| {
+        b.probability
+            .unwrap_or(0.0)
+            .total_cmp(&a.probability.unwrap_or(0.0))
+            .then(b.similarity.total_cmp(&a.similarity))
+            .then(a.picture.cmp(&b.picture))
+    });
 }
 
 /// The tags of `vocabulary` (model columns) with their probabilities, best first (ties by
@@ -416,6 +483,7 @@ fn answers(
             Some(Found {
                 picture: item.rel_path.clone(),
                 similarity,
+                probability: None,
                 carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
                 tagged: !item.tags.is_empty(),
             })
@@ -541,5 +609,36 @@ pub(crate) mod tests {
             !listable(Some(1), None, true, &items),
             "tagged, untagged asked for"
         );
+    }
+
+    // Worked by hand: asked night (column 0) and harbour (column 2); the picture carries
+    // harbour, so it counts 1; night at 0.6 → 0.6. Carrying neither: 0.6 · 0.5 = 0.3.
+    #[test]
+    fn fits_all_multiplies_and_trusts_carried_tags() {
+        let wanted = strings(&["night", "harbour"]);
+        let p = [0.6f32, 0.9, 0.5];
+        assert!((fits_all(&[0, 2], &wanted, &strings(&["harbour"]), &p) - 0.6).abs() < 1e-6);
+        assert!((fits_all(&[0, 2], &wanted, &[], &p) - 0.3).abs() < 1e-6);
+        // a score outside [0, 1] (no calibration) never makes a product above 1
+        assert_eq!(fits_all(&[0], &wanted[..1], &[], &[1.7]), 1.0);
+    }
+
+    #[test]
+    fn find_ranks_by_probability_then_similarity() {
+        let found = |picture: &str, similarity, probability| Found {
+            picture: picture.into(),
+            similarity,
+            probability: Some(probability),
+            carries: false,
+            tagged: false,
+        };
+        let mut list = vec![
+            found("a", 0.9, 0.2),
+            found("b", 0.5, 0.8),
+            found("c", 0.7, 0.8),
+        ];
+        rank_by_probability(&mut list);
+        let order: Vec<&str> = list.iter().map(|f| f.picture.as_str()).collect();
+        assert_eq!(order, ["c", "b", "a"]);
     }
 }

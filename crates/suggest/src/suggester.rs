@@ -89,6 +89,15 @@ impl Sources {
     }
 }
 
+/// `carried` as a 0/1 matrix of `n_tags` columns; columns beyond them are ignored.
+fn shown_matrix(carried: &[Vec<usize>], n_tags: usize) -> Array2<f32> {
+    let known: Vec<Vec<usize>> = carried
+        .iter()
+        .map(|c| c.iter().copied().filter(|&t| t < n_tags).collect())
+        .collect();
+    tag_matrix(&known, n_tags)
+}
+
 /// Fitted parts scoring one set of pictures: `carried` tags per picture (empty lists
 /// for pictures alone).
 fn sources(
@@ -99,7 +108,7 @@ fn sources(
     features: ArrayView2<f32>,
     carried: &[Vec<usize>],
 ) -> Result<Sources, SuggestError> {
-    let shown = tag_matrix(carried, network.n_tags());
+    let shown = shown_matrix(carried, network.n_tags());
     Ok(Sources {
         given: network.fill_in_tags_given(features, shown.view())?,
         readout: network.fill_in_tags(features)?,
@@ -236,7 +245,7 @@ impl TagSuggester {
         features: ArrayView2<f32>,
         carried: &[Vec<usize>],
     ) -> Result<Array2<f32>, SuggestError> {
-        let shown = tag_matrix(carried, self.network.n_tags());
+        let shown = shown_matrix(carried, self.network.n_tags());
         Ok(self.network.fill_in_tags_given(features, shown.view())?)
     }
 
@@ -420,6 +429,19 @@ mod tests {
             described.starts_with("h=") && described.contains(" completion w="),
             "{described}"
         );
+        // carried tags: none, every one, one the suggester never saw: finite answers
+        let all: Vec<usize> = (0..10).collect();
+        for carried in [vec![], all.clone(), vec![99], vec![0, 99]] {
+            let given = suggester
+                .suggest_given(test_x, &vec![carried.clone(); 60], &knn, &[])
+                .unwrap();
+            assert!(given.iter().all(|v| v.is_finite()), "{carried:?}");
+        }
+        let carried: Vec<Vec<usize>> = tags[180..].iter().map(|t| t[..1].to_vec()).collect();
+        let given = suggester
+            .suggest_given(test_x, &carried, &knn, &[])
+            .unwrap();
+        assert_eq!(given.dim(), (60, 10));
         // the kNN part rebuilt from the same rows gives the same suggestions
         let again = suggester
             .suggest(test_x, &suggester.neighbours(&train), &[])
