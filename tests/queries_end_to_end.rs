@@ -201,6 +201,29 @@ fn find_ranks_pictures_showing_both_tags_first() {
     assert!(mean_precision >= 0.6, "find precision@10 {mean_precision}");
 }
 
+// find says so when no picture is likely to fit: no demo picture shows snow in summer
+// (TRUTH.csv), while night harbour pictures abound.
+#[test]
+fn find_says_when_no_picture_is_likely_to_fit() {
+    let _serial = one_at_a_time();
+    let folder = &prepared().folder;
+    let truth = truth_by_file();
+    let both = |a: &str, b: &str| {
+        truth
+            .values()
+            .filter(|r| r.true_tags.iter().any(|t| t == a) && r.true_tags.iter().any(|t| t == b))
+            .count()
+    };
+    assert_eq!(both("snow", "summer"), 0, "the demo has no snow in summer");
+    let none = stdout_of(&tagweave(folder, &["find", "snow", "summer"]));
+    assert!(none.contains("no picture is likely to fit"), "{none}");
+    let found = succeeded(&tagweave(folder, &["find", "night", "harbour", "--json"]));
+    let best = found[0]["probability"].as_f64().unwrap();
+    assert!(best >= 0.5, "night harbour: best {best}");
+    let some = stdout_of(&tagweave(folder, &["find", "night", "harbour"]));
+    assert!(!some.contains("no picture is likely"), "{some}");
+}
+
 #[test]
 fn find_lists_untagged_pictures_only_when_asked_and_refuses_unknown_tags() {
     let _serial = one_at_a_time();

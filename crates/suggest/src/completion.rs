@@ -98,7 +98,7 @@ pub fn completion_lrap(scores: ArrayView2<f32>, reveal: &Reveal) -> f64 {
 
 /// Σ weightᵢ · sourceᵢ (sources of one shape). The sources are on one scale already,
 /// estimates of how likely each tag is; blending their ranks instead ranked worse
-/// (BENCHMARKS.md, "Tag completion").
+/// (BENCHMARKS.md, "tag completion").
 pub fn mix(sources: &[ArrayView2<f32>], weights: &[f32]) -> Array2<f32> {
     let mut out = Array2::zeros(sources.first().map_or((0, 0), |s| s.dim()));
     for (source, &w) in sources.iter().zip(weights) {

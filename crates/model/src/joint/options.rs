@@ -59,7 +59,7 @@ pub struct JointOptions {
     /// tags as evidence (a random subset of 1 … n − 1 of its n tags, drawn anew each
     /// epoch), while the read-out is still asked for all of them: the model is trained
     /// the way tag completion uses it. 0 = pictures alone (default 0.5; measured:
-    /// BENCHMARKS.md, "Tag completion").
+    /// BENCHMARKS.md, "tag completion").
     pub reveal_share: f32,
 }
 
