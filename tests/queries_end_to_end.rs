@@ -164,7 +164,8 @@ fn train_learns_from_every_tagged_picture_and_codes_all() {
 }
 
 // find: pairs of tags, precision of the first ten against the true scenes.
-// Measured 2026-12-03 at 7fdf279 (seed 7): mean 0.75 over these six pairs; a random
+// Measured 2026-12-03 (seed 7): mean 0.90 over these six pairs (0.75 when find ranked by
+// code similarity alone, 7fdf279); a random
 // ranking would score each pair's share of the archive, 0.01–0.12.
 #[test]
 fn find_ranks_pictures_showing_both_tags_first() {
@@ -201,22 +202,43 @@ fn find_ranks_pictures_showing_both_tags_first() {
     assert!(mean_precision >= 0.6, "find precision@10 {mean_precision}");
 }
 
-// find says so when no picture is likely to fit: no demo picture shows snow in summer
-// (TRUTH.csv), while night harbour pictures abound.
+// find says so when no picture is likely to fit. The nine tag pairs no demo picture has, by
+// TRUTH.csv and by its sidecars (a sidecar carrying both would be listed first, as a person's
+// record). Measured 2026-12-03: eight of nine answered "no picture is likely to fit"; spring
+// and summer were not (84 % for an untagged picture: the model does not know seasons exclude
+// each other).
 #[test]
 fn find_says_when_no_picture_is_likely_to_fit() {
     let _serial = one_at_a_time();
     let folder = &prepared().folder;
     let truth = truth_by_file();
-    let both = |a: &str, b: &str| {
-        truth
-            .values()
-            .filter(|r| r.true_tags.iter().any(|t| t == a) && r.true_tags.iter().any(|t| t == b))
-            .count()
-    };
-    assert_eq!(both("snow", "summer"), 0, "the demo has no snow in summer");
-    let none = stdout_of(&tagweave(folder, &["find", "snow", "summer"]));
-    assert!(none.contains("no picture is likely to fit"), "{none}");
+    let impossible = [
+        ["autumn", "spring"],
+        ["autumn", "summer"],
+        ["clear", "fog"],
+        ["dusk", "night"],
+        ["fog", "rain"],
+        ["fog", "snow"],
+        ["rain", "snow"],
+        ["spring", "summer"],
+        ["spring", "winter"],
+    ];
+    let mut answered_none = Vec::new();
+    for [a, b] in impossible {
+        let both = |tags: &[String]| tags.iter().any(|t| t == a) && tags.iter().any(|t| t == b);
+        assert!(
+            !truth
+                .values()
+                .any(|r| both(&r.true_tags) || both(&r.written_tags)),
+            "no picture is {a} and {b}"
+        );
+        let out = stdout_of(&tagweave(folder, &["find", a, b]));
+        if out.contains("no picture is likely to fit") {
+            answered_none.push(format!("{a}+{b}"));
+        }
+    }
+    eprintln!("find: no likely fit for {answered_none:?}");
+    assert!(answered_none.len() >= 8, "{answered_none:?}");
     let found = succeeded(&tagweave(folder, &["find", "night", "harbour", "--json"]));
     let best = found[0]["probability"].as_f64().unwrap();
     assert!(best >= 0.5, "night harbour: best {best}");
@@ -245,7 +267,7 @@ fn find_lists_untagged_pictures_only_when_asked_and_refuses_unknown_tags() {
 }
 
 // shift: day harbour pictures moved from day toward night.
-// Measured 2026-12-03 at 7fdf279: mean precision@10 of "night and harbour" 0.36 over the
+// Measured 2026-12-03: mean precision@10 of "night and harbour" 0.45 (0.36 at 7fdf279) over the
 // first eight starts; night-and-harbour pictures are 25 of 400 (0.06).
 #[test]
 fn shift_moves_day_harbours_toward_night_harbours() {
@@ -279,7 +301,8 @@ fn shift_moves_day_harbours_toward_night_harbours() {
 }
 
 // suggest: tags removed from sidecars on purpose come back in the top five.
-// Measured 2026-12-03 at 7fdf279: 32 of 35 (0.91).
+// Measured 2026-12-03: 31 of 35 (0.89), the picture's other tags as evidence; 32 of 35 from
+// the picture alone at 7fdf279.
 #[test]
 fn suggest_brings_back_tags_removed_on_purpose() {
     let _serial = one_at_a_time();

@@ -176,6 +176,12 @@ impl Queries {
     /// picture itself.
     pub fn suggest_rows(&self, rows: &[usize]) -> Result<Array2<f32>> {
         let carried: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        self.suggest_given_columns(rows, &carried)
+    }
+
+    /// Tag probabilities for indexed pictures (rows), each given the tag columns
+    /// `carried[i]` as evidence (none: from the picture alone).
+    fn suggest_given_columns(&self, rows: &[usize], carried: &[Vec<usize>]) -> Result<Array2<f32>> {
         let (partly, alone): (Vec<usize>, Vec<usize>) =
             (0..rows.len()).partition(|&i| !carried[i].is_empty());
         let mut out = Array2::zeros((rows.len(), self.columns.len()));
@@ -309,10 +315,28 @@ impl Queries {
             .filter_map(|&(r, _)| self.item_of_code[r])
             .collect();
         let mut found = answers(hits, &self.item_of_code, &self.items, &wanted);
-        let probabilities = self.suggest_rows(&rows)?;
-        for ((f, &r), p) in found.iter_mut().zip(&rows).zip(probabilities.outer_iter()) {
-            let carried = &self.items[r].tags;
-            f.probability = Some(fits_all(&asked, &wanted, carried, &p.to_vec()));
+        // Chain rule: P(t1, t2, …) = P(t1) · P(t2 | t1) · …, each asked tag judged with the
+        // picture's own tags and the asked ones before it as evidence.
+        let mut chance = vec![1.0f32; rows.len()];
+        let mut assumed: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        for (&column, tag) in asked.iter().zip(&wanted) {
+            let p = self.suggest_given_columns(&rows, &assumed)?;
+            for (i, &r) in rows.iter().enumerate() {
+                let carried = &self.items[r].tags;
+                chance[i] *= fits_all(
+                    &[column],
+                    std::slice::from_ref(tag),
+                    carried,
+                    &p.row(i).to_vec(),
+                );
+                if !assumed[i].contains(&column) {
+                    assumed[i].push(column);
+                    assumed[i].sort_unstable();
+                }
+            }
+        }
+        for (f, c) in found.iter_mut().zip(chance) {
+            f.probability = Some(c);
         }
         rank_by_probability(&mut found);
         found.truncate(ranking.limit);
