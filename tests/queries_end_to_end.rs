@@ -327,6 +327,11 @@ fn suggest_brings_back_tags_removed_on_purpose() {
             row.written_tags.iter().all(|t| !got.contains(t.as_str())),
             "carried tags are not suggested again"
         );
+        // the tags taken as evidence are the picture's own (all or none of them: the
+        // trained blend either weighs carried tags or, where they told it nothing, not)
+        let carried: BTreeSet<&str> = strings_of(&a["carried"]);
+        let evidence: BTreeSet<&str> = strings_of(&a["evidence"]);
+        assert!(evidence.is_empty() || evidence == carried, "{a}");
         removed += row.removed_tags.len();
         back += row
             .removed_tags
@@ -529,5 +534,13 @@ fn tags_by_picture(folder: &Path) -> BTreeMap<String, BTreeSet<String>> {
         .unwrap()
         .into_iter()
         .map(|item| (item.rel_path, item.tags.into_iter().collect()))
+        .collect()
+}
+
+fn strings_of(list: &Value) -> BTreeSet<&str> {
+    list.as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap())
         .collect()
 }

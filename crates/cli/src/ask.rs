@@ -263,7 +263,10 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
             if !a.carried.is_empty() {
                 println!("  carries   {}", a.carried.join(", "));
                 if a.evidence.is_empty() {
-                    println!("            (none of them known to the model: judged from the picture alone)");
+                    println!(
+                        "  judged from the picture alone (the model learned nothing from these \
+                         tags about the others, or does not know them)"
+                    );
                 } else {
                     println!(
                         "  judged from the picture and its tags {}",

@@ -209,8 +209,12 @@ impl Queries {
     }
 
     /// The tags of an indexed picture that the model takes as evidence when it
-    /// suggests more: those it carries and the model knows.
+    /// suggests more: those it carries and the model knows. Empty when the trained
+    /// blend gives carried tags no weight (its validation fold found them uninformative).
     pub fn evidence(&self, row: usize) -> Vec<String> {
+        if !self.trained.suggester.completion_uses_tags() {
+            return Vec::new();
+        }
         self.evidence_columns(row)
             .into_iter()
             .map(|c| self.trained.vocabulary[c].clone())

@@ -238,6 +238,13 @@ impl TagSuggester {
         Ok(calibrated(blended, &self.completion.calibration))
     }
 
+    /// Whether the completion blend gives carried tags any weight (through the network
+    /// given them or through co-occurrence); where the validation fold found them
+    /// uninformative it gives them none.
+    pub fn completion_uses_tags(&self) -> bool {
+        self.completion.weights[0] > 0.0 || self.completion.weights[4] > 0.0
+    }
+
     /// The network alone given pictures and the tags they carry, uncalibrated: the
     /// joint model's own answer, reported beside the blend.
     pub fn network_given(
