@@ -219,6 +219,17 @@ impl Report {
     }
 }
 
+impl Report {
+    /// The report with every timing zeroed, to compare runs.
+    pub fn without_timings(mut self) -> Report {
+        self.methods.values_mut().for_each(|m| m.seconds = 0.0);
+        if let Some(c) = &mut self.completion {
+            c.methods.values_mut().for_each(|m| m.seconds = 0.0);
+        }
+        self
+    }
+}
+
 impl Completion {
     const COLUMNS: [&'static str; 7] =
         ["method", "settings", "LRAP", "P@1", "P@5", "R@5", "seconds"];

@@ -61,13 +61,9 @@ fn informative_features_rank_baselines_as_expected() {
 #[test]
 fn same_seed_same_numbers() {
     let (x, tags, keys) = collection(120, 8);
-    let strip = |mut r: Report| {
-        r.methods.values_mut().for_each(|m| m.seconds = 0.0);
-        r
-    };
-    let a = strip(run(&x, &tags, &keys, 3));
-    assert_eq!(a, strip(run(&x, &tags, &keys, 3)));
-    assert_ne!(a, strip(run(&x, &tags, &keys, 4)));
+    let a = run(&x, &tags, &keys, 3).without_timings();
+    assert_eq!(a, run(&x, &tags, &keys, 3).without_timings());
+    assert_ne!(a, run(&x, &tags, &keys, 4).without_timings());
 }
 
 type Seen = Rc<RefCell<Vec<(Array2<f32>, Vec<Vec<usize>>)>>>;
@@ -222,10 +218,15 @@ fn methods_never_see_held_out_tags() {
     );
     // scoring sees test features only, standardised with the train statistics
     let scored = scored.borrow();
-    assert_eq!(
-        scored[0].0,
-        standardiser.apply(x.select(Axis(0), &parts.test).view())
-    );
+    // (the first call scores the completion protocol's rows, a subset of the test rows;
+    // the last one every test picture)
+    let test_x = standardiser.apply(x.select(Axis(0), &parts.test).view());
+    assert_eq!(scored.last().unwrap().0, test_x);
+    for (rows, _) in scored.iter() {
+        assert!(rows
+            .outer_iter()
+            .all(|r| test_x.outer_iter().any(|t| t == r)));
+    }
 }
 
 #[test]
@@ -285,7 +286,7 @@ fn report_serialises_and_renders() {
     assert_eq!(progress.len(), 6);
     let json = serde_json::to_value(&r).unwrap();
     let top: Vec<&String> = json.as_object().unwrap().keys().collect();
-    assert_eq!(top, ["methods", "split"]);
+    assert_eq!(top, ["completion", "methods", "split"]);
     let methods: Vec<&String> = json["methods"].as_object().unwrap().keys().collect();
     assert_eq!(methods, ["knn", "prior", "ridge"]);
     for key in ["seed", "train", "test", "vocabulary", "unseen_test_tags"] {
@@ -313,9 +314,12 @@ fn report_serialises_and_renders() {
     );
     let md = r.to_markdown();
     assert!(md.contains("| method | settings | LRAP |"));
-    assert_eq!(md.lines().filter(|l| l.starts_with('|')).count(), 5);
+    // two tables: pictures alone and tag completion, each a header, a rule and 3 methods
+    assert_eq!(md.lines().filter(|l| l.starts_with('|')).count(), 10);
+    assert!(md.contains("tag completion:"));
     let table = r.to_table();
-    assert_eq!(table.lines().count(), 5);
+    // summary, header, 3 methods; a blank line, the completion summary, header, 3 methods
+    assert_eq!(table.lines().count(), 11);
     assert!(table.lines().nth(2).unwrap().starts_with("knn "));
 
     let audit = crate::Audit {
@@ -338,7 +342,7 @@ fn report_serialises_and_renders() {
     let md = r.to_markdown();
     assert!(md.contains("| method | known-mislabel AUC | precision in top 1 |\n| --- | --- | --- |\n| knn | 1.000 | 1.000 |\n| prior | 0.500 | 0.333 |\n"), "{md}");
     let table = r.to_table();
-    assert_eq!(table.lines().count(), 5 + 5);
+    assert_eq!(table.lines().count(), 11 + 5);
     assert!(table.ends_with("\nmethod  known-mislabel AUC  precision in top 1\nknn                  1.000               1.000\nprior                0.500               0.333\n"), "{table}");
 }
 
