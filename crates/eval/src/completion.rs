@@ -6,16 +6,14 @@
 use ndarray::{Array2, ArrayView2, Axis};
 use serde::Serialize;
 use tagweave_suggest::{
-    best_weights, completion_lrap, grouped_folds, mix, reveal_half, unrevealed, weight_grid,
-    Reveal, RidgeScorer, SuggestError, TagCooccurrence, TrainRows, TrainSet,
+    best_weights, completion_lrap, mix, unrevealed, validation_fold, validation_reveal,
+    weight_grid, Reveal, RidgeScorer, SuggestError, TagCooccurrence, TrainRows, TrainSet,
 };
 
 use crate::metrics::{label_ranking_average_precision, mean, precision_at_k, recall_at_k};
 use crate::{EvalError, TagScorer, SUGGESTIONS};
 
-/// Folds of the train pictures of which one chooses the blend weight (about 14 %).
-const VALIDATION_FOLDS: usize = 7;
-/// Offset deriving the validation fold's reveal from the fit seed.
+/// Offset deriving this baseline's reveal of the validation fold from the fit seed.
 const VALIDATION_REVEAL_SEED: u64 = 0x626c_656e;
 
 /// How well the hidden tags are ranked, the revealed ones left out of the ranking.
@@ -158,18 +156,12 @@ impl TagScorer for RidgeCooccurrenceBlend {
     }
 }
 
-/// The first grouped fold of `train`: fit rows, validation rows with two or more tags,
-/// and their reveal.
+/// The suggester's validation fold of `train`: fit rows, validation rows with two or more
+/// tags, and their reveal (a stream of its own).
 fn validation(train: &TrainSet) -> Option<(Vec<usize>, Vec<usize>, Reveal)> {
-    let val = grouped_folds(train.groups, VALIDATION_FOLDS, train.seed)
-        .into_iter()
-        .next()?;
-    let fit: Vec<usize> = (0..train.tags.len())
-        .filter(|i| val.binary_search(i).is_err())
-        .collect();
-    let lists: Vec<Vec<usize>> = val.iter().map(|&i| train.tags[i].clone()).collect();
-    let (kept, reveal) = reveal_half(&lists, train.seed ^ VALIDATION_REVEAL_SEED);
-    (!kept.is_empty()).then(|| (fit, kept.iter().map(|&k| val[k]).collect(), reveal))
+    let (fit, val) = validation_fold(train)?;
+    let (rows, reveal) = validation_reveal(train, &val, VALIDATION_REVEAL_SEED)?;
+    Some((fit, rows, reveal))
 }
 
 #[cfg(test)]

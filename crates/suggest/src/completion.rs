@@ -16,8 +16,8 @@ use crate::TrainSet;
 /// the fine-tuning length, the blends and the calibrations: about 14 %.
 pub(crate) const VALIDATION_FOLDS: usize = 7;
 
-/// Offset deriving the reveal stream of a validation fold from the fit seed.
-const VALIDATION_REVEAL_SEED: u64 = 0x7265_7661;
+/// Offset deriving the suggester's reveal of its validation fold from the fit seed.
+pub(crate) const VALIDATION_REVEAL_SEED: u64 = 0x7265_7661;
 
 /// Which tags of each picture are shown and which are to be found (sorted lists).
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -53,7 +53,7 @@ pub fn reveal_half(lists: &[Vec<usize>], seed: u64) -> (Vec<usize>, Reveal) {
 
 /// The first grouped validation fold of `train`: (fit rows, validation rows).
 /// `None` when the train pictures are too few to hold a fold out.
-pub(crate) fn validation_fold(train: &TrainSet) -> Option<(Vec<usize>, Vec<usize>)> {
+pub fn validation_fold(train: &TrainSet) -> Option<(Vec<usize>, Vec<usize>)> {
     let val = grouped_folds(train.groups, VALIDATION_FOLDS, train.seed)
         .into_iter()
         .next()?;
@@ -64,10 +64,15 @@ pub(crate) fn validation_fold(train: &TrainSet) -> Option<(Vec<usize>, Vec<usize
 }
 
 /// Of the validation rows `val`, those with two or more tags, each revealing ⌊n/2⌋
-/// of them; `None` when no validation picture has two tags.
-pub(crate) fn validation_reveal(train: &TrainSet, val: &[usize]) -> Option<(Vec<usize>, Reveal)> {
+/// of them (drawn with `train.seed ^ stream`); `None` when no validation picture has
+/// two tags.
+pub fn validation_reveal(
+    train: &TrainSet,
+    val: &[usize],
+    stream: u64,
+) -> Option<(Vec<usize>, Reveal)> {
     let lists: Vec<Vec<usize>> = val.iter().map(|&i| train.tags[i].clone()).collect();
-    let (kept, reveal) = reveal_half(&lists, train.seed ^ VALIDATION_REVEAL_SEED);
+    let (kept, reveal) = reveal_half(&lists, train.seed ^ stream);
     (!kept.is_empty()).then(|| (kept.iter().map(|&k| val[k]).collect(), reveal))
 }
 

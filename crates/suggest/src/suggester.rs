@@ -9,7 +9,7 @@ use tagweave_model::{JointModel, JointOptions, JointProgress};
 
 use crate::completion::{
     best_weights, completion_lrap, mix, unrevealed, validation_fold, validation_reveal,
-    weight_grid, Reveal, TagCooccurrence,
+    weight_grid, Reveal, TagCooccurrence, VALIDATION_REVEAL_SEED,
 };
 use crate::ranking::{label_ranking_average_precision, mean};
 use crate::train_set::{tag_matrix, TrainRows};
@@ -335,25 +335,26 @@ fn choose(
     let calibration = Calibration::fit(&blended.iter().copied().collect::<Vec<_>>(), &correct);
 
     // Pictures carrying half of their tags.
-    let (completion_weights, completion_calibration) = match validation_reveal(train, val) {
-        Some((rows, reveal)) => {
-            let x = train.features.select(Axis(0), &rows);
-            let parts = sources(
-                &network,
-                &ridge,
-                knn.score(x.view())?,
-                &cooccurrence,
-                x.view(),
-                &reveal.revealed,
-            )?;
-            let weights = best_weights(&weight_grid(5), &parts.completion(), |s| {
-                completion_lrap(s, &reveal)
-            });
-            let blended = mix(&parts.completion(), &weights);
-            (weights, hidden_calibration(blended.view(), &reveal))
-        }
-        None => (vec![0.2; 5], None),
-    };
+    let (completion_weights, completion_calibration) =
+        match validation_reveal(train, val, VALIDATION_REVEAL_SEED) {
+            Some((rows, reveal)) => {
+                let x = train.features.select(Axis(0), &rows);
+                let parts = sources(
+                    &network,
+                    &ridge,
+                    knn.score(x.view())?,
+                    &cooccurrence,
+                    x.view(),
+                    &reveal.revealed,
+                )?;
+                let weights = best_weights(&weight_grid(5), &parts.completion(), |s| {
+                    completion_lrap(s, &reveal)
+                });
+                let blended = mix(&parts.completion(), &weights);
+                (weights, hidden_calibration(blended.view(), &reveal))
+            }
+            None => (vec![0.2; 5], None),
+        };
     Ok(Choice {
         epochs: summary.kept_epoch + 1,
         picture_weights: to_array(&picture_weights),
