@@ -367,7 +367,8 @@ fn suggest_describes_a_picture_from_outside_the_collection_on_the_fly() {
 }
 
 // audit: pictures given a false tag on purpose rank high.
-// Measured 2026-12-03 at 7fdf279: ROC AUC 0.83 over the 359 tagged pictures (15 falsified).
+// Measured 2026-12-03: ROC AUC 0.878 over the 359 tagged pictures (15 falsified), 8 of them
+// in the first 10 (judged by similar pictures alone: 0.833 and 1).
 #[test]
 fn audit_ranks_pictures_with_a_false_tag_high() {
     let _serial = one_at_a_time();
@@ -396,8 +397,18 @@ fn audit_ranks_pictures_with_a_false_tag_high() {
         .map(|p| !truth[*p].false_tags.is_empty())
         .collect();
     let auc = rank_auc(&falsified);
-    eprintln!("audit: ROC AUC of the falsified pictures {auc:.3}");
-    assert!(auc >= 0.75, "audit AUC {auc}");
+    let first_ten = falsified.iter().take(10).filter(|&&f| f).count();
+    eprintln!("audit: ROC AUC of the falsified pictures {auc:.3}, {first_ten} in the first 10");
+    assert!(auc >= 0.85, "audit AUC {auc}");
+    assert!(
+        first_ten >= 5,
+        "{first_ten} falsified pictures in the first 10"
+    );
+    // The queue says how it weighed its evidence, chosen without the truth file.
+    let mix = &audit["mix"];
+    let weights = mix["neighbours"].as_f64().unwrap() + mix["other_tags"].as_f64().unwrap();
+    assert!((weights - 1.0).abs() < 1e-6, "{mix}");
+    assert!(mix["added_tag_auc"].as_f64().unwrap() > 0.5, "{mix}");
 }
 
 // apply: a person accepts right suggestions for untagged pictures and removes one false

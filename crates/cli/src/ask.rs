@@ -4,7 +4,7 @@ use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
 use serde::Serialize;
-use tagweave_query::{Dispute, Found, Queries, Ranking, TagScore};
+use tagweave_query::{Dispute, EvidenceMix, Found, Queries, Ranking, TagScore};
 use tagweave_store::Store;
 use tagweave_writeback::{write_sheet, Decision, RowKind, SheetRow};
 
@@ -309,6 +309,22 @@ fn answer(
     }
 }
 
+/// How the queue weighed its evidence, in words.
+fn describe_mix(mix: &EvidenceMix) -> String {
+    let tested = mix.added_tag_auc.map_or_else(String::new, |auc| {
+        format!(
+            "; with these weights a tag added at random ranks above the real ones {:.0} % of \
+             the time",
+            auc * 100.0
+        )
+    });
+    format!(
+        "(doubt weighed {:.0} % on similar pictures, {:.0} % on the picture's other tags{tested})",
+        mix.neighbours * 100.0,
+        mix.other_tags * 100.0
+    )
+}
+
 fn print_sheet_note(store: &Store, path: &Path, rows: usize) {
     println!();
     println!(
@@ -325,7 +341,8 @@ fn print_sheet_note(store: &Store, path: &Path, rows: usize) {
 
 pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
     let (store, queries) = open(&args.store)?;
-    let disputes: Vec<Dispute> = queries.audit()?;
+    let audit = queries.audit()?;
+    let disputes: &[Dispute] = &audit.queue;
     let flagged: Vec<&Dispute> = disputes.iter().filter(|d| !d.disputed.is_empty()).collect();
     let mut rows = Vec::new();
     for d in &flagged {
@@ -333,7 +350,7 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
             rows.push(SheetRow {
                 picture: d.picture.clone(),
                 tag: t.tag.clone(),
-                probability: Some(t.neighbours_carrying),
+                probability: Some(t.support),
                 kind: RowKind::Disputed,
                 decision: Decision::Undecided,
             });
@@ -357,6 +374,7 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
             serde_json::json!({
                 "judged": disputes.len(),
                 "flagged": flagged.len(),
+                "mix": audit.mix,
                 "queue": shown,
                 "sheet": { "path": args.sheet, "rows": rows.len() },
             })
@@ -364,19 +382,22 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
         return Ok(Outcome::Done);
     }
     println!(
-        "{} of {} tagged pictures carry a tag their picture does not support; worst first:",
+        "{} of {} tagged pictures carry a tag that few similar pictures, or few pictures with \
+         the same other tags, carry; worst first:",
         flagged.len(),
         disputes.len()
     );
+    println!("{}", describe_mix(&audit.mix));
     for (i, d) in flagged.iter().take(args.limit).enumerate() {
         let disputed: Vec<String> = d
             .disputed
             .iter()
             .map(|t| {
                 format!(
-                    "{} (on {:.0} % of similar pictures)",
+                    "{} (on {:.0} % of similar pictures, {:.0} % of pictures with its other tags)",
                     t.tag,
-                    t.neighbours_carrying * 100.0
+                    t.neighbours_carrying * 100.0,
+                    t.with_its_other_tags * 100.0
                 )
             })
             .collect();

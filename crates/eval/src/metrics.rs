@@ -12,8 +12,10 @@ use ndarray::{Array2, ArrayView2};
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-pub use tagweave_suggest::ranking::{column_midranks, label_ranking_average_precision, mean};
-use tagweave_suggest::ranking::{midranks, tied_blocks_desc, to_f64};
+pub use tagweave_suggest::ranking::{
+    column_midranks, label_ranking_average_precision, mean, roc_auc,
+};
+use tagweave_suggest::ranking::{tied_blocks_desc, to_f64};
 
 /// Queries (tags or tag pairs) need at least this many relevant test
 /// pictures: with a single one, AP is just a reciprocal rank and very noisy.
@@ -232,24 +234,6 @@ pub fn pair_search_map(
     })
 }
 
-/// Area under the ROC curve: the fraction of (positive, negative) pairs in
-/// which the positive scores higher, a tie counting one half (Mann–Whitney
-/// U / (P·N), computed from mid-ranks). `None` without both classes.
-pub fn roc_auc(scores: &[f64], positive: &[bool]) -> Option<f64> {
-    let p = positive.iter().filter(|&&x| x).count();
-    let n = positive.len() - p;
-    if p == 0 || n == 0 {
-        return None;
-    }
-    let rank_sum: f64 = midranks(scores)
-        .iter()
-        .zip(positive)
-        .filter(|(_, &x)| x)
-        .map(|(r, _)| r)
-        .sum();
-    Some((rank_sum - (p * (p + 1)) as f64 / 2.0) / (p * n) as f64)
-}
-
 /// Precision among the `count` highest scores (expected value under random
 /// tie-breaking at the cut). With `count` = number of true positives this is
 /// also the recall there ("R-precision"). `None` when `count` is 0.
@@ -425,23 +409,6 @@ mod tests {
         let two = select_pairs(truth.view(), 2, 1);
         assert_eq!(two.len(), 2);
         assert_eq!(two, select_pairs(truth.view(), 2, 1));
-    }
-
-    #[test]
-    fn roc_auc_counts_ties_half() {
-        // worked by hand: positives score 0.5, 0.9, 0.2; negatives 0.2, 0.5, 0.1.
-        //   0.5 vs (0.2, 0.5, 0.1) → 1 + ½ + 1 = 2.5;  0.9 → 3;  0.2 → ½ + 0 + 1 = 1.5
-        //   AUC = 7 / 9 = 0.7777…
-        // source: cross-checked with scikit-learn 1.9.1
-        //   roc_auc_score([0,1,0,1,1,0], [0.2,0.5,0.5,0.9,0.2,0.1]) = 0.7777777777777778;
-        //   roc_auc_score([0,0,1,1], [0.1,0.4,0.35,0.8]) = 0.75 (docs example)
-        let auc = roc_auc(&[0.2, 0.5, 0.5, 0.9, 0.2, 0.1], &mask(&[0, 1, 0, 1, 1, 0])).unwrap();
-        close(auc, 7.0 / 9.0);
-        close(
-            roc_auc(&[0.1, 0.4, 0.35, 0.8], &mask(&[0, 0, 1, 1])).unwrap(),
-            0.75,
-        );
-        assert_eq!(roc_auc(&[0.3, 0.4], &[true, true]), None);
     }
 
     #[test]

@@ -1,111 +1,229 @@
-//! The review queue: tagged pictures whose tags their picture does not support.
+//! The review queue: tagged pictures carrying a tag that neither their picture nor their
+//! other tags support.
+//!
+//! Each carried tag is judged by two kinds of evidence that never saw the picture's own
+//! tags: the share of its most similar tagged pictures carrying the tag (leave one
+//! picture out), and how often the picture's *other* tags come with it on the other
+//! tagged pictures (tag co-occurrence, the picture's own row taken out of the counts).
+//! Their mix is chosen on the collection itself: every tagged picture is judged once as
+//! it is and once with one tag it does not carry added at random, and the weight that
+//! best ranks the altered copies first wins. People's tags are never the test here.
 
-use ndarray::{Array2, ArrayView2};
+use ndarray::ArrayView2;
+use rand::seq::IndexedRandom;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 use tagweave_collection::ItemRecord;
-use tagweave_suggest::ranking::column_midranks;
-use tagweave_suggest::TagColumns;
+use tagweave_suggest::ranking::roc_auc;
+use tagweave_suggest::{TagColumns, TagCounts};
 
 use crate::{tag_scores, Queries, Result, TagScore};
 
-/// Carried tags that fewer than this (similarity-weighted) share of the picture's
-/// most similar pictures carry are listed as disputed.
+/// Carried tags whose mixed support is under this are listed as doubtful.
 const DISPUTED_BELOW: f32 = 0.05;
 /// Weight of the mean doubt over all carried tags in the score: breaks ties between
-/// pictures whose worst tag has the same neighbour support (often none at all).
+/// pictures whose worst tag has the same support (often none at all).
 const TIE_WEIGHT: f64 = 1e-3;
 /// Proposed tags: not carried, at least this probable.
 const PROPOSED_FROM: f32 = 0.5;
 /// Most proposals listed per picture.
 const PROPOSED_MAX: usize = 3;
+/// Seed of the tags added at random to choose the mix: the same store gives the same queue.
+const ADDED_TAG_SEED: u64 = 0x6175_6469;
+/// Neighbour weights tried for the mix (the rest goes to the other tags).
+const NEIGHBOUR_WEIGHTS: [f32; 5] = [0.0, 0.25, 0.5, 0.75, 1.0];
 
-/// One carried tag the picture does not support.
+/// One carried tag and how well it is supported.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct DisputedTag {
     pub tag: String,
     /// Similarity-weighted share of the picture's most similar pictures carrying it.
     pub neighbours_carrying: f32,
-    /// Where the picture stands among all tagged pictures for this tag, in (0, 1):
-    /// near 0 = hardly any picture fits the tag worse.
-    pub standing: f64,
+    /// Share of the other tagged pictures with the picture's other tags that carry it too
+    /// (the least over those tags; the tag's frequency when it is the picture's only tag).
+    pub with_its_other_tags: f32,
+    /// The two mixed by the queue's weights (a weighted geometric mean): the doubt is
+    /// 1 − support.
+    pub support: f32,
 }
 
 /// A picture in the review queue.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Dispute {
     pub picture: String,
-    /// 1 − the neighbour support of its least-supported tag (ties broken by the mean
-    /// over its tags): higher = review first.
+    /// 1 − the support of its least-supported tag (ties broken by the mean over its
+    /// tags): higher = review first.
     pub score: f64,
     pub disputed: Vec<DisputedTag>,
     /// Tags the picture does not carry but probably should.
     pub proposed: Vec<TagScore>,
 }
 
+/// How the queue weighs its two kinds of evidence, and how well that mix found tags
+/// added at random to the collection's own pictures.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct EvidenceMix {
+    /// Weight of the similar pictures; the picture's other tags get the rest.
+    pub neighbours: f32,
+    pub other_tags: f32,
+    /// ROC AUC of the copies with an added tag against the pictures as they are
+    /// (`None` when there was nothing to compare, e.g. a single tag in the collection).
+    pub added_tag_auc: Option<f64>,
+}
+
+/// The review queue, worst first, and the mix that ordered it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Audit {
+    pub mix: EvidenceMix,
+    pub queue: Vec<Dispute>,
+}
+
 impl Queries {
     /// Every tagged picture judged without leaning on its own tags, worst first.
     ///
-    /// A picture is ranked by its MOST disputed tag, not the mean over its tags: one
+    /// A picture is ranked by its MOST doubtful tag, not the mean over its tags: one
     /// wrong tag among several right ones is the usual mistake, and a mean hides it.
-    /// Standings are ranks within each tag's column, so rare and common tags compare.
-    pub fn audit(&self) -> Result<Vec<Dispute>> {
+    pub fn audit(&self) -> Result<Audit> {
         let rows: Vec<usize> = (0..self.items.len())
             .filter(|&i| !self.items[i].tags.is_empty())
             .collect();
         if rows.is_empty() {
-            return Ok(Vec::new());
+            return Ok(Audit {
+                mix: EvidenceMix {
+                    neighbours: 1.0,
+                    other_tags: 0.0,
+                    added_tag_auc: None,
+                },
+                queue: Vec::new(),
+            });
         }
         let probabilities = self.suggest_rows(&rows)?;
         let shares = self.neighbour_shares(&rows)?;
-        Ok(self.disputes(&rows, &probabilities, &shares))
-    }
-
-    /// `probabilities` propose missing tags; `shares` (leave-one-out: the model's
-    /// read-out has seen every tagged picture's tags, its neighbours have not) judge
-    /// the carried ones.
-    fn disputes(
-        &self,
-        rows: &[usize],
-        probabilities: &Array2<f32>,
-        shares: &Array2<f32>,
-    ) -> Vec<Dispute> {
+        let lists: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());
+        let mix = evidence.choose_mix();
         let judged: Vec<&ItemRecord> = rows.iter().map(|&i| &self.items[i]).collect();
-        rank_disputes(&judged, &self.columns, probabilities.view(), shares.view())
+        let queue = rank_disputes(&judged, &self.columns, probabilities.view(), &evidence, mix);
+        Ok(Audit { mix, queue })
     }
 }
 
-/// Row `r` of `probabilities` and `shares` belongs to `pictures[r]`; columns are
+/// Per judged picture: its carried tag columns and, for each, the two supports.
+struct Evidence<'a> {
+    lists: &'a [Vec<usize>],
+    shares: ArrayView2<'a, f32>,
+    counts: TagCounts,
+    /// `with_other_tags[r][k]`: co-occurrence support of `lists[r][k]`.
+    with_other_tags: Vec<Vec<f32>>,
+}
+
+impl<'a> Evidence<'a> {
+    fn gather(lists: &'a [Vec<usize>], shares: ArrayView2<'a, f32>, n_tags: usize) -> Self {
+        let counts = TagCounts::count(lists, n_tags);
+        let with_other_tags = lists
+            .iter()
+            .map(|list| counts.support_without(list, list))
+            .collect();
+        Evidence {
+            lists,
+            shares,
+            counts,
+            with_other_tags,
+        }
+    }
+
+    /// The neighbour weight whose queue best ranks each picture with one added tag
+    /// (drawn at random among the tags it does not carry) above the pictures as they
+    /// are; the first of equals, so a collection with nothing to learn from keeps the
+    /// neighbours.
+    fn choose_mix(&self) -> EvidenceMix {
+        let n_tags = self.shares.ncols();
+        let mut rng = ChaCha8Rng::seed_from_u64(ADDED_TAG_SEED);
+        // (neighbour shares, co-occurrence supports) of each picture's tags, as it is
+        // and with an added tag.
+        let mut cases: Vec<(Vec<f32>, Vec<f32>, bool)> = Vec::new();
+        for (r, list) in self.lists.iter().enumerate() {
+            let absent: Vec<usize> = (0..n_tags).filter(|c| !list.contains(c)).collect();
+            let Some(&added) = absent.choose(&mut rng) else {
+                continue;
+            };
+            let shares_of = |tags: &[usize]| tags.iter().map(|&c| self.shares[[r, c]]).collect();
+            cases.push((shares_of(list), self.with_other_tags[r].clone(), false));
+            let altered = [list.as_slice(), &[added]].concat();
+            let supports = self.counts.support_without(&altered, list);
+            cases.push((shares_of(&altered), supports, true));
+        }
+        let added: Vec<bool> = cases.iter().map(|c| c.2).collect();
+        let mut best = EvidenceMix {
+            neighbours: 1.0,
+            other_tags: 0.0,
+            added_tag_auc: None,
+        };
+        for w in NEIGHBOUR_WEIGHTS.iter().rev() {
+            let scores: Vec<f64> = cases
+                .iter()
+                .map(|(s, o, _)| review_score(&doubts(s, o, *w)))
+                .collect();
+            let auc = roc_auc(&scores, &added);
+            if auc > best.added_tag_auc {
+                best = EvidenceMix {
+                    neighbours: *w,
+                    other_tags: 1.0 - w,
+                    added_tag_auc: auc,
+                };
+            }
+        }
+        best
+    }
+}
+
+/// The support of a tag: the weighted geometric mean of its two supports, so that a
+/// tag nearly absent from either side is doubted whatever the other says; the floor
+/// keeps a share of 0 from silencing the weights.
+fn mixed_support(neighbour_share: f32, with_other_tags: f32, neighbours: f32) -> f32 {
+    const FLOOR: f32 = 1e-3;
+    (neighbour_share + FLOOR).powf(neighbours) * (with_other_tags + FLOOR).powf(1.0 - neighbours)
+}
+
+/// 1 − the mixed support of each tag.
+fn doubts(neighbour_shares: &[f32], with_other_tags: &[f32], neighbours: f32) -> Vec<f64> {
+    neighbour_shares
+        .iter()
+        .zip(with_other_tags)
+        .map(|(&s, &o)| 1.0 - f64::from(mixed_support(s, o, neighbours)))
+        .collect()
+}
+
+/// Row `r` of `probabilities` and of the evidence belongs to `pictures[r]`; columns are
 /// `columns`. Each picture's carried tags (those the columns know) are judged by their
-/// shares and ranked within each tag's column; pictures come worst first.
+/// mixed support; pictures come worst first.
 fn rank_disputes(
     pictures: &[&ItemRecord],
     columns: &TagColumns,
     probabilities: ArrayView2<f32>,
-    shares: ArrayView2<f32>,
+    evidence: &Evidence,
+    mix: EvidenceMix,
 ) -> Vec<Dispute> {
-    let n = pictures.len() as f64;
-    let standing = (column_midranks(shares) - 0.5) / n;
     let mut out: Vec<Dispute> = pictures
         .iter()
         .enumerate()
         .map(|(r, item)| {
-            let mut judged: Vec<DisputedTag> = item
-                .tags
+            let mut judged: Vec<DisputedTag> = evidence.lists[r]
                 .iter()
-                .filter_map(|t| {
-                    let c = columns.index_of(t)?;
-                    Some(DisputedTag {
-                        tag: t.clone(),
-                        neighbours_carrying: shares[[r, c]],
-                        standing: standing[[r, c]],
-                    })
+                .zip(&evidence.with_other_tags[r])
+                .map(|(&c, &with_others)| {
+                    let share = evidence.shares[[r, c]];
+                    DisputedTag {
+                        tag: columns.tags()[c].clone(),
+                        neighbours_carrying: share,
+                        with_its_other_tags: with_others,
+                        support: mixed_support(share, with_others, mix.neighbours),
+                    }
                 })
                 .collect();
-            judged.sort_by(|a, b| a.standing.total_cmp(&b.standing));
-            let doubt: Vec<f64> = judged
-                .iter()
-                .map(|d| 1.0 - f64::from(d.neighbours_carrying))
-                .collect();
+            judged.sort_by(|a, b| a.support.total_cmp(&b.support).then(a.tag.cmp(&b.tag)));
+            let doubt: Vec<f64> = judged.iter().map(|d| 1.0 - f64::from(d.support)).collect();
             let proposed = tag_scores(columns.tags(), &probabilities.row(r).to_vec(), &item.tags)
                 .into_iter()
                 .filter(|s| !s.carried && s.probability >= PROPOSED_FROM)
@@ -116,7 +234,7 @@ fn rank_disputes(
                 score: review_score(&doubt),
                 disputed: judged
                     .into_iter()
-                    .filter(|d| d.neighbours_carrying < DISPUTED_BELOW)
+                    .filter(|d| d.support < DISPUTED_BELOW)
                     .collect(),
                 proposed,
             }
@@ -126,8 +244,8 @@ fn rank_disputes(
     out
 }
 
-/// Least-supported tag first (the largest doubt, 1 − neighbour share); among equally
-/// unsupported pictures, the one whose tags are less supported on the whole.
+/// Least-supported tag first (the largest doubt); among equally unsupported pictures,
+/// the one whose tags are less supported on the whole.
 fn review_score(doubts: &[f64]) -> f64 {
     let mean_doubt = doubts.iter().sum::<f64>() / doubts.len().max(1) as f64;
     doubts.iter().copied().fold(0.0, f64::max) + TIE_WEIGHT * mean_doubt
@@ -138,20 +256,28 @@ mod tests {
     use super::*;
     use crate::tests::{item, strings};
 
-    /// Shares are f32, so doubts carry f32 rounding (0.6f32 = 0.60000002…).
-    fn close(a: f64, b: f64) {
-        assert!((a - b).abs() < 1e-6, "{a} != {b}");
+    fn half_and_half() -> EvidenceMix {
+        EvidenceMix {
+            neighbours: 0.5,
+            other_tags: 0.5,
+            added_tag_auc: None,
+        }
     }
 
     // Worked by hand. Columns boat (0), sea (1); "fog" is unknown to the model.
     //   a.jpg carries boat       shares [0.0, 0.9]   probabilities [0.3, 0.7]
     //   b.jpg carries boat, sea  shares [0.8, 0.02]  probabilities [0.9, 0.4]
     //   c.jpg carries sea, fog   shares [0.1, 0.6]   probabilities [0.55, 0.8]
-    // Standings (mid-rank − ½) / 3: boat [1/6, 5/6, 1/2], sea [5/6, 1/6, 1/2].
-    // Doubts 1 − share: a {boat 1} → 1 + 0.001·1 = 1.001; b {boat 0.2, sea 0.98} →
-    // 0.98 + 0.001·0.59 = 0.98059; c {sea 0.4} → 0.4 + 0.001·0.4 = 0.4004.
-    // Disputed (share < 0.05): a boat, b sea. Proposed (not carried, p ≥ 0.5): a sea 0.7,
-    // c boat 0.55.
+    // Counts without the judged picture's own row: 2 pictures left, each tag carried by 1.
+    //   a boat alone: frequency 1/2 = 0.5; c sea alone: 0.5;
+    //   b boat given sea: (0 together + 0.5) / (1 carrying sea + 1) = 0.25; sea given boat 0.25.
+    // Support at half and half = √((share + 0.001)(other + 0.001)):
+    //   a boat √(0.001 · 0.501) = 0.022383; b boat √(0.801 · 0.251) = 0.448387,
+    //   b sea √(0.021 · 0.251) = 0.072602; c sea √(0.601 · 0.501) = 0.548727.
+    // Scores (max doubt + 0.001 · mean doubt): a 0.977617 + 0.000978 = 0.978595;
+    //   b 0.927398 + 0.001 · 0.739506 = 0.928138; c 0.451273 + 0.000451 = 0.451724.
+    // Doubtful (support < 0.05): a boat only. Proposed (not carried, p ≥ 0.5): a sea 0.7,
+    //   c boat 0.55.
     #[test]
     fn audit_ranks_pictures_by_their_least_supported_tag() {
         let pictures = [
@@ -160,25 +286,37 @@ mod tests {
             item("c.jpg", &["sea", "fog"]),
         ];
         let judged: Vec<&ItemRecord> = pictures.iter().collect();
-        let columns = TagColumns::from_items([strings(&["sea", "boat"]).as_slice()]);
+        let columns = TagColumns::from_items([strings(&["boat", "sea"]).as_slice()]);
+        let lists = [vec![0], vec![0, 1], vec![1]];
         let shares = ndarray::array![[0.0f32, 0.9], [0.8, 0.02], [0.1, 0.6]];
         let probabilities = ndarray::array![[0.3f32, 0.7], [0.9, 0.4], [0.55, 0.8]];
-        let queue = rank_disputes(&judged, &columns, probabilities.view(), shares.view());
+        let evidence = Evidence::gather(&lists, shares.view(), 2);
+        assert_eq!(
+            evidence.with_other_tags,
+            [vec![0.5], vec![0.25, 0.25], vec![0.5]]
+        );
+        let queue = rank_disputes(
+            &judged,
+            &columns,
+            probabilities.view(),
+            &evidence,
+            half_and_half(),
+        );
         let order: Vec<&str> = queue.iter().map(|d| d.picture.as_str()).collect();
         assert_eq!(order, ["a.jpg", "b.jpg", "c.jpg"]);
-        for (d, want) in queue.iter().zip([1.001, 0.98059, 0.4004]) {
-            close(d.score, want);
+        for (d, want) in queue.iter().zip([0.978_595, 0.928_138, 0.451_724]) {
+            assert!((d.score - want).abs() < 2e-6, "{} != {want}", d.score);
         }
-        let disputed = |d: &Dispute| -> Vec<(String, f64)> {
-            d.disputed
-                .iter()
-                .map(|t| (t.tag.clone(), t.standing))
-                .collect()
-        };
-        assert_eq!(disputed(&queue[0]), [("boat".to_string(), 1.0 / 6.0)]);
-        assert_eq!(disputed(&queue[1]), [("sea".to_string(), 1.0 / 6.0)]);
-        assert!(queue[2].disputed.is_empty());
-        assert_eq!(queue[1].disputed[0].neighbours_carrying, 0.02);
+        let doubtful: Vec<(&str, &str)> = queue
+            .iter()
+            .flat_map(|d| {
+                d.disputed
+                    .iter()
+                    .map(|t| (d.picture.as_str(), t.tag.as_str()))
+            })
+            .collect();
+        assert_eq!(doubtful, [("a.jpg", "boat")]);
+        assert!((queue[0].disputed[0].support - 0.022_383).abs() < 1e-6);
         let proposed = |d: &Dispute| -> Vec<(String, f32)> {
             d.proposed
                 .iter()
@@ -190,11 +328,38 @@ mod tests {
         assert_eq!(proposed(&queue[2]), [("boat".to_string(), 0.55)]);
     }
 
+    // Six pictures in two kinds, {day, sun} and {night, moon}; the similar pictures say
+    // nothing (every share 0.5). Added tags come from the other kind, so the other tags
+    // see them at once: the mix must lean on the other tags, and find them.
+    #[test]
+    fn the_mix_leans_on_whichever_evidence_finds_added_tags() {
+        let lists: Vec<Vec<usize>> = (0..6)
+            .map(|i| if i % 2 == 0 { vec![0, 1] } else { vec![2, 3] })
+            .collect();
+        let flat = ndarray::Array2::from_elem((6, 4), 0.5f32);
+        let mix = Evidence::gather(&lists, flat.view(), 4).choose_mix();
+        // every weight under 1 finds them all; the first tried (0.75) is kept
+        assert_eq!(mix.neighbours, 0.75);
+        assert_eq!(mix.added_tag_auc, Some(1.0));
+        // Now the similar pictures know exactly which tags fit and the tags say nothing
+        // (every picture carries the same two): the neighbours keep their full weight.
+        let same: Vec<Vec<usize>> = (0..6).map(|_| vec![0, 1]).collect();
+        let exact = ndarray::Array2::from_shape_fn((6, 4), |(_, c)| (c < 2) as u8 as f32);
+        let mix = Evidence::gather(&same, exact.view(), 4).choose_mix();
+        assert_eq!(mix.neighbours, 1.0);
+        assert_eq!(mix.added_tag_auc, Some(1.0));
+        // A collection with one tag has nothing to add: neighbours, and no figure.
+        let one: Vec<Vec<usize>> = (0..3).map(|_| vec![0]).collect();
+        let ones = ndarray::Array2::from_elem((3, 1), 1.0f32);
+        let mix = Evidence::gather(&one, ones.view(), 1).choose_mix();
+        assert_eq!((mix.neighbours, mix.added_tag_auc), (1.0, None));
+    }
+
     // worked by hand: [1] → 1 + 0.001 = 1.001; [1, 0] → 1 + 0.001·0.5 = 1.0005; [] → 0.
     #[test]
     fn equally_unsupported_pictures_are_ordered_by_their_mean_doubt() {
-        close(review_score(&[1.0]), 1.001);
-        close(review_score(&[1.0, 0.0]), 1.0005);
+        assert!((review_score(&[1.0]) - 1.001).abs() < 1e-12);
+        assert!((review_score(&[1.0, 0.0]) - 1.0005).abs() < 1e-12);
         assert!(review_score(&[1.0]) > review_score(&[1.0, 0.0]));
         assert_eq!(review_score(&[]), 0.0);
     }
@@ -208,11 +373,16 @@ mod tests {
         let columns = TagColumns::from_items([strings(&["a", "b", "c", "d", "e"]).as_slice()]);
         let probabilities = ndarray::array![[0.9f32, 0.9, 0.9, 0.9, 0.49]];
         let shares = ndarray::array![[0.0f32, 0.0, 0.0, 1.0, 0.0]];
-        let queue = rank_disputes(&judged, &columns, probabilities.view(), shares.view());
+        let lists = [vec![3]];
+        let evidence = Evidence::gather(&lists, shares.view(), 5);
+        let queue = rank_disputes(
+            &judged,
+            &columns,
+            probabilities.view(),
+            &evidence,
+            half_and_half(),
+        );
         let proposed: Vec<&str> = queue[0].proposed.iter().map(|s| s.tag.as_str()).collect();
         assert_eq!(proposed, ["a", "b", "c"]);
-        // its one carried tag is fully supported: no doubt, not disputed
-        assert_eq!(queue[0].score, 0.0);
-        assert!(queue[0].disputed.is_empty());
     }
 }

@@ -18,7 +18,7 @@ use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_
 use tagweave_vision::{FeatureExtractor, VisionError};
 
 mod audit;
-pub use audit::{Dispute, DisputedTag};
+pub use audit::{Audit, Dispute, DisputedTag, EvidenceMix};
 
 #[derive(Debug, thiserror::Error)]
 pub enum QueryError {

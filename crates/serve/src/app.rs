@@ -502,8 +502,12 @@ impl App {
     }
 
     fn disputes(&self) -> &Result<Vec<Dispute>, String> {
-        self.audit
-            .get_or_init(|| self.queries.audit().map_err(|e| e.to_string()))
+        self.audit.get_or_init(|| {
+            self.queries
+                .audit()
+                .map(|audit| audit.queue)
+                .map_err(|e| e.to_string())
+        })
     }
 
     fn review(&self, query: &[(String, String)]) -> Reply {
@@ -541,7 +545,7 @@ impl App {
                         .disputed
                         .iter()
                         .filter(|t| !acted(&t.tag))
-                        .map(|t| (t.tag.clone(), t.neighbours_carrying))
+                        .map(|t| (t.tag.clone(), t.neighbours_carrying, t.with_its_other_tags))
                         .collect(),
                     proposed: d
                         .proposed

@@ -58,7 +58,8 @@ pub struct QueueEntry {
     pub rank: usize,
     pub card: Card,
     /// Carried tags few similar pictures carry, with that share.
-    pub doubtful: Vec<(String, f32)>,
+    /// Tag, share of similar pictures carrying it, share of pictures with its other tags.
+    pub doubtful: Vec<(String, f32, f32)>,
     /// Tags it probably should carry, with their probability.
     pub proposed: Vec<(String, f32)>,
     pub changed: bool,
@@ -426,8 +427,8 @@ pub fn picture(content: &PictureContent) -> Page {
 pub fn review(content: &QueueContent) -> Page {
     let mut body = format!(
         "<section class=\"ask\"><h1>Review queue</h1><p class=\"hint\">{flagged} of {judged} \
-         tagged pictures carry a tag that few similar pictures carry; the most doubtful \
-         first. Remove a doubtful tag, or keep it; accept or reject proposed ones.</p></section>\n",
+         tagged pictures carry a tag that few similar pictures, or few pictures with \
+         the same other tags, carry; the most doubtful first. Remove a doubtful tag, or keep it; accept or reject proposed ones.</p></section>\n",
         flagged = content.flagged,
         judged = content.judged,
     );
@@ -444,7 +445,7 @@ pub fn review(content: &QueueContent) -> Page {
         let card = &entry.card;
         let id = &card.id;
         let mut doubtful = String::new();
-        for (tag, share) in &entry.doubtful {
+        for (tag, share, with_others) in &entry.doubtful {
             let buttons = content
                 .token
                 .map(|t| {
@@ -455,9 +456,10 @@ pub fn review(content: &QueueContent) -> Page {
             let _ = write!(
                 doubtful,
                 "<li data-tag=\"{t}\"><span class=\"tagname\">{t}</span><span class=\"share\">on {s} \
-                 of similar</span>{buttons}</li>",
+                 of similar, {o} with its other tags</span>{buttons}</li>",
                 t = html(tag),
                 s = percent(*share),
+                o = percent(*with_others),
             );
         }
         let mut proposed = String::new();

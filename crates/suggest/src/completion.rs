@@ -163,18 +163,11 @@ pub struct TagCooccurrence {
 
 impl TagCooccurrence {
     pub fn count(tags: &[Vec<usize>], n_tags: usize) -> Self {
-        let mut together = Array2::zeros((n_tags, n_tags));
-        let mut carrying = Array1::zeros(n_tags);
-        for list in tags {
-            for &r in list {
-                carrying[r] += 1.0;
-                list.iter().for_each(|&t| together[[r, t]] += 1.0);
-            }
-        }
-        let frequency = carrying.mapv(|c: f32| c / tags.len().max(1) as f32);
+        let counts = TagCounts::count(tags, n_tags);
+        let frequency = counts.carrying.mapv(|c| c / counts.pictures.max(1.0));
         TagCooccurrence {
-            together,
-            carrying,
+            together: counts.together,
+            carrying: counts.carrying,
             frequency,
         }
     }
@@ -190,12 +183,76 @@ impl TagCooccurrence {
                 row.assign(&self.frequency);
                 continue;
             }
-            for &r in &known {
-                row += &((&self.together.row(r) + &self.frequency) / (self.carrying[r] + 1.0));
+            for (t, cell) in row.iter_mut().enumerate() {
+                let shares = known.iter().map(|&r| {
+                    smoothed_share(self.together[[r, t]], self.carrying[r], self.frequency[t])
+                });
+                *cell = shares.sum::<f32>() / known.len() as f32;
             }
-            row /= known.len() as f32;
         }
         out
+    }
+}
+
+/// The co-occurrence share of a tag given one carried tag r: pictures carrying both,
+/// plus the tag's frequency as one pseudo-picture, over pictures carrying r plus one.
+fn smoothed_share(together: f32, carrying_r: f32, frequency: f32) -> f32 {
+    (together + frequency) / (carrying_r + 1.0)
+}
+
+/// Tag counts over a collection's tagged pictures, so that each picture's tags can be
+/// judged by the other pictures' (its own row taken out): the review queue's
+/// co-occurrence evidence, honest although every picture was counted.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TagCounts {
+    together: Array2<f32>,
+    carrying: Array1<f32>,
+    pictures: f32,
+}
+
+impl TagCounts {
+    pub fn count(tags: &[Vec<usize>], n_tags: usize) -> Self {
+        let mut together = Array2::zeros((n_tags, n_tags));
+        let mut carrying = Array1::zeros(n_tags);
+        for list in tags {
+            for &r in list {
+                carrying[r] += 1.0;
+                list.iter().for_each(|&t| together[[r, t]] += 1.0);
+            }
+        }
+        TagCounts {
+            together,
+            carrying,
+            pictures: tags.len() as f32,
+        }
+    }
+
+    /// For each tag t of `list` (distinct columns): the smallest of its smoothed shares
+    /// given each of the list's other tags (as in [`TagCooccurrence`], which takes their
+    /// mean), counted without `own` — the counted list of the picture being judged (empty
+    /// when it was not counted). The smallest, because one wrong tag shows as a pair that
+    /// hardly ever comes together ("summer" beside "winter"), and a mean over the common
+    /// tags beside it would hide that. Alone, a tag gets its frequency.
+    pub fn support_without(&self, list: &[usize], own: &[usize]) -> Vec<f32> {
+        let counted = |c: usize| own.contains(&c) as u8 as f32;
+        let pictures = self.pictures - (!own.is_empty()) as u8 as f32;
+        list.iter()
+            .map(|&t| {
+                let frequency = (self.carrying[t] - counted(t)) / pictures.max(1.0);
+                let given: Vec<usize> = list.iter().copied().filter(|&r| r != t).collect();
+                if given.is_empty() {
+                    return frequency;
+                }
+                let shares = given.iter().map(|&r| {
+                    smoothed_share(
+                        self.together[[r, t]] - counted(r) * counted(t),
+                        self.carrying[r] - counted(r),
+                        frequency,
+                    )
+                });
+                shares.fold(f32::INFINITY, f32::min)
+            })
+            .collect()
     }
 }
 
@@ -222,6 +279,46 @@ mod tests {
         }
         // a tag index the counts never saw is ignored, not a panic
         assert_eq!(c.score(&[vec![7]]).row(0), c.frequency.view());
+    }
+
+    // Worked by hand. Pictures {0,1}, {0,1}, {0,2}, {2}; judging the first with its own
+    // row taken out leaves {0,1}, {0,2}, {2}: n = 3, carrying = [2, 1, 2], together[0][1] = 1,
+    // together[1][0] = 1. Tag 0 given 1: frequency 2/3, (1 + 2/3) / (1 + 1) = 0.8333.
+    // Tag 1 given 0: frequency 1/3, (1 + 1/3) / (2 + 1) = 0.4444.
+    // A list not counted ({1, 2}, own empty): n = 4, carrying = [3, 2, 2]; tag 1 given 2:
+    // frequency 2/4, (0 + 0.5) / (2 + 1) = 0.1667; tag 2 given 1: (0 + 0.5) / (2 + 1).
+    // Alone ({2} judged without its own row): frequency of 2 among the 3 others = 1/3.
+    // Two others ({0, 1, 2}, not counted): tag 0 given 1 = (2 + 0.75) / 3 = 0.9167, given
+    // 2 = (1 + 0.75) / 3 = 0.5833; the smaller is its support.
+    #[test]
+    fn support_without_a_picture_matches_a_hand_worked_example() {
+        let lists = [vec![0, 1], vec![0, 1], vec![0, 2], vec![2]];
+        let counts = TagCounts::count(&lists, 3);
+        let close = |got: Vec<f32>, want: &[f32]| {
+            assert!(
+                got.iter().zip(want).all(|(a, b)| (a - b).abs() < 1e-5),
+                "{got:?} != {want:?}"
+            );
+        };
+        close(
+            counts.support_without(&[0, 1], &[0, 1]),
+            &[0.833_333_3, 0.444_444_4],
+        );
+        close(
+            counts.support_without(&[1, 2], &[]),
+            &[0.166_666_7, 0.166_666_7],
+        );
+        close(counts.support_without(&[2], &[2]), &[0.333_333_3]);
+        close(
+            counts.support_without(&[0, 1, 2], &[])[..1].to_vec(),
+            &[0.583_333_3],
+        );
+        // with nothing taken out it agrees with the co-occurrence score
+        let whole = TagCooccurrence::count(&lists, 3).score(&[vec![1]]);
+        close(
+            counts.support_without(&[1, 2], &[])[1..].to_vec(),
+            &[whole[[0, 2]]],
+        );
     }
 
     // By hand: 0.25 · [0.8, 0.2] + 0.75 · [0.4, 0.6] = [0.5, 0.5].

@@ -26,7 +26,7 @@ pub use calibration::Calibration;
 pub use columns::TagColumns;
 pub use completion::{
     best_weights, completion_lrap, mix, reveal_half, unrevealed, validation_fold,
-    validation_reveal, weight_grid, Reveal, TagCooccurrence,
+    validation_reveal, weight_grid, Reveal, TagCooccurrence, TagCounts,
 };
 pub use error::SuggestError;
 pub use knn::{knn_leave_one_out_scores, KnnScorer};
