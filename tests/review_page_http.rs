@@ -1,5 +1,5 @@
 //! `tagweave serve` over HTTP, run as a user would: every route's status and content
-//! type, path-traversal attempts, and who may change tags (the session token, read-only
+//! type, path-traversal attempts, and who may change tags (this run's token, read-only
 //! mode), with the sidecars on disk checked after each change. All on a scanned and
 //! trained copy of the demo archive (see review_page_support.rs).
 
@@ -327,7 +327,7 @@ fn traversal_attempts_and_unknown_ids_are_not_found() {
 }
 
 #[test]
-fn changes_need_this_sessions_token_and_go_through_the_safe_write() {
+fn changes_need_this_runs_token_and_go_through_the_safe_write() {
     let folder = trained_copy();
     let root = folder.path();
     let truth = truth();
@@ -387,7 +387,7 @@ fn changes_need_this_sessions_token_and_go_through_the_safe_write() {
     );
     assert_eq!(unknown.status, 404);
 
-    // With this session's token: written the way `apply` writes.
+    // With this run's token: written the way `apply` writes.
     let answer = served.post_with(
         &target,
         &format!("token={token}&{add}"),
@@ -459,7 +459,7 @@ fn changes_need_this_sessions_token_and_go_through_the_safe_write() {
     assert!(assert_page(&answer, 200).contains("new file"));
     assert_eq!(text_sidecar_tags(&new_sidecar), vec!["night".to_string()]);
 
-    // Rejecting a suggestion writes nothing and hides it for this session.
+    // Rejecting a suggestion writes nothing and hides it until the server stops.
     let other = id_of("1950s/saltmarrow-0003.jpg");
     let suggested = attr_values(
         &served.get(&format!("/picture/{other}")).text(),
@@ -503,7 +503,7 @@ fn changes_need_this_sessions_token_and_go_through_the_safe_write() {
     assert_eq!(scan.status.code(), Some(1));
     assert!(stderr_of(&scan).contains("in use"), "{}", stderr_of(&scan));
 
-    // A new session has a new token; the old one no longer works.
+    // A new server run has a new token; the old one no longer works.
     drop(served);
     let served = Served::start(root, &[]);
     let stale = served.post(

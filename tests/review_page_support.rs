@@ -125,7 +125,7 @@ impl Served {
         request(self.port, "POST", target, &all, form.as_bytes())
     }
 
-    /// The session token, as written into the forms of a picture's page.
+    /// This run's token, as written into the forms of a picture's page.
     pub fn token(&self, id: &str) -> String {
         token_in(&self.get(&format!("/picture/{id}")).text())
             .expect("the picture page carries a token")

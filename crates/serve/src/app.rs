@@ -10,7 +10,7 @@ use tagweave_query::{Dispute, Queries, QueryError, Ranking};
 use tagweave_store::Store;
 use tagweave_writeback::{commit_plan, diff, original_path, Planner, TagChange};
 
-use crate::guard::{host_allowed, loopback_hosts, same_origin, SessionToken};
+use crate::guard::{host_allowed, loopback_hosts, same_origin, WriteToken};
 use crate::pages::{self, Card, Page, Written};
 use crate::renditions::{Rendition, Renditions};
 use crate::text::{first, pairs, tag_words};
@@ -100,13 +100,14 @@ pub(crate) struct App {
     root: PathBuf,
     row_of_id: HashMap<String, usize>,
     row_of_path: HashMap<String, usize>,
-    token: SessionToken,
+    token: WriteToken,
     read_only: bool,
     hosts: Vec<String>,
     renditions: Renditions,
     audit: OnceLock<Result<Vec<Dispute>, String>>,
-    /// Also serialises writes, so two clicks never plan from the same old bytes.
-    session: Mutex<HashMap<String, PictureNotes>>,
+    /// What was done to each picture (by id) since this server started. Its lock also
+    /// serialises writes, so two clicks never plan from the same old bytes.
+    notes: Mutex<HashMap<String, PictureNotes>>,
 }
 
 /// A routed request that needs an indexed picture.
@@ -138,11 +139,11 @@ impl App {
             root,
             row_of_id,
             row_of_path,
-            token: SessionToken::new(),
+            token: WriteToken::new(),
             read_only,
             hosts: loopback_hosts(port),
             audit: OnceLock::new(),
-            session: Mutex::new(HashMap::new()),
+            notes: Mutex::new(HashMap::new()),
             store,
             queries,
         }
@@ -266,7 +267,7 @@ impl App {
                 403,
                 "Refused",
                 "A change must come from a form of this review page (it carries this \
-                 session's token). Reload the page and try again; a page from another \
+                 run's token). Reload the page and try again; a page from another \
                  site cannot change your tags.",
             ));
         }
@@ -315,8 +316,8 @@ impl App {
         self.message(500, "Something went wrong", &error.to_string())
     }
 
-    fn session(&self) -> MutexGuard<'_, HashMap<String, PictureNotes>> {
-        self.session.lock().unwrap_or_else(|p| p.into_inner())
+    fn notes(&self) -> MutexGuard<'_, HashMap<String, PictureNotes>> {
+        self.notes.lock().unwrap_or_else(|p| p.into_inner())
     }
 
     /// The picture's tags as they stand in its sidecars now: indexed tags with the writes
@@ -464,8 +465,8 @@ impl App {
                 .position(|t| t == tag)
                 .and_then(|c| shares.get(c).copied())
         };
-        let session = self.session();
-        let notes = session.get(&item.id);
+        let notes_by_id = self.notes();
+        let notes = notes_by_id.get(&item.id);
         let now = self.tags_now(row, notes);
         let carried: Vec<String> = now.iter().map(|(t, _)| t.clone()).collect();
         let suggestions = self
@@ -492,7 +493,7 @@ impl App {
             token: self.writable_token(),
             changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),
         };
-        drop(session);
+        drop(notes_by_id);
         self.page(200, pages::picture(&content))
     }
 
@@ -521,7 +522,7 @@ impl App {
             .and_then(|p| p.parse::<usize>().ok())
             .unwrap_or(1)
             .clamp(1, pages_total);
-        let session = self.session();
+        let notes_by_id = self.notes();
         let entries = flagged
             .iter()
             .enumerate()
@@ -530,7 +531,7 @@ impl App {
             .filter_map(|(rank, d)| {
                 let row = *self.row_of_path.get(&d.picture)?;
                 let item = self.item(row);
-                let notes = session.get(&item.id);
+                let notes = notes_by_id.get(&item.id);
                 let acted = |tag: &str| {
                     notes.is_some_and(|n| {
                         n.added.contains(tag)
@@ -557,7 +558,7 @@ impl App {
                 })
             })
             .collect();
-        drop(session);
+        drop(notes_by_id);
         let content = pages::QueueContent {
             judged: disputes.len(),
             flagged: flagged.len(),
@@ -625,7 +626,7 @@ impl App {
                 vec![spelling.to_string()]
             },
         };
-        let mut session = self.session();
+        let mut notes_by_id = self.notes();
         let planned = Planner::new(
             &self.root,
             &CrawlOptions {
@@ -638,7 +639,7 @@ impl App {
             Ok(plan) => plan,
             Err(error) => return self.message(409, "Not written", &error.to_string()),
         };
-        let notes = session.entry(item.id.clone()).or_default();
+        let notes = notes_by_id.entry(item.id.clone()).or_default();
         if adding {
             notes.removed.remove(&normal);
             notes.added.insert(normal.clone());
@@ -646,7 +647,7 @@ impl App {
             notes.added.remove(&normal);
             notes.removed.insert(normal.clone());
         }
-        drop(session);
+        drop(notes_by_id);
         let written = Written {
             card: self.card(row, None, None),
             tag: normal,
@@ -678,7 +679,7 @@ impl App {
         let Some(tag) = first(form, "tag").and_then(normalize_tag) else {
             return self.message(400, "Which tag?", "Send the tag to set aside.");
         };
-        self.session()
+        self.notes()
             .entry(item.id.clone())
             .or_default()
             .set_aside

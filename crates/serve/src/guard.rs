@@ -1,4 +1,4 @@
-//! Who may change tags: the session token and the checks on where a request comes from.
+//! Who may change tags: this run's token and the checks on where a request comes from.
 //!
 //! Any web page the user has open can make their browser send a form to 127.0.0.1. It
 //! cannot read our pages, though, so it cannot know the token they carry: a change that
@@ -10,14 +10,14 @@ use rand::Rng;
 
 /// A secret issued once per server run and written into every form of its pages.
 #[derive(Clone)]
-pub struct SessionToken(String);
+pub struct WriteToken(String);
 
-impl SessionToken {
+impl WriteToken {
     /// 128 random bits from the thread generator, which is seeded from the operating
     /// system and cryptographically strong.
-    pub fn new() -> SessionToken {
+    pub fn new() -> WriteToken {
         let bytes: [u8; 16] = rand::rng().random();
-        SessionToken(bytes.iter().map(|b| format!("{b:02x}")).collect())
+        WriteToken(bytes.iter().map(|b| format!("{b:02x}")).collect())
     }
 
     pub fn as_str(&self) -> &str {
@@ -35,9 +35,9 @@ impl SessionToken {
     }
 }
 
-impl Default for SessionToken {
+impl Default for WriteToken {
     fn default() -> Self {
-        SessionToken::new()
+        WriteToken::new()
     }
 }
 
@@ -81,11 +81,11 @@ mod tests {
 
     #[test]
     fn tokens_are_long_random_and_compared_exactly() {
-        let a = SessionToken::new();
-        let b = SessionToken::new();
+        let a = WriteToken::new();
+        let b = WriteToken::new();
         assert_eq!(a.as_str().len(), 32);
         assert!(a.as_str().bytes().all(|c| c.is_ascii_hexdigit()));
-        assert_ne!(a.as_str(), b.as_str(), "two sessions, two tokens");
+        assert_ne!(a.as_str(), b.as_str(), "two server runs, two tokens");
         assert!(a.matches(a.as_str()));
         assert!(!a.matches(b.as_str()));
         assert!(!a.matches(""));

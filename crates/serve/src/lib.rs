@@ -9,7 +9,7 @@
 //! - **Pictures only by id.** Pictures and their reduced copies are served by the 16-digit
 //!   id of an indexed item and read from the item's indexed path; nothing in a request is
 //!   ever used as a file path. Anything else is 404.
-//! - **Changes only from our own pages.** Every change (a POST) must carry the session
+//! - **Changes only from our own pages.** Every change (a POST) must carry the run's
 //!   token written into our pages' forms; requests naming another host, or saying they
 //!   come from another site, are refused too. `read_only` refuses every change.
 //! - **The same safe write as `tagweave apply`.** Accepted tags are planned, read back and

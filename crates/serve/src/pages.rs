@@ -300,7 +300,7 @@ pub fn like(content: &LikeContent) -> Page {
     }
 }
 
-/// A one-button form that posts a change with the session token.
+/// A one-button form that posts a change with this run's token.
 fn button_form(
     token: &str,
     id: &str,

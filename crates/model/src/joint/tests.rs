@@ -189,9 +189,9 @@ fn layer(v: &[f64], w: &[&[f64]], bias: &[f64]) -> Vec<f64> {
 }
 
 // The mean-field recursion of the doc comments, unrolled by hand in f64 with scalar
-// loops, for 0–3 steps and both directions. (source: the procedure of tagweave issue
-// 5, "Fill-in"; mean-field updates of a deep Boltzmann machine, Salakhutdinov &
-// Hinton 2009, with the pathways' tops as the visible layer of the shared RBM)
+// loops, for 0–3 steps and both directions. (source: mean-field updates
+// of a deep Boltzmann machine, Salakhutdinov & Hinton 2009, with the pathways' tops as the
+// visible layer of the shared RBM)
 #[test]
 fn mean_field_matches_a_hand_unrolled_computation() {
     let x = [0.7, -1.2];
