@@ -411,6 +411,34 @@ fn audit_ranks_pictures_with_a_false_tag_high() {
     assert!(mix["added_tag_auc"].as_f64().unwrap() > 0.5, "{mix}");
 }
 
+// A person's decisions are data: running `audit` again (after typing into its sheet) keeps
+// them, and the sheet still applies.
+#[test]
+fn a_second_audit_keeps_the_decisions_typed_into_its_sheet() {
+    let _serial = one_at_a_time();
+    let copy = prepared_copy();
+    let folder = copy.path();
+    let first = succeeded(&tagweave(folder, &["audit", "--json", "--sheet", "review.csv"]));
+    assert_eq!(first["sheet"]["kept_decisions"], 0);
+    let sheet = folder.join("review.csv");
+    let mut rows = tagweave_writeback::read_sheet(&sheet).unwrap();
+    let disputed = rows
+        .iter()
+        .position(|r| r.kind == tagweave_writeback::RowKind::Disputed)
+        .expect("the demo's queue has a disputed tag");
+    rows[disputed].decision = tagweave_writeback::Decision::Remove;
+    let typed = rows[disputed].clone();
+    tagweave_writeback::write_sheet(&sheet, &rows).unwrap();
+
+    let second = succeeded(&tagweave(folder, &["audit", "--json", "--sheet", "review.csv"]));
+    assert_eq!(second["sheet"]["kept_decisions"], 1);
+    let after = tagweave_writeback::read_sheet(&sheet).unwrap();
+    assert!(after.contains(&typed), "the typed `remove` survived");
+    assert_eq!(after.len(), rows.len());
+    let text = stdout_of(&tagweave(folder, &["audit", "--sheet", "review.csv"]));
+    assert!(text.contains("Decisions already typed into it were kept: 1."), "{text}");
+}
+
 // apply: a person accepts right suggestions for untagged pictures and removes one false
 // tag; the sidecars change accordingly, nothing else does.
 #[test]

@@ -6,7 +6,7 @@ use anyhow::{bail, Context};
 use serde::Serialize;
 use tagweave_query::{Dispute, EvidenceMix, Found, Queries, Ranking, TagScore};
 use tagweave_store::Store;
-use tagweave_writeback::{write_sheet, Decision, RowKind, SheetRow};
+use tagweave_writeback::{write_sheet_keeping_decisions, Decision, RowKind, SheetRow};
 
 use crate::exit::Outcome;
 use crate::{store_path, StoreArgs};
@@ -237,16 +237,15 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
                 })
             })
             .collect();
-        write_sheet(&args.sheet, &rows)
-            .with_context(|| format!("cannot write the review sheet {}", args.sheet.display()))?;
-        Some((args.sheet.clone(), rows.len()))
+        let sheet = write_sheet_out(&args.sheet, &rows)?;
+        Some(sheet)
     } else {
         None
     };
     if args.json {
         let mut value = serde_json::json!({ "pictures": answers });
-        if let Some((path, rows)) = &sheet {
-            value["sheet"] = serde_json::json!({ "path": path, "rows": rows });
+        if let Some(sheet) = &sheet {
+            value["sheet"] = serde_json::to_value(sheet)?;
         }
         println!("{value}");
     } else {
@@ -278,8 +277,8 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
                 println!("  {:>5.0} %  {}", s.probability * 100.0, s.tag);
             }
         }
-        if let Some((path, rows)) = &sheet {
-            print_sheet_note(&store, path, *rows);
+        if let Some(written) = &sheet {
+            print_sheet_note(&store, written);
         }
     }
     Ok(Outcome::Done)
@@ -325,14 +324,42 @@ fn describe_mix(mix: &EvidenceMix) -> String {
     )
 }
 
-fn print_sheet_note(store: &Store, path: &Path, rows: usize) {
+/// A review sheet as written: where, how many rows, how many of a person's decisions
+/// already in it were kept.
+#[derive(Serialize)]
+struct WrittenSheet {
+    path: PathBuf,
+    rows: usize,
+    kept_decisions: usize,
+}
+
+/// Writes the review sheet, keeping every decision already typed into one at that path.
+fn write_sheet_out(path: &Path, rows: &[SheetRow]) -> anyhow::Result<WrittenSheet> {
+    let written = write_sheet_keeping_decisions(path, rows)
+        .with_context(|| format!("cannot write the review sheet {}", path.display()))?;
+    Ok(WrittenSheet {
+        path: path.to_path_buf(),
+        rows: written.rows,
+        kept_decisions: written.kept_decisions,
+    })
+}
+
+fn print_sheet_note(store: &Store, sheet: &WrittenSheet) {
+    let path = &sheet.path;
     println!();
     println!(
-        "Review sheet: {} ({rows} rows). Fill the `accept` column with y or n (for a disputed \
+        "Review sheet: {} ({} rows). Fill the `accept` column with y or n (for a disputed \
          tag: remove, to take it off), then run `tagweave apply {}`.",
         path.display(),
+        sheet.rows,
         path.display()
     );
+    if sheet.kept_decisions > 0 {
+        println!(
+            "Decisions already typed into it were kept: {}.",
+            sheet.kept_decisions
+        );
+    }
     println!(
         "Nothing is written to {} until you do.",
         store.collection_root().display()
@@ -365,8 +392,7 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
             });
         }
     }
-    write_sheet(&args.sheet, &rows)
-        .with_context(|| format!("cannot write the review sheet {}", args.sheet.display()))?;
+    let sheet = write_sheet_out(&args.sheet, &rows)?;
     if args.json {
         let shown: Vec<&Dispute> = disputes.iter().take(args.limit).collect();
         println!(
@@ -376,7 +402,7 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
                 "flagged": flagged.len(),
                 "mix": audit.mix,
                 "queue": shown,
-                "sheet": { "path": args.sheet, "rows": rows.len() },
+                "sheet": sheet,
             })
         );
         return Ok(Outcome::Done);
@@ -412,6 +438,6 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
             println!("      proposed  {}", proposed.join(", "));
         }
     }
-    print_sheet_note(&store, &args.sheet, rows.len());
+    print_sheet_note(&store, &sheet);
     Ok(Outcome::Done)
 }

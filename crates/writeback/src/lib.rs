@@ -53,6 +53,6 @@ pub use commit::{commit_edit, commit_plan, diff, original_path};
 pub use error::WritebackError;
 pub use plan::{plan_edit, PicturePlan, Planner, SidecarEdit};
 pub use sheet::{
-    changes_from_sheet, parse_sheet, read_sheet, render_sheet, write_sheet, Decision, RowKind,
-    SheetRow, TagChange, COLUMNS,
+    changes_from_sheet, parse_sheet, read_sheet, render_sheet, write_sheet,
+    write_sheet_keeping_decisions, Decision, RowKind, SheetRow, SheetWritten, TagChange, COLUMNS,
 };

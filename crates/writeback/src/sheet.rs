@@ -101,6 +101,72 @@ pub fn write_sheet(path: &Path, rows: &[SheetRow]) -> Result<(), WritebackError>
     write_atomically(path, &bytes, Mode::Replace, permissions, &|| Ok(()))
 }
 
+/// Writes a fresh sheet at `path` without losing what a person typed into the one already
+/// there: each decided row of the old sheet gives its decision to the new row for the same
+/// picture, tag and kind, and a decided row the new sheet no longer lists is kept at its end.
+/// An old sheet that cannot be read is left alone (an error: it may hold decisions).
+pub fn write_sheet_keeping_decisions(
+    path: &Path,
+    rows: &[SheetRow],
+) -> Result<SheetWritten, WritebackError> {
+    let old = match std::fs::symlink_metadata(path) {
+        Ok(_) => read_sheet(path).map_err(|e| WritebackError::Sheet {
+            path: path.to_path_buf(),
+            problem: format!(
+                "already exists and cannot be read as a review sheet, so it was left as it is \
+                 (it may hold decisions): apply it, move it away, or name another sheet \
+                 ({e})"
+            ),
+        })?,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Vec::new(),
+        Err(e) => {
+            return Err(WritebackError::Sheet {
+                path: path.to_path_buf(),
+                problem: format!("cannot be checked for decisions already typed in ({e})"),
+            })
+        }
+    };
+    let (merged, kept_decisions) = keep_decisions(&old, rows);
+    write_sheet(path, &merged)?;
+    Ok(SheetWritten {
+        rows: merged.len(),
+        kept_decisions,
+    })
+}
+
+/// What [`write_sheet_keeping_decisions`] wrote.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SheetWritten {
+    pub rows: usize,
+    /// Decisions a person had typed into the sheet already, carried into the new one.
+    pub kept_decisions: usize,
+}
+
+/// `fresh` with the decisions of `old` carried over (same picture, normalised tag, kind),
+/// followed by the decided rows of `old` that `fresh` lacks; and the number of decisions kept.
+fn keep_decisions(old: &[SheetRow], fresh: &[SheetRow]) -> (Vec<SheetRow>, usize) {
+    let key = |r: &SheetRow| (r.picture.clone(), normalize_tag(&r.tag), r.kind);
+    let mut decided: BTreeMap<_, &SheetRow> = BTreeMap::new();
+    for row in old.iter().filter(|r| r.decision != Decision::Undecided) {
+        decided.entry(key(row)).or_insert(row);
+    }
+    let kept = decided.len();
+    let mut out: Vec<SheetRow> = fresh
+        .iter()
+        .map(|row| match decided.remove(&key(row)) {
+            Some(person) => SheetRow {
+                decision: person.decision,
+                ..row.clone()
+            },
+            None => row.clone(),
+        })
+        .collect();
+    let mut left: Vec<&SheetRow> = decided.into_values().collect();
+    left.sort_by_key(|r| old.iter().position(|o| std::ptr::eq(o, *r)));
+    out.extend(left.into_iter().cloned());
+    (out, kept)
+}
+
 /// The bytes [`write_sheet`] writes.
 pub fn render_sheet(rows: &[SheetRow]) -> Result<Vec<u8>, WritebackError> {
     let mut out = "\u{feff}".as_bytes().to_vec();
@@ -405,6 +471,56 @@ fn parse_decision(cell: &str, kind: RowKind) -> Result<Decision, String> {
 mod tests {
     use super::*;
     use proptest::prelude::*;
+
+    // A person typed `remove` into row 2 and `y` into a row the new run no longer lists:
+    // both survive a fresh sheet, the first on the new row (with its new probability), the
+    // second at the end; undecided old rows simply give way.
+    #[test]
+    fn a_fresh_sheet_keeps_every_decision_typed_into_the_old_one() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("review.csv");
+        let old = [
+            row("a.jpg", "sea", RowKind::Suggested, Decision::Undecided),
+            row("a.jpg", "Snow", RowKind::Disputed, Decision::Remove),
+            row("b.jpg", "boat", RowKind::Suggested, Decision::Accept),
+        ];
+        write_sheet(&path, &old).unwrap();
+        let mut fresh = vec![
+            row("a.jpg", "snow", RowKind::Disputed, Decision::Undecided),
+            row("c.jpg", "dusk", RowKind::Suggested, Decision::Undecided),
+        ];
+        fresh[0].probability = Some(0.02);
+        let written = write_sheet_keeping_decisions(&path, &fresh).unwrap();
+        assert_eq!(
+            written,
+            SheetWritten {
+                rows: 3,
+                kept_decisions: 2
+            }
+        );
+        let back = read_sheet(&path).unwrap();
+        let mut want = vec![
+            row("a.jpg", "snow", RowKind::Disputed, Decision::Remove),
+            row("c.jpg", "dusk", RowKind::Suggested, Decision::Undecided),
+            row("b.jpg", "boat", RowKind::Suggested, Decision::Accept),
+        ];
+        want[0].probability = Some(0.02);
+        assert_eq!(back, want);
+        // the same again changes nothing
+        write_sheet_keeping_decisions(&path, &fresh).unwrap();
+        assert_eq!(read_sheet(&path).unwrap(), want);
+    }
+
+    #[test]
+    fn an_unreadable_old_sheet_is_left_untouched() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("review.csv");
+        std::fs::write(&path, "my notes, not a sheet\n").unwrap();
+        let fresh = [row("a.jpg", "sea", RowKind::Suggested, Decision::Undecided)];
+        let error = write_sheet_keeping_decisions(&path, &fresh).unwrap_err();
+        assert!(error.to_string().contains("left as it is"), "{error}");
+        assert_eq!(std::fs::read(&path).unwrap(), b"my notes, not a sheet\n");
+    }
 
     fn row(picture: &str, tag: &str, kind: RowKind, decision: Decision) -> SheetRow {
         SheetRow {
