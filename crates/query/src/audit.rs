@@ -256,12 +256,21 @@ mod tests {
     use super::*;
     use crate::tests::{item, strings};
 
-    fn half_and_half() -> EvidenceMix {
-        EvidenceMix {
+    /// The queue of `pictures` with the evidence mixed half and half.
+    fn half_and_half_queue(
+        pictures: &[&ItemRecord],
+        columns: &TagColumns,
+        lists: &[Vec<usize>],
+        shares: ArrayView2<f32>,
+        probabilities: &ndarray::Array2<f32>,
+    ) -> Vec<Dispute> {
+        let evidence = Evidence::gather(lists, shares, columns.len());
+        let mix = EvidenceMix {
             neighbours: 0.5,
             other_tags: 0.5,
             added_tag_auc: None,
-        }
+        };
+        rank_disputes(pictures, columns, probabilities.view(), &evidence, mix)
     }
 
     // Worked by hand. Columns boat (0), sea (1); "fog" is unknown to the model.
@@ -295,13 +304,7 @@ mod tests {
             evidence.with_other_tags,
             [vec![0.5], vec![0.25, 0.25], vec![0.5]]
         );
-        let queue = rank_disputes(
-            &judged,
-            &columns,
-            probabilities.view(),
-            &evidence,
-            half_and_half(),
-        );
+        let queue = half_and_half_queue(&judged, &columns, &lists, shares.view(), &probabilities);
         let order: Vec<&str> = queue.iter().map(|d| d.picture.as_str()).collect();
         assert_eq!(order, ["a.jpg", "b.jpg", "c.jpg"]);
         for (d, want) in queue.iter().zip([0.978_595, 0.928_138, 0.451_724]) {
@@ -374,14 +377,7 @@ mod tests {
         let probabilities = ndarray::array![[0.9f32, 0.9, 0.9, 0.9, 0.49]];
         let shares = ndarray::array![[0.0f32, 0.0, 0.0, 1.0, 0.0]];
         let lists = [vec![3]];
-        let evidence = Evidence::gather(&lists, shares.view(), 5);
-        let queue = rank_disputes(
-            &judged,
-            &columns,
-            probabilities.view(),
-            &evidence,
-            half_and_half(),
-        );
+        let queue = half_and_half_queue(&judged, &columns, &lists, shares.view(), &probabilities);
         let proposed: Vec<&str> = queue[0].proposed.iter().map(|s| s.tag.as_str()).collect();
         assert_eq!(proposed, ["a", "b", "c"]);
     }

@@ -161,9 +161,10 @@ fn keep_decisions(old: &[SheetRow], fresh: &[SheetRow]) -> (Vec<SheetRow>, usize
             None => row.clone(),
         })
         .collect();
-    let mut left: Vec<&SheetRow> = decided.into_values().collect();
-    left.sort_by_key(|r| old.iter().position(|o| std::ptr::eq(o, *r)));
-    out.extend(left.into_iter().cloned());
+    let left = old
+        .iter()
+        .filter(|r| decided.get(&key(r)).is_some_and(|d| std::ptr::eq(*d, *r)));
+    out.extend(left.cloned());
     (out, kept)
 }
 
