@@ -2,7 +2,7 @@
 //! useful for tag transfer (leave-one-out kNN on the shared evaluation folders).
 //!
 //!   feature-bench speed   [--folder DIR] [--count 40] [--table]
-//!   feature-bench quality [--eval DIR]
+//!   feature-bench quality [--eval DIR] [--dump DIR]
 //!
 //! Feature settings (working size, atoms, stride…) can be overridden on both.
 

@@ -34,8 +34,33 @@ pub struct QualityArgs {
     k: usize,
     #[arg(long, default_value_t = 2)]
     threads: usize,
+    /// Also write each set's features to DIR/SET.f32 (little-endian f32, row per picture) and
+    /// DIR/SET.tsv (first line "pictures values colour-values", then path TAB tags), for
+    /// studies outside the Rust code (tools/feature-bench/study/).
+    #[arg(long, value_name = "DIR")]
+    dump: Option<PathBuf>,
     #[command(flatten)]
     features: FeatureArgs,
+}
+
+fn dump_features(
+    dir: &Path,
+    set: &str,
+    x: ArrayView2<f32>,
+    colour: usize,
+    paths: &[PathBuf],
+    tags: &[Vec<String>],
+) -> anyhow::Result<()> {
+    std::fs::create_dir_all(dir).with_context(|| format!("creating {}", dir.display()))?;
+    let raw: Vec<u8> = x.iter().flat_map(|v| v.to_le_bytes()).collect();
+    let values = dir.join(format!("{set}.f32"));
+    std::fs::write(&values, raw).with_context(|| format!("writing {}", values.display()))?;
+    let mut meta = format!("{} {} {colour}\n", x.nrows(), x.ncols());
+    for (path, tags) in paths.iter().zip(tags) {
+        meta.push_str(&format!("{}\t{}\n", path.display(), tags.join(",")));
+    }
+    let listing = dir.join(format!("{set}.tsv"));
+    std::fs::write(&listing, meta).with_context(|| format!("writing {}", listing.display()))
 }
 
 /// The tagged pictures of a folder exactly as `tagweave scan` finds them (every picture
@@ -190,6 +215,9 @@ pub fn run(args: &QualityArgs) -> anyhow::Result<()> {
         let every_tag = vec![true; vocab.len()];
         let frequent: Vec<bool> = counts.iter().map(|&c| c >= 2).collect();
         let loo_x = Standardiser::fit(x.view()).apply(x.view());
+        if let Some(dir) = &args.dump {
+            dump_features(dir, set, x.view(), cd, &paths, &tags)?;
+        }
 
         println!(
             "{:<22} {:>9} {:>13} {:>10}",
@@ -259,6 +287,26 @@ mod tests {
             p,
             array![[1.0f32, 0.0, 1.0], [1.0, 1.0, 1.0], [2.0, 1.0, 0.0]]
         );
+    }
+
+    #[test]
+    fn dumped_features_read_back_row_by_row() {
+        let dir = tempfile::tempdir().unwrap();
+        let x = array![[1.0f32, -2.5, 0.0], [3.0, 4.0, 1e-3]];
+        let paths = [PathBuf::from("a b.png"), PathBuf::from("c.png")];
+        let tags = [
+            vec!["sky".to_string(), "sea".to_string()],
+            vec!["cat".to_string()],
+        ];
+        dump_features(dir.path(), "set", x.view(), 1, &paths, &tags).unwrap();
+        let raw = std::fs::read(dir.path().join("set.f32")).unwrap();
+        let back: Vec<f32> = raw
+            .chunks_exact(4)
+            .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+            .collect();
+        assert_eq!(back, x.iter().copied().collect::<Vec<_>>());
+        let listing = std::fs::read_to_string(dir.path().join("set.tsv")).unwrap();
+        assert_eq!(listing, "2 3 1\na b.png\tsky,sea\nc.png\tcat\n");
     }
 
     #[test]
