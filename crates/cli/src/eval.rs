@@ -4,10 +4,14 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
-use tagweave_eval::{run_experiment, Collection, EvalOptions, Progress};
+use tagweave_eval::{
+    run_experiment, simulate_tagging_order, Collection, EvalOptions, JointScorer, Progress,
+    TagScorer, TaggingOrder, TaggingOrderOptions,
+};
 use tagweave_indexer::variant_features;
 use tagweave_model::{JointOptions, TagUnits};
 use tagweave_store::FeatureTable;
+use tagweave_suggest::TaggingStrategy;
 
 use crate::exit::Outcome;
 use crate::progress;
@@ -35,6 +39,12 @@ pub struct EvalArgs {
     /// own tags are never seen when it is judged.
     #[arg(long, value_name = "FILE")]
     pub known_mislabels: Option<PathBuf>,
+    /// Also simulate which pictures are best tagged by hand first: from a few tagged at
+    /// random, batches chosen by each way `to-tag` offers (and at random) are added and the
+    /// suggester refitted; reports its LRAP over the pictures still untagged. Slow: one
+    /// training per batch and way.
+    #[arg(long)]
+    pub tagging_order: bool,
     /// Print one JSON object instead of a table.
     #[arg(long, conflicts_with = "markdown")]
     pub json: bool,
@@ -78,6 +88,7 @@ impl EvalArgs {
             seed: 7,
             train_fraction: 0.75,
             known_mislabels,
+            tagging_order: false,
             json: false,
             markdown: false,
             tag_layer: TagLayerChoice::Binary,
@@ -160,7 +171,7 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         ..EvalOptions::default()
     };
     let bar = progress::bar("evaluating");
-    let report = run_experiment(&collection, &options, &joint, &mut |event| {
+    let mut report = run_experiment(&collection, &options, &joint, &mut |event| {
         let (done, total) = match event {
             Progress::Fitting { index, total, .. } => (2 * index, 2 * total),
             Progress::Measuring { index, total, .. } => (2 * index + 1, 2 * total),
@@ -183,6 +194,9 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
             );
         }
     }
+    if args.tagging_order {
+        report.tagging_order = Some(simulate_order(&collection, args.seed, &joint)?);
+    }
     if args.json {
         println!("{}", serde_json::to_string(&report)?);
     } else if args.markdown {
@@ -191,6 +205,40 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         print!("{}", report.to_table());
     }
     Ok(Outcome::Done)
+}
+
+/// The tagging-order simulation for the product's suggester, with every way of choosing.
+fn simulate_order(
+    collection: &Collection,
+    seed: u64,
+    joint: &JointOptions,
+) -> anyhow::Result<TaggingOrder> {
+    let bar = progress::bar("simulating tagging order");
+    let make = || Box::new(JointScorer::with_options(joint.clone())) as Box<dyn TagScorer>;
+    let options = TaggingOrderOptions {
+        seed,
+        ..TaggingOrderOptions::default()
+    };
+    let order = simulate_tagging_order(
+        collection.features,
+        collection.tags,
+        collection.content_keys,
+        &options,
+        &TaggingStrategy::ALL,
+        &make,
+        &mut |p| {
+            let ways = TaggingStrategy::ALL.len() + 1;
+            bar.set_message(format!("simulating tagging order: {}", p.method));
+            bar.set_length((ways * p.batches) as u64);
+            let way = std::iter::once(tagweave_eval::RANDOM)
+                .chain(TaggingStrategy::ALL.iter().map(|s| s.name()))
+                .position(|name| name == p.method)
+                .unwrap_or(0);
+            bar.set_position((way * p.batches + p.batch) as u64);
+        },
+    )?;
+    bar.finish_and_clear();
+    Ok(order)
 }
 
 /// One flag per picture of `rel_paths`: does the known-mislabels file

@@ -43,6 +43,8 @@ pub enum EvalError {
         row: usize,
         col: usize,
     },
+    #[error("{pictures} pictures are too few to simulate tagging order starting from {start} tagged: the last measurement is at a third of the set; use a larger set or a smaller start")]
+    TooFewToOrder { pictures: usize, start: usize },
     #[error("an out-of-fold audit needs at least 2 folds, got {0}; use 5")]
     BadFolds(usize),
 }

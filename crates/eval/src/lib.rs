@@ -25,6 +25,7 @@ mod reliability;
 mod report;
 mod runner;
 mod split;
+mod tagging_order;
 
 pub use audit::{audit_out_of_fold, Audit, KnownMislabelScore, KnownMislabels};
 pub use baselines::{PriorScorer, TagScorer};
@@ -42,4 +43,8 @@ pub use runner::{
     SUGGESTIONS,
 };
 pub use split::{split, Split};
+pub use tagging_order::{
+    simulate_tagging_order, TaggingCurve, TaggingOrder, TaggingOrderOptions, TaggingProgress,
+    RANDOM,
+};
 pub use tagweave_suggest::RidgeScorer;

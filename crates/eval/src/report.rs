@@ -7,7 +7,7 @@ use serde::Serialize;
 
 use crate::Reliability;
 
-use crate::KnownMislabels;
+use crate::{KnownMislabels, TaggingOrder};
 
 /// Everything measured in one run: the split, then one entry per method.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -22,6 +22,9 @@ pub struct Report {
     /// the caller has such a list (see [`crate::audit_out_of_fold`]).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub known_mislabels: Option<KnownMislabels>,
+    /// Which pictures to tag next, simulated ([`crate::simulate_tagging_order`]), when asked.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub tagging_order: Option<TaggingOrder>,
 }
 
 /// Tag completion on the test pictures with two or more known tags: ⌊n/2⌋ of each
@@ -182,6 +185,10 @@ impl Report {
             out += &format!("\n{}\n\n", known.summary_line());
             out += &markdown_table(&known.columns(), &known.rows());
         }
+        if let Some(order) = &self.tagging_order {
+            out += &format!("\n{}\n\n", order.summary_line());
+            out += &markdown_table(&order.columns(), &order.rows());
+        }
         for (name, reliability) in self.reliabilities() {
             out += &format!(
                 "\nreliability of {name}'s probabilities on the test pictures:\n\n```\n{}```\n",
@@ -208,6 +215,10 @@ impl Report {
         if let Some(known) = &self.known_mislabels {
             out += &format!("\n{}\n", known.summary_line());
             out += &aligned_table(&known.columns(), &known.rows(), 1);
+        }
+        if let Some(order) = &self.tagging_order {
+            out += &format!("\n{}\n", order.summary_line());
+            out += &aligned_table(&order.columns(), &order.rows(), 1);
         }
         for (name, reliability) in self.reliabilities() {
             out += &format!(
@@ -287,7 +298,7 @@ impl KnownMislabels {
     }
 }
 
-fn markdown_table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
+pub(crate) fn markdown_table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
     let line = |cells: Vec<&str>| format!("| {} |\n", cells.join(" | "));
     let mut out = line(header.iter().map(AsRef::as_ref).collect());
     out += &line(header.iter().map(|_| "---").collect());
@@ -298,7 +309,11 @@ fn markdown_table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
 }
 
 /// Columns padded to their widest cell: the first `text_columns` left-aligned, numbers right-aligned.
-fn aligned_table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>], text_columns: usize) -> String {
+pub(crate) fn aligned_table<S: AsRef<str>>(
+    header: &[S],
+    rows: &[Vec<String>],
+    text_columns: usize,
+) -> String {
     let header: Vec<String> = header.iter().map(|c| c.as_ref().to_string()).collect();
     let widths: Vec<usize> = (0..header.len())
         .map(|c| {

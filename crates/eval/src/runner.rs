@@ -426,6 +426,7 @@ pub fn evaluate_with_variants(
         methods: reports,
         completion: (!completion_rows.is_empty()).then_some(completion),
         known_mislabels: None,
+        tagging_order: None,
     })
 }
 

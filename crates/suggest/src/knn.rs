@@ -18,7 +18,7 @@ fn rows_to_array(rows: Vec<Vec<f32>>, cols: usize) -> Array2<f32> {
 
 /// Rows scaled to unit length (all-zero rows stay zero), so a dot product is
 /// the cosine similarity.
-fn unit_rows(x: ArrayView2<f32>) -> Array2<f32> {
+pub fn unit_rows(x: ArrayView2<f32>) -> Array2<f32> {
     let mut out = x.to_owned();
     for mut row in out.outer_iter_mut() {
         let norm = row.dot(&row).sqrt();

@@ -17,6 +17,7 @@ pub mod ranking;
 mod ridge;
 mod standardiser;
 mod suggester;
+mod tagging_order;
 #[cfg(test)]
 mod test_support;
 mod train_set;
@@ -29,10 +30,13 @@ pub use completion::{
     validation_reveal, weight_grid, Reveal, TagCooccurrence, TagCounts,
 };
 pub use error::SuggestError;
-pub use knn::{knn_leave_one_out_scores, KnnScorer};
+pub use knn::{knn_leave_one_out_scores, unit_rows, KnnScorer};
 pub use ridge::RidgeScorer;
 pub use standardiser::Standardiser;
 pub use suggester::{TagSuggester, TrainingRun};
+pub use tagging_order::{
+    choose_pictures_to_tag, Pick, PickReason, TaggingPool, TaggingStrategy, NEAR_DUPLICATE,
+};
 pub use train_set::{
     choose_by_cv, group_ids, grouped_folds, tag_frequencies, tag_matrix, TrainRows, TrainSet,
 };
