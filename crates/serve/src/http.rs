@@ -10,8 +10,8 @@
 //! Slow clients: every connection has a total deadline (the request must be in within
 //! [`Limits::request`] of the connection, the answer out within [`Limits::whole`]),
 //! however the bytes trickle in; after the answer at most [`Limits::drain_bytes`] are read
-//! and dropped, for at most [`Limits::drain_time`]. How many connections one client may
-//! hold is capped in [`crate::clients`].
+//! and dropped, for at most [`Limits::drain_time`]. How many connections may wait for
+//! their request is capped in `connections.rs`.
 
 use std::io::{ErrorKind, Read, Write};
 use std::net::{Shutdown, TcpStream};

@@ -23,11 +23,11 @@
 //!   that became a link since the scan is refused by name; the index is not rescanned (the
 //!   page says so), and the server holds the store, and so its lock, for as long as it runs.
 //! - **Slow clients lock no one out.** Each connection has a total deadline, the input
-//!   read after an answer is capped, and each client (the local user at the other end) may
-//!   hold only a few connections that are still sending their request (see [`clients`]).
+//!   read after an answer is capped, and when too many connections are still sending their
+//!   request the oldest of them is let go (see `connections.rs`).
 
 mod app;
-pub mod clients;
+mod connections;
 pub mod guard;
 mod http;
 pub mod ids;
@@ -46,12 +46,9 @@ use tagweave_writeback::WritebackError;
 
 use app::App;
 pub use app::{Incoming, Method, Reply};
-use clients::{client_of, Clients};
+use connections::Connections;
 pub use ids::PageIds;
 
-/// Connections served at once, all clients together; more are answered 503 at once. A
-/// page with a grid asks for a few dozen thumbnails, a browser opens six connections.
-const MAX_CONNECTIONS: usize = 64;
 
 #[derive(Debug, thiserror::Error)]
 pub enum ServeError {
@@ -152,9 +149,9 @@ impl ReviewServer {
 
     /// Answers requests for as long as the process runs (Ctrl-C ends it; the kernel then
     /// releases the store's lock). Each connection gets its own thread, at most
-    /// [`MAX_CONNECTIONS`] at once, and each client only its share (see [`clients`]).
+    /// 64 at once (see `connections.rs`).
     pub fn run(self) -> Result<(), ServeError> {
-        let clients = Arc::new(Clients::default());
+        let connections = Arc::new(Connections::default());
         for stream in self.listener.incoming() {
             let stream = match stream {
                 Ok(stream) => stream,
@@ -164,17 +161,12 @@ impl ReviewServer {
             };
             let started = Instant::now();
             let app = Arc::clone(&self.app);
-            let ticket = if clients.open() >= MAX_CONNECTIONS {
-                None
-            } else {
-                clients.admit(client_of(&stream), &stream)
-            };
-            let Some(ticket) = ticket else {
+            let Some(ticket) = connections.admit(&stream) else {
                 http::refuse_now(stream, &app.refused(503));
                 continue;
             };
             let admitted = Admitted {
-                clients: Arc::clone(&clients),
+                connections: Arc::clone(&connections),
                 ticket: Some(ticket),
             };
             // With no thread to be had, the closure is dropped (and with it the
@@ -197,16 +189,16 @@ impl ReviewServer {
     }
 }
 
-/// A connection's place among its client's; handed back when dropped.
+/// A connection's place among those served; handed back when dropped.
 struct Admitted {
-    clients: Arc<Clients>,
-    ticket: Option<clients::Ticket>,
+    connections: Arc<Connections>,
+    ticket: Option<connections::Ticket>,
 }
 
 impl Admitted {
     fn request_read(&self) {
         if let Some(ticket) = &self.ticket {
-            self.clients.request_read(ticket);
+            self.connections.request_read(ticket);
         }
     }
 }
@@ -214,7 +206,7 @@ impl Admitted {
 impl Drop for Admitted {
     fn drop(&mut self) {
         if let Some(ticket) = self.ticket.take() {
-            self.clients.closed(ticket);
+            self.connections.closed(ticket);
         }
     }
 }
