@@ -94,7 +94,6 @@ fn dom(browser: &str, url: &str) -> String {
     out
 }
 
-
 /// A headless chromium steered over its remote-debugging WebSocket; killed when dropped.
 struct Browser {
     child: Child,
@@ -165,7 +164,11 @@ fn debugger_json(port: u16, path: &str) -> serde_json::Value {
     socket
         .set_read_timeout(Some(Duration::from_secs(30)))
         .unwrap();
-    write!(socket, "GET {path} HTTP/1.1\r\nHost: 127.0.0.1:{port}\r\n\r\n").unwrap();
+    write!(
+        socket,
+        "GET {path} HTTP/1.1\r\nHost: 127.0.0.1:{port}\r\n\r\n"
+    )
+    .unwrap();
     let mut raw = Vec::new();
     let mut chunk = [0u8; 8192];
     loop {
@@ -226,7 +229,11 @@ impl Browser {
                 panic!("chromium did not open its remote-debugging port within 60 s");
             }
         };
-        let authority = browser_ws["ws://".len()..].split('/').next().unwrap().to_string();
+        let authority = browser_ws["ws://".len()..]
+            .split('/')
+            .next()
+            .unwrap()
+            .to_string();
         let port: u16 = authority.rsplit(':').next().unwrap().parse().unwrap();
         // The page chromium opened (about:blank), from its target list.
         let started = Instant::now();
@@ -241,7 +248,10 @@ impl Browser {
             if let Some(page) = page {
                 break page;
             }
-            assert!(started.elapsed() < Duration::from_secs(30), "no page target");
+            assert!(
+                started.elapsed() < Duration::from_secs(30),
+                "no page target"
+            );
             std::thread::sleep(Duration::from_millis(100));
         };
         let mut socket = TcpStream::connect(("127.0.0.1", port)).unwrap();
@@ -340,7 +350,10 @@ impl Browser {
     }
 
     fn screenshot(&mut self, name: &str) -> PathBuf {
-        let result = self.call("Page.captureScreenshot", serde_json::json!({"format": "png"}));
+        let result = self.call(
+            "Page.captureScreenshot",
+            serde_json::json!({"format": "png"}),
+        );
         let bytes = base64_decode(result["data"].as_str().unwrap());
         let path = screenshot_dir().join(name);
         std::fs::write(&path, &bytes).unwrap();
@@ -412,7 +425,10 @@ fn open_search_and_accept_in_a_real_browser() {
     // page with the key gone from its address bar. Scripts cannot read the pass.
     let mut tab = Browser::launch(browser);
     tab.open(&served.entry_url);
-    assert_eq!(tab.eval("location.href").as_str(), Some(served.url.as_str()));
+    assert_eq!(
+        tab.eval("location.href").as_str(),
+        Some(served.url.as_str())
+    );
     let page = tab.dom();
     assert!(page.contains("<form method=\"get\" action=\"/\""), "{page}");
     assert_eq!(tab.eval("document.cookie").as_str(), Some(""));
@@ -436,7 +452,9 @@ fn open_search_and_accept_in_a_real_browser() {
     }
     // Every thumbnail arrived (same-origin requests with the pass).
     assert_eq!(
-        tab.eval("Array.from(document.images).filter(i => i.complete && i.naturalWidth > 0).length"),
+        tab.eval(
+            "Array.from(document.images).filter(i => i.complete && i.naturalWidth > 0).length"
+        ),
         serde_json::json!(24)
     );
     // (The legend above the grid shows one of each mark too.)

@@ -151,7 +151,13 @@ impl Served {
     }
 
     /// A request with the pass (when there is one) and `headers`.
-    pub fn send(&self, method: &str, target: &str, headers: &[(&str, &str)], body: &[u8]) -> Answer {
+    pub fn send(
+        &self,
+        method: &str,
+        target: &str,
+        headers: &[(&str, &str)],
+        body: &[u8],
+    ) -> Answer {
         let mut all: Vec<(&str, &str)> = Vec::new();
         if let Some(pass) = &self.pass {
             all.push(("Cookie", pass));

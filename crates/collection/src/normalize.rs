@@ -67,14 +67,16 @@ mod tests {
         assert_eq!(misleading_char("caf\u{e9} \u{200d} \u{1F468}"), None);
         assert_eq!(misleading_char("gpj.exe\u{202E}"), Some('\u{202E}'));
         for p in [
-            0x202A, 0x202B, 0x202C, 0x202D, 0x202E, 0x2066, 0x2067, 0x2068, 0x2069, 0x200E,
-            0x200F, 0x061C, 0xFDD0, 0xFDEF, 0xFFFE, 0xFFFF, 0x1FFFE, 0x10FFFF,
+            0x202A, 0x202B, 0x202C, 0x202D, 0x202E, 0x2066, 0x2067, 0x2068, 0x2069, 0x200E, 0x200F,
+            0x061C, 0xFDD0, 0xFDEF, 0xFFFE, 0xFFFF, 0x1FFFE, 0x10FFFF,
         ] {
             let c = char::from_u32(p).unwrap();
             assert_eq!(misleading_char(&format!("a{c}b")), Some(c), "U+{p:04X}");
         }
         // Neighbours of the ranges are ordinary characters.
-        for p in [0x2029, 0x202F, 0x2065, 0x206A, 0xFDCF, 0xFDF0, 0xFFFD, 0x1FFFD] {
+        for p in [
+            0x2029, 0x202F, 0x2065, 0x206A, 0xFDCF, 0xFDF0, 0xFFFD, 0x1FFFD,
+        ] {
             let c = char::from_u32(p).unwrap();
             assert_eq!(misleading_char(&format!("a{c}b")), None, "U+{p:04X}");
         }

@@ -845,8 +845,7 @@ impl App {
     /// file name a sidecar of it would have (`STEM.txt`, `NAME.EXT.xmp`, … in any case).
     fn linked_sidecar(&self, item: &ItemRecord) -> Option<String> {
         let is_link = |rel: &str| {
-            std::fs::symlink_metadata(self.root.join(rel))
-                .is_ok_and(|m| m.file_type().is_symlink())
+            std::fs::symlink_metadata(self.root.join(rel)).is_ok_and(|m| m.file_type().is_symlink())
         };
         if let Some(s) = item.sidecars.iter().find(|s| is_link(&s.rel_path)) {
             return Some(s.rel_path.clone());

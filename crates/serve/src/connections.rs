@@ -168,6 +168,9 @@ mod tests {
         assert!(connections.admit(&s).is_none(), "one too many");
         let (_, _, ticket) = kept.pop().unwrap();
         connections.closed(ticket);
-        assert!(connections.admit(&s).is_some(), "room again after one closed");
+        assert!(
+            connections.admit(&s).is_some(),
+            "room again after one closed"
+        );
     }
 }

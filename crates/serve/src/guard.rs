@@ -111,9 +111,11 @@ pub fn change_origin_allowed(
 /// without parameters such as a charset).
 pub fn is_form(content_type: Option<&str>) -> bool {
     content_type.is_some_and(|t| {
-        t.split(';')
-            .next()
-            .is_some_and(|media| media.trim().eq_ignore_ascii_case("application/x-www-form-urlencoded"))
+        t.split(';').next().is_some_and(|media| {
+            media
+                .trim()
+                .eq_ignore_ascii_case("application/x-www-form-urlencoded")
+        })
     })
 }
 
@@ -196,7 +198,10 @@ mod tests {
         let allowed = loopback_hosts(9000);
         let ok = |o, r| change_origin_allowed(o, r, &allowed);
         assert!(ok(Some("http://127.0.0.1:9000"), None));
-        assert!(ok(Some("http://LOCALHOST:9000"), Some("http://evil.example/")));
+        assert!(ok(
+            Some("http://LOCALHOST:9000"),
+            Some("http://evil.example/")
+        ));
         assert!(!ok(Some("null"), Some("http://127.0.0.1:9000/")));
         assert!(!ok(Some("http://evil.example"), None));
         assert!(!ok(Some("http://127.0.0.1:9001"), None));
@@ -207,7 +212,10 @@ mod tests {
         assert!(ok(None, Some("http://127.0.0.1:9000?x=1")));
         assert!(!ok(None, Some("http://127.0.0.1:9000.evil.example/")));
         assert!(!ok(None, Some("http://127.0.0.1:90001/")));
-        assert!(!ok(None, Some("http://evil.example/http://127.0.0.1:9000/")));
+        assert!(!ok(
+            None,
+            Some("http://evil.example/http://127.0.0.1:9000/")
+        ));
         assert!(!ok(None, Some("http://user@127.0.0.1:9000/")));
         assert!(!ok(None, Some("/picture/ab")));
         assert!(!ok(None, Some("http:/")));
@@ -221,7 +229,9 @@ mod tests {
         // "application/x-www-form-urlencoded"; RFC 9110 §8.3.1 (media types are
         // case-insensitive, parameters follow ";").
         assert!(is_form(Some("application/x-www-form-urlencoded")));
-        assert!(is_form(Some("Application/X-WWW-Form-URLEncoded; charset=UTF-8")));
+        assert!(is_form(Some(
+            "Application/X-WWW-Form-URLEncoded; charset=UTF-8"
+        )));
         assert!(!is_form(Some("text/plain")));
         assert!(!is_form(Some("multipart/form-data; boundary=x")));
         assert!(!is_form(Some("application/x-www-form-urlencodedx")));

@@ -244,6 +244,7 @@ fn reason(status: u16) -> &'static str {
         409 => "Conflict",
         411 => "Length Required",
         413 => "Content Too Large",
+        415 => "Unsupported Media Type",
         431 => "Request Header Fields Too Large",
         500 => "Internal Server Error",
         503 => "Service Unavailable",
@@ -387,10 +388,19 @@ mod tests {
         let mut reply = Reply::new(303, "text/html; charset=utf-8", Vec::new());
         reply.set_cookie = Some("tagweave-pass=x; Path=/; HttpOnly; SameSite=Strict".into());
         let text = String::from_utf8(render_reply(&reply, false, UNIX_EPOCH)).unwrap();
-        assert!(text.contains("\r\nCross-Origin-Resource-Policy: same-origin\r\n"), "{text}");
+        assert!(
+            text.contains("\r\nCross-Origin-Resource-Policy: same-origin\r\n"),
+            "{text}"
+        );
         assert!(text.contains("\r\nReferrer-Policy: same-origin\r\n"));
-        assert!(text.contains("\r\nSet-Cookie: tagweave-pass=x; Path=/; HttpOnly; SameSite=Strict\r\n"));
+        assert!(
+            text.contains("\r\nSet-Cookie: tagweave-pass=x; Path=/; HttpOnly; SameSite=Strict\r\n")
+        );
         assert!(text.contains("frame-ancestors 'none'"));
+        // source: RFC 9110 §15.5.16, 415 Unsupported Media Type.
+        let form_refused =
+            render_reply(&Reply::new(415, "text/html", Vec::new()), false, UNIX_EPOCH);
+        assert!(form_refused.starts_with(b"HTTP/1.1 415 Unsupported Media Type\r\n"));
     }
 
     const TEST_LIMITS: Limits = Limits {
@@ -499,7 +509,9 @@ mod tests {
         client
             .set_read_timeout(Some(Duration::from_millis(20)))
             .unwrap();
-        let head = b"GET / HTTP/1.1\r\nX-Slow: ".iter().chain(std::iter::repeat(&b'a'));
+        let head = b"GET / HTTP/1.1\r\nX-Slow: "
+            .iter()
+            .chain(std::iter::repeat(&b'a'));
         let mut answer = Vec::new();
         let mut served_in = None;
         // Bounded: at most 100 bytes, 5 s.

@@ -116,8 +116,14 @@ mod tests {
         assert_ne!(id, plain);
         assert_ne!(a.of("1950s/harbour.jpg"), a.of("1950s/harbour2.jpg"));
         // The same store gives the same ids again; another store other ids.
-        assert_eq!(PageIds::open(one.path()).unwrap().of("1950s/harbour.jpg"), id);
-        assert_ne!(PageIds::open(two.path()).unwrap().of("1950s/harbour.jpg"), id);
+        assert_eq!(
+            PageIds::open(one.path()).unwrap().of("1950s/harbour.jpg"),
+            id
+        );
+        assert_ne!(
+            PageIds::open(two.path()).unwrap().of("1950s/harbour.jpg"),
+            id
+        );
         #[cfg(unix)]
         {
             use std::os::unix::fs::PermissionsExt;

@@ -49,7 +49,6 @@ pub use app::{Incoming, Method, Reply};
 use connections::Connections;
 pub use ids::PageIds;
 
-
 #[derive(Debug, thiserror::Error)]
 pub enum ServeError {
     #[error(
