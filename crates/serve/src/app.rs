@@ -12,7 +12,7 @@ use tagweave_store::Store;
 use tagweave_writeback::{commit_plan, diff, original_path, Planner, TagChange};
 
 use crate::guard::{
-    change_origin_allowed, cookie, host_allowed, is_form, loopback_hosts, pass_cookie,
+    change_origin_allowed, cookies, host_allowed, is_form, loopback_hosts, pass_cookie,
     site_allowed, Secret, PASS_COOKIE,
 };
 use crate::ids::PageIds;
@@ -205,7 +205,7 @@ impl App {
             .split_once('?')
             .unwrap_or((request.target, ""));
         let has_pass =
-            cookie(request.cookie, PASS_COOKIE).is_some_and(|offered| self.pass.matches(offered));
+            cookies(request.cookie, PASS_COOKIE).any(|offered| self.pass.matches(offered));
         if let Some(key) = path.strip_prefix("/open/") {
             return self.open(request, key, has_pass);
         }

@@ -119,22 +119,17 @@ pub fn is_form(content_type: Option<&str>) -> bool {
     })
 }
 
-/// The value of cookie `name` in a `Cookie` header (`a=1; b=2`), if it is there once.
-/// Two cookies of that name (one set by something else) give `None`: never guess which.
-pub fn cookie<'a>(header: Option<&'a str>, name: &str) -> Option<&'a str> {
-    let mut found = None;
-    for pair in header?.split(';') {
-        let Some((key, value)) = pair.split_once('=') else {
-            continue;
-        };
-        if key.trim() == name {
-            if found.is_some() {
-                return None;
-            }
-            found = Some(value.trim().trim_matches('"'));
-        }
-    }
-    found
+/// Every value of cookie `name` in a `Cookie` header (`a=1; b=2`). There can be more than
+/// one: a web server on another port of this machine may set a cookie of the same name
+/// for 127.0.0.1 (cookies do not tell ports apart). The pass is checked against each, so
+/// such a cookie can neither stand in for the pass nor hide it.
+pub fn cookies<'a>(header: Option<&'a str>, name: &'a str) -> impl Iterator<Item = &'a str> {
+    header
+        .unwrap_or("")
+        .split(';')
+        .filter_map(|pair| pair.split_once('='))
+        .filter(move |(key, _)| key.trim() == name)
+        .map(|(_, value)| value.trim().trim_matches('"'))
 }
 
 /// The `Set-Cookie` value that hands the pass to a browser: not readable by scripts, never
@@ -239,17 +234,15 @@ mod tests {
     }
 
     #[test]
-    fn the_pass_is_found_in_a_cookie_header_once() {
+    fn the_pass_is_found_among_the_cookies_of_a_request() {
         // source: RFC 6265 §4.2.1, cookie-string = cookie-pair *( ";" SP cookie-pair ).
-        let h = "a=1; tagweave-pass=abc; b=2";
-        assert_eq!(cookie(Some(h), PASS_COOKIE), Some("abc"));
-        assert_eq!(cookie(Some("tagweave-pass=abc"), PASS_COOKIE), Some("abc"));
-        assert_eq!(cookie(Some("x-tagweave-pass=abc"), PASS_COOKIE), None);
-        assert_eq!(
-            cookie(Some("tagweave-pass=abc; tagweave-pass=def"), PASS_COOKIE),
-            None
-        );
-        assert_eq!(cookie(None, PASS_COOKIE), None);
+        let all = |h: Option<&str>| cookies(h, PASS_COOKIE).collect::<Vec<_>>().join(",");
+        assert_eq!(all(Some("a=1; tagweave-pass=abc; b=2")), "abc");
+        assert_eq!(all(Some("tagweave-pass=abc")), "abc");
+        assert_eq!(all(Some("x-tagweave-pass=abc")), "");
+        assert_eq!(all(Some("tagweave-pass=abc; tagweave-pass=def")), "abc,def");
+        assert_eq!(all(Some("tagweave-pass")), "");
+        assert_eq!(all(None), "");
         let pass = Secret::new();
         let set = pass_cookie(&pass);
         assert!(set.starts_with(&format!("{PASS_COOKIE}={};", pass.as_str())));

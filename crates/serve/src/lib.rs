@@ -9,7 +9,7 @@
 //! - **Nothing without this run's pass.** `serve` prints one address with a one-time key;
 //!   the browser that opens it gets a pass (an `HttpOnly; SameSite=Strict` cookie) and the
 //!   key is spent. Every request without the pass is refused, reads included, so other
-//!   users of the machine and other web pages learn nothing (see [`guard`]).
+//!   users of the machine and other web pages learn nothing (see `guard.rs`).
 //! - **Pictures only by id.** Pictures and their reduced copies are served by the 16-digit
 //!   page id of an indexed item (a hash keyed with a secret of the store, see [`ids`]) and
 //!   read from the item's indexed path; nothing in a request is ever used as a file path.
@@ -28,7 +28,7 @@
 
 mod app;
 mod connections;
-pub mod guard;
+mod guard;
 mod http;
 pub mod ids;
 mod pages;
@@ -141,7 +141,7 @@ impl ReviewServer {
     }
 
     /// The address to open, for printing: it carries this run's one-time key, and the
-    /// first browser to open it is let in (see [`guard`]).
+    /// first browser to open it is let in (see `guard.rs`).
     pub fn url(&self) -> String {
         format!("http://{}{}", self.address, self.app.entry_path())
     }
