@@ -94,9 +94,19 @@ fn dom(browser: &str, url: &str) -> String {
     out
 }
 
+/// A chromium process, killed when dropped (also when a test fails half-way).
+struct Chromium(Child);
+
+impl Drop for Chromium {
+    fn drop(&mut self) {
+        let _ = self.0.kill();
+        let _ = self.0.wait();
+    }
+}
+
 /// A headless chromium steered over its remote-debugging WebSocket; killed when dropped.
 struct Browser {
-    child: Child,
+    child: Chromium,
     socket: TcpStream,
     next_id: u64,
     /// Events seen while waiting for answers, by method name.
@@ -106,7 +116,7 @@ struct Browser {
 
 // source: RFC 6455 §5.2 (base framing: FIN/opcode byte, MASK bit and 7/16/64-bit
 // lengths, client frames masked) and §4.1 (the opening handshake).
-fn ws_send(socket: &mut TcpStream, text: &str) {
+fn ws_send(socket: &mut TcpStream, text: &str) -> std::io::Result<()> {
     let payload = text.as_bytes();
     let mut frame = vec![0x81u8];
     match payload.len() {
@@ -123,7 +133,7 @@ fn ws_send(socket: &mut TcpStream, text: &str) {
     let mask = [0x5a, 0x17, 0xc3, 0x2e];
     frame.extend_from_slice(&mask);
     frame.extend(payload.iter().enumerate().map(|(i, b)| b ^ mask[i % 4]));
-    socket.write_all(&frame).unwrap();
+    socket.write_all(&frame)
 }
 
 /// One whole text message (continuation frames joined).
@@ -193,27 +203,29 @@ fn debugger_json(port: u16, path: &str) -> serde_json::Value {
 impl Browser {
     fn launch(browser: &str) -> Browser {
         let profile = tempfile::tempdir().unwrap();
-        let mut child = Command::new(browser)
-            .args([
-                "--headless",
-                "--no-sandbox",
-                "--disable-gpu",
-                "--no-first-run",
-                "--disable-background-networking",
-                "--disable-component-update",
-                "--disable-sync",
-                "--hide-scrollbars",
-                "--window-size=1280,1000",
-                "--remote-debugging-port=0",
-            ])
-            .arg(format!("--user-data-dir={}", profile.path().display()))
-            .arg("about:blank")
-            .stdout(Stdio::null())
-            .stderr(Stdio::piped())
-            .spawn()
-            .expect("chromium starts");
+        let mut child = Chromium(
+            Command::new(browser)
+                .args([
+                    "--headless",
+                    "--no-sandbox",
+                    "--disable-gpu",
+                    "--no-first-run",
+                    "--disable-background-networking",
+                    "--disable-component-update",
+                    "--disable-sync",
+                    "--hide-scrollbars",
+                    "--window-size=1280,1000",
+                    "--remote-debugging-port=0",
+                ])
+                .arg(format!("--user-data-dir={}", profile.path().display()))
+                .arg("about:blank")
+                .stdout(Stdio::null())
+                .stderr(Stdio::piped())
+                .spawn()
+                .expect("chromium starts"),
+        );
         // It says where it listens on stderr: "DevTools listening on ws://…".
-        let stderr = child.stderr.take().unwrap();
+        let stderr = child.0.stderr.take().unwrap();
         let (tx, rx) = std::sync::mpsc::channel();
         std::thread::spawn(move || {
             for line in BufReader::new(stderr).lines().map_while(Result::ok) {
@@ -222,13 +234,9 @@ impl Browser {
                 }
             }
         });
-        let browser_ws = match rx.recv_timeout(Duration::from_secs(60)) {
-            Ok(url) => url,
-            Err(_) => {
-                let _ = child.kill();
-                panic!("chromium did not open its remote-debugging port within 60 s");
-            }
-        };
+        let browser_ws = rx
+            .recv_timeout(Duration::from_secs(60))
+            .expect("chromium opens its remote-debugging port within 60 s");
         let authority = browser_ws["ws://".len()..]
             .split('/')
             .next()
@@ -289,7 +297,7 @@ impl Browser {
         self.next_id += 1;
         let id = self.next_id;
         let message = serde_json::json!({"id": id, "method": method, "params": params});
-        ws_send(&mut self.socket, &message.to_string());
+        ws_send(&mut self.socket, &message.to_string()).expect("the browser listens");
         let started = Instant::now();
         loop {
             assert!(
@@ -370,8 +378,17 @@ impl Browser {
 
 impl Drop for Browser {
     fn drop(&mut self) {
-        let _ = self.child.kill();
-        let _ = self.child.wait();
+        // Asked to close, chromium ends with all its helper processes; `child` is killed
+        // after this in any case.
+        let close = serde_json::json!({"id": 0, "method": "Browser.close"});
+        let _ = ws_send(&mut self.socket, &close.to_string());
+        let started = Instant::now();
+        while started.elapsed() < Duration::from_secs(10) {
+            if self.child.0.try_wait().is_ok_and(|s| s.is_some()) {
+                break;
+            }
+            std::thread::sleep(Duration::from_millis(50));
+        }
     }
 }
 
