@@ -1,18 +1,22 @@
-//! The review page in a real browser: Debian's chromium, headless, renders the pages that
-//! `tagweave serve` makes for the trained demo archive. It searches a keyword, opens a
-//! picture, accepts a suggestion with the form the browser rendered, and the sidecar on
-//! disk must then carry the tag. Screenshots land in target/review-page-screenshots/.
+//! The review page in a real browser: Debian's chromium, headless, used the way a person
+//! would. It opens the one-time address `tagweave serve` printed (and is let in by the pass
+//! cookie it gets), searches a keyword, opens a picture, clicks "accept" on a suggestion,
+//! and the sidecar on disk must then carry the tag. A second browser opening the same
+//! address is refused. Screenshots land in target/review-page-screenshots/.
 //!
-//! Headless chromium cannot click without a remote-control protocol, so the accept form's
-//! POST is sent by the test with exactly the fields of the form in the browser's DOM (its
-//! hidden token and its button's name and value); every page is rendered by chromium.
-//! Without chromium (`apt-get install chromium`) the test says so and passes.
+//! The test steers chromium over its remote-debugging protocol (JSON messages over a
+//! WebSocket on the loopback interface, both written here in a few lines): navigate, read
+//! the DOM, click, take a screenshot. Every request is the browser's own, with its own
+//! cookie, `Origin`, `Sec-Fetch-Site` and form encoding. Without chromium
+//! (`apt-get install chromium`) the test says so and passes.
 
 mod common;
 mod review_page_support;
 
+use std::io::{BufRead, BufReader, Read, Write};
+use std::net::TcpStream;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
 use common::*;
@@ -90,26 +94,337 @@ fn dom(browser: &str, url: &str) -> String {
     out
 }
 
-fn screenshot(browser: &str, url: &str, name: &str) -> PathBuf {
-    let path = screenshot_dir().join(name);
-    let _ = std::fs::remove_file(&path);
-    run_chromium(
-        browser,
-        &[format!("--screenshot={}", path.display()), url.to_string()],
-    );
-    let bytes = std::fs::read(&path).unwrap_or_else(|_| panic!("no screenshot of {url}"));
-    // source: PNG signature, ISO/IEC 15948 §5.2.
-    assert_eq!(&bytes[..8], b"\x89PNG\r\n\x1a\n", "{name} is a PNG");
-    assert!(
-        bytes.len() > 20_000,
-        "{name} is a real page, {} bytes",
-        bytes.len()
-    );
-    path
+/// A chromium process, killed when dropped (also when a test fails half-way).
+struct Chromium(Child);
+
+impl Drop for Chromium {
+    fn drop(&mut self) {
+        let _ = self.0.kill();
+        let _ = self.0.wait();
+    }
+}
+
+/// A headless chromium steered over its remote-debugging WebSocket; killed when dropped.
+struct Browser {
+    child: Chromium,
+    socket: TcpStream,
+    next_id: u64,
+    /// Events seen while waiting for answers, by method name.
+    events: Vec<String>,
+    _profile: tempfile::TempDir,
+}
+
+// source: RFC 6455 §5.2 (base framing: FIN/opcode byte, MASK bit and 7/16/64-bit
+// lengths, client frames masked) and §4.1 (the opening handshake).
+fn ws_send(socket: &mut TcpStream, text: &str) -> std::io::Result<()> {
+    let payload = text.as_bytes();
+    let mut frame = vec![0x81u8];
+    match payload.len() {
+        n if n < 126 => frame.push(0x80 | n as u8),
+        n if n < 65_536 => {
+            frame.push(0x80 | 126);
+            frame.extend_from_slice(&(n as u16).to_be_bytes());
+        }
+        n => {
+            frame.push(0x80 | 127);
+            frame.extend_from_slice(&(n as u64).to_be_bytes());
+        }
+    }
+    let mask = [0x5a, 0x17, 0xc3, 0x2e];
+    frame.extend_from_slice(&mask);
+    frame.extend(payload.iter().enumerate().map(|(i, b)| b ^ mask[i % 4]));
+    socket.write_all(&frame)
+}
+
+/// One whole text message (continuation frames joined).
+fn ws_receive(socket: &mut TcpStream) -> std::io::Result<String> {
+    let mut message = Vec::new();
+    loop {
+        let mut head = [0u8; 2];
+        socket.read_exact(&mut head)?;
+        let length = match head[1] & 0x7f {
+            126 => {
+                let mut l = [0u8; 2];
+                socket.read_exact(&mut l)?;
+                u16::from_be_bytes(l) as usize
+            }
+            127 => {
+                let mut l = [0u8; 8];
+                socket.read_exact(&mut l)?;
+                u64::from_be_bytes(l) as usize
+            }
+            n => n as usize,
+        };
+        let mut payload = vec![0u8; length];
+        socket.read_exact(&mut payload)?;
+        if head[0] & 0x0f == 0x8 {
+            return Err(std::io::ErrorKind::ConnectionAborted.into());
+        }
+        message.extend_from_slice(&payload);
+        if head[0] & 0x80 != 0 {
+            return Ok(String::from_utf8_lossy(&message).into_owned());
+        }
+    }
+}
+
+/// A JSON document from chromium's debugging HTTP server, read by its Content-Length
+/// (that server keeps connections open).
+fn debugger_json(port: u16, path: &str) -> serde_json::Value {
+    let mut socket = TcpStream::connect(("127.0.0.1", port)).unwrap();
+    socket
+        .set_read_timeout(Some(Duration::from_secs(30)))
+        .unwrap();
+    write!(
+        socket,
+        "GET {path} HTTP/1.1\r\nHost: 127.0.0.1:{port}\r\n\r\n"
+    )
+    .unwrap();
+    let mut raw = Vec::new();
+    let mut chunk = [0u8; 8192];
+    loop {
+        let n = socket.read(&mut chunk).expect("chromium answers");
+        assert!(n > 0, "chromium closed the connection");
+        raw.extend_from_slice(&chunk[..n]);
+        let Some(end) = raw.windows(4).position(|w| w == b"\r\n\r\n") else {
+            continue;
+        };
+        let head = String::from_utf8_lossy(&raw[..end]).to_ascii_lowercase();
+        let length: usize = head
+            .lines()
+            .find_map(|l| l.strip_prefix("content-length:"))
+            .and_then(|v| v.trim().parse().ok())
+            .expect("a Content-Length");
+        if raw.len() >= end + 4 + length {
+            return serde_json::from_slice(&raw[end + 4..end + 4 + length]).unwrap();
+        }
+    }
+}
+
+impl Browser {
+    fn launch(browser: &str) -> Browser {
+        let profile = tempfile::tempdir().unwrap();
+        let mut child = Chromium(
+            Command::new(browser)
+                .args([
+                    "--headless",
+                    "--no-sandbox",
+                    "--disable-gpu",
+                    "--no-first-run",
+                    "--disable-background-networking",
+                    "--disable-component-update",
+                    "--disable-sync",
+                    "--hide-scrollbars",
+                    "--window-size=1280,1000",
+                    "--remote-debugging-port=0",
+                ])
+                .arg(format!("--user-data-dir={}", profile.path().display()))
+                .arg("about:blank")
+                .stdout(Stdio::null())
+                .stderr(Stdio::piped())
+                .spawn()
+                .expect("chromium starts"),
+        );
+        // It says where it listens on stderr: "DevTools listening on ws://…".
+        let stderr = child.0.stderr.take().unwrap();
+        let (tx, rx) = std::sync::mpsc::channel();
+        std::thread::spawn(move || {
+            for line in BufReader::new(stderr).lines().map_while(Result::ok) {
+                if let Some(at) = line.find("ws://") {
+                    let _ = tx.send(line[at..].trim().to_string());
+                }
+            }
+        });
+        let browser_ws = rx
+            .recv_timeout(Duration::from_secs(60))
+            .expect("chromium opens its remote-debugging port within 60 s");
+        let authority = browser_ws["ws://".len()..]
+            .split('/')
+            .next()
+            .unwrap()
+            .to_string();
+        let port: u16 = authority.rsplit(':').next().unwrap().parse().unwrap();
+        // The page chromium opened (about:blank), from its target list.
+        let started = Instant::now();
+        let page_path = loop {
+            let targets = debugger_json(port, "/json/list");
+            let page = targets.as_array().and_then(|all| {
+                all.iter()
+                    .find(|t| t["type"] == "page")
+                    .and_then(|t| t["webSocketDebuggerUrl"].as_str())
+                    .map(|u| u[u.find("/devtools/").unwrap()..].to_string())
+            });
+            if let Some(page) = page {
+                break page;
+            }
+            assert!(
+                started.elapsed() < Duration::from_secs(30),
+                "no page target"
+            );
+            std::thread::sleep(Duration::from_millis(100));
+        };
+        let mut socket = TcpStream::connect(("127.0.0.1", port)).unwrap();
+        socket
+            .set_read_timeout(Some(Duration::from_secs(60)))
+            .unwrap();
+        write!(
+            socket,
+            "GET {page_path} HTTP/1.1\r\nHost: {authority}\r\nUpgrade: websocket\r\n\
+             Connection: Upgrade\r\nSec-WebSocket-Key: dGhlIHNhbXBsZSBub25jZQ==\r\n\
+             Sec-WebSocket-Version: 13\r\n\r\n"
+        )
+        .unwrap();
+        let mut head = Vec::new();
+        let mut byte = [0u8; 1];
+        while !head.ends_with(b"\r\n\r\n") {
+            socket.read_exact(&mut byte).unwrap();
+            head.push(byte[0]);
+        }
+        let head = String::from_utf8_lossy(&head);
+        assert!(head.starts_with("HTTP/1.1 101"), "{head}");
+        let mut browser = Browser {
+            child,
+            socket,
+            next_id: 0,
+            events: Vec::new(),
+            _profile: profile,
+        };
+        browser.call("Page.enable", serde_json::json!({}));
+        browser
+    }
+
+    /// Sends one command and returns its result (events that arrive meanwhile are kept).
+    fn call(&mut self, method: &str, params: serde_json::Value) -> serde_json::Value {
+        self.next_id += 1;
+        let id = self.next_id;
+        let message = serde_json::json!({"id": id, "method": method, "params": params});
+        ws_send(&mut self.socket, &message.to_string()).expect("the browser listens");
+        let started = Instant::now();
+        loop {
+            assert!(
+                started.elapsed() < Duration::from_secs(60),
+                "{method}: no answer in 60 s"
+            );
+            let text = ws_receive(&mut self.socket).expect("the browser answers");
+            let answer: serde_json::Value = serde_json::from_str(&text).unwrap();
+            if answer["id"] == id {
+                assert!(answer.get("error").is_none(), "{method}: {answer}");
+                return answer["result"].clone();
+            }
+            if let Some(event) = answer["method"].as_str() {
+                self.events.push(event.to_string());
+            }
+        }
+    }
+
+    /// Waits (60 s at most) for the page to finish loading after `act` started a load.
+    fn load(&mut self, act: impl FnOnce(&mut Browser)) {
+        self.events.clear();
+        act(self);
+        let started = Instant::now();
+        while !self.events.iter().any(|e| e == "Page.loadEventFired") {
+            assert!(
+                started.elapsed() < Duration::from_secs(60),
+                "the page did not load within 60 s"
+            );
+            let text = ws_receive(&mut self.socket).expect("the browser reports");
+            let event: serde_json::Value = serde_json::from_str(&text).unwrap();
+            if let Some(name) = event["method"].as_str() {
+                self.events.push(name.to_string());
+            }
+        }
+    }
+
+    fn open(&mut self, url: &str) {
+        let url = url.to_string();
+        self.load(|b| {
+            b.call("Page.navigate", serde_json::json!({ "url": url }));
+        });
+    }
+
+    /// The value of a script expression evaluated in the page.
+    fn eval(&mut self, expression: &str) -> serde_json::Value {
+        let result = self.call(
+            "Runtime.evaluate",
+            serde_json::json!({"expression": expression, "returnByValue": true}),
+        );
+        result["result"]["value"].clone()
+    }
+
+    fn dom(&mut self) -> String {
+        self.eval("document.documentElement.outerHTML")
+            .as_str()
+            .unwrap()
+            .to_string()
+    }
+
+    fn screenshot(&mut self, name: &str) -> PathBuf {
+        let result = self.call(
+            "Page.captureScreenshot",
+            serde_json::json!({"format": "png"}),
+        );
+        let bytes = base64_decode(result["data"].as_str().unwrap());
+        let path = screenshot_dir().join(name);
+        std::fs::write(&path, &bytes).unwrap();
+        // source: PNG signature, ISO/IEC 15948 §5.2.
+        assert_eq!(&bytes[..8], b"\x89PNG\r\n\x1a\n", "{name} is a PNG");
+        assert!(
+            bytes.len() > 20_000,
+            "{name} is a real page, {} bytes",
+            bytes.len()
+        );
+        path
+    }
+}
+
+impl Drop for Browser {
+    fn drop(&mut self) {
+        // Asked to close, chromium ends with all its helper processes; `child` is killed
+        // after this in any case.
+        let close = serde_json::json!({"id": 0, "method": "Browser.close"});
+        let _ = ws_send(&mut self.socket, &close.to_string());
+        let started = Instant::now();
+        while started.elapsed() < Duration::from_secs(10) {
+            if self.child.0.try_wait().is_ok_and(|s| s.is_some()) {
+                break;
+            }
+            std::thread::sleep(Duration::from_millis(50));
+        }
+    }
+}
+
+// source: RFC 4648 §4, the base64 alphabet; padding "=" ignored.
+fn base64_decode(text: &str) -> Vec<u8> {
+    let value = |c: u8| match c {
+        b'A'..=b'Z' => c - b'A',
+        b'a'..=b'z' => c - b'a' + 26,
+        b'0'..=b'9' => c - b'0' + 52,
+        b'+' => 62,
+        b'/' => 63,
+        _ => panic!("not base64: {c}"),
+    };
+    let digits: Vec<u8> = text.bytes().filter(|&c| c != b'=').map(value).collect();
+    let mut out = Vec::with_capacity(digits.len() * 3 / 4);
+    for chunk in digits.chunks(4) {
+        let n = chunk
+            .iter()
+            .enumerate()
+            .fold(0u32, |acc, (i, &d)| acc | (d as u32) << (18 - 6 * i));
+        out.extend_from_slice(&n.to_be_bytes()[1..chunk.len()]);
+    }
+    out
 }
 
 #[test]
-fn search_open_and_accept_in_a_real_browser() {
+fn base64_decodes_like_the_rfc_says() {
+    // source: RFC 4648 §10 test vectors.
+    assert_eq!(base64_decode("Zm9vYmFy"), b"foobar");
+    assert_eq!(base64_decode("Zm9vYg=="), b"foob");
+    assert_eq!(base64_decode("Zm9vYmE="), b"fooba");
+    assert_eq!(base64_decode("Zg=="), b"f");
+}
+
+#[test]
+fn open_search_and_accept_in_a_real_browser() {
     let Some(browser) = chromium() else {
         eprintln!("skipped: chromium not installed");
         return;
@@ -117,20 +432,48 @@ fn search_open_and_accept_in_a_real_browser() {
     let started = Instant::now();
     let folder = trained_copy();
     let root = folder.path();
-    let served = Served::start(root, &[]);
+    let served = Served::start_unopened(root, &[]);
     let truth: std::collections::BTreeMap<String, TruthRow> = demo_truth()
         .into_iter()
         .map(|r| (r.file.clone(), r))
         .collect();
 
+    // A person opens the printed address: the browser is let in, and lands on the search
+    // page with the key gone from its address bar. Scripts cannot read the pass.
+    let mut tab = Browser::launch(browser);
+    tab.open(&served.entry_url);
+    assert_eq!(
+        tab.eval("location.href").as_str(),
+        Some(served.url.as_str())
+    );
+    let page = tab.dom();
+    assert!(page.contains("<form method=\"get\" action=\"/\""), "{page}");
+    assert_eq!(tab.eval("document.cookie").as_str(), Some(""));
+    assert_eq!(
+        tab.eval("document.styleSheets.length > 0 && document.styleSheets[0].cssRules.length > 0"),
+        serde_json::Value::Bool(true),
+        "the style sheet loaded with the pass"
+    );
+
     // Search a keyword the way the form sends it.
     let search_url = format!("{}?q=harbour", served.url);
-    let page = dom(browser, &search_url);
+    tab.open(&search_url);
+    let page = tab.dom();
     assert!(page.contains("pictures for “harbour”"), "{page}");
     let ids = attr_values(&page, "class=\"card\"", "data-id");
     let pictures = attr_values(&page, "/thumbnail\"", "alt");
     assert_eq!(ids.len(), 24);
     assert_eq!(pictures.len(), 24);
+    for (id, picture) in ids.iter().zip(&pictures) {
+        assert_eq!(*id, served.id_of(picture), "keyed page ids");
+    }
+    // Every thumbnail arrived (same-origin requests with the pass).
+    assert_eq!(
+        tab.eval(
+            "Array.from(document.images).filter(i => i.complete && i.naturalWidth > 0).length"
+        ),
+        serde_json::json!(24)
+    );
     // (The legend above the grid shows one of each mark too.)
     let grid = &page[page.find("<ul class=\"grid\">").expect("a grid")..];
     let carries = grid.matches("class=\"badge carries\"").count();
@@ -146,7 +489,7 @@ fn search_open_and_accept_in_a_real_browser() {
         })
         .count();
     assert_eq!(carries, expected_carries);
-    let search_shot = screenshot(browser, &search_url, "search.png");
+    let search_shot = tab.screenshot("search.png");
 
     // Open the first result that has a text sidecar (so the change is easy to read back).
     let (id, picture) = ids
@@ -156,27 +499,22 @@ fn search_open_and_accept_in_a_real_browser() {
         .map(|(i, p)| (i.clone(), p.clone()))
         .expect("a result with a text sidecar");
     let picture_url = format!("{}picture/{id}", served.url);
-    let page = dom(browser, &picture_url);
+    tab.open(&picture_url);
+    let page = tab.dom();
     assert!(page.contains(&format!("src=\"/picture/{id}/large\"")));
     let accept_tags = attr_values(&page, "data-action=\"accept\"", "data-tag");
     assert!(!accept_tags.is_empty(), "no suggestion to accept: {page}");
     let tag = accept_tags[0].clone();
-    let token = token_in(&page).expect("the rendered form carries the token");
-    assert_eq!(token.len(), 32);
 
-    // Accept it: the POST the rendered form makes (token, then the button's name=value).
+    // Click "accept": the browser posts the form with its pass, Origin and token.
     let sidecar = text_sidecar_of(root, &picture);
     let before = text_sidecar_tags(&sidecar);
     assert!(!before.contains(&tag));
-    let answer = served.post_with(
-        &format!("/picture/{id}/tags"),
-        &format!("token={token}&add={}", form_value(&tag)),
-        &[
-            ("Origin", served.url.trim_end_matches('/')),
-            ("Sec-Fetch-Site", "same-origin"),
-        ],
-    );
-    assert_eq!(answer.status, 200, "{}", answer.text());
+    tab.load(|b| {
+        b.eval("document.querySelector('form[data-action=\"accept\"] button').click()");
+    });
+    let page = tab.dom();
+    assert!(page.contains(&format!("Added “{tag}”")), "{page}");
     let after = text_sidecar_tags(&sidecar);
     let mut expected = before.clone();
     expected.push(tag.clone());
@@ -187,17 +525,28 @@ fn search_open_and_accept_in_a_real_browser() {
     );
 
     // The browser now shows the tag among the picture's tags, written but not yet indexed.
-    let page = dom(browser, &picture_url);
+    tab.open(&picture_url);
+    let page = tab.dom();
     let now = attr_values(&page, "class=\"current\"", "data-tag");
     assert!(now.contains(&tag), "{now:?}");
     assert!(page.contains("run <code>tagweave scan</code> to index the new tags"));
-    let picture_shot = screenshot(browser, &picture_url, "picture.png");
+    let picture_shot = tab.screenshot("picture.png");
 
     // The review queue renders too.
-    let review_url = format!("{}review", served.url);
-    let page = dom(browser, &review_url);
+    tab.open(&format!("{}review", served.url));
+    let page = tab.dom();
     assert!(page.matches("class=\"entry\"").count() >= 10, "{page}");
-    let review_shot = screenshot(browser, &review_url, "review.png");
+    let review_shot = tab.screenshot("review.png");
+    drop(tab);
+
+    // Another browser (another profile: no pass) gets nothing, not even with the address
+    // that was printed: it was spent.
+    let other = dom(browser, &served.entry_url);
+    assert!(other.contains("Address already used"), "{other}");
+    assert!(!other.contains("harbour"), "{other}");
+    let other = dom(browser, &search_url);
+    assert!(other.contains("Open the printed address"), "{other}");
+    assert!(!other.contains("class=\"card\""), "{other}");
 
     eprintln!(
         "screenshots: {}, {}, {} ({:.1} s)",

@@ -1,6 +1,7 @@
 //! Shared by the review-page tests: a scanned and trained copy of the demo archive, a
-//! running `tagweave serve` on it, and a raw HTTP client (raw, so that a request target
-//! goes out exactly as written: no client "fixes" `..` or percent escapes for us).
+//! running `tagweave serve` on it (let in through its one-time address, as a browser is),
+//! and a raw HTTP client (raw, so that a request target goes out exactly as written: no
+//! client "fixes" `..` or percent escapes for us).
 
 #![allow(dead_code)]
 
@@ -65,13 +66,34 @@ pub fn trained_copy() -> tempfile::TempDir {
 /// A running `tagweave serve`; killed when dropped.
 pub struct Served {
     child: Child,
+    folder: PathBuf,
     pub port: u16,
+    /// The search page, `http://127.0.0.1:PORT/`.
     pub url: String,
+    /// The one-time address `serve` printed.
+    pub entry_url: String,
+    /// The pass cookie (`tagweave-pass=…`) once the entry address was opened.
+    pub pass: Option<String>,
 }
 
 impl Served {
-    /// Starts `tagweave serve --port 0 EXTRA…` in `folder` and waits for its address.
+    /// Starts `tagweave serve --port 0 EXTRA…` in `folder`, waits for its address and
+    /// opens it once, keeping the pass it hands out.
     pub fn start(folder: &Path, extra: &[&str]) -> Served {
+        let mut served = Served::start_unopened(folder, extra);
+        let entry = served.entry_url.trim_start_matches(&served.url).to_string();
+        let answer = request(served.port, "GET", &format!("/{entry}"), &[], b"");
+        assert_eq!(answer.status, 303, "{}", answer.text());
+        let cookie = answer
+            .header("Set-Cookie")
+            .expect("the one-time address hands out the pass");
+        served.pass = Some(cookie.split(';').next().unwrap().trim().to_string());
+        served
+    }
+
+    /// Starts `tagweave serve --port 0 EXTRA…` in `folder` and waits for its address,
+    /// without opening it.
+    pub fn start_unopened(folder: &Path, extra: &[&str]) -> Served {
         let mut child = Command::new(env!("CARGO_BIN_EXE_tagweave"))
             .args(["serve", "--port", "0"])
             .args(extra)
@@ -98,31 +120,75 @@ impl Served {
                 panic!("tagweave serve printed no address ({other:?}); stderr:\n{err}");
             }
         };
-        let url = line
+        let entry_url = line
             .strip_prefix("Review page: ")
             .unwrap_or_else(|| panic!("unexpected first line: {line}"))
             .trim()
             .to_string();
-        let port = url
-            .trim_start_matches("http://127.0.0.1:")
-            .trim_end_matches('/')
-            .parse()
-            .unwrap_or_else(|_| panic!("not a loopback address: {url}"));
-        Served { child, port, url }
+        let port: u16 = entry_url
+            .strip_prefix("http://127.0.0.1:")
+            .and_then(|rest| rest.split('/').next())
+            .and_then(|p| p.parse().ok())
+            .unwrap_or_else(|| panic!("not a loopback address: {entry_url}"));
+        Served {
+            child,
+            folder: folder.to_path_buf(),
+            port,
+            url: format!("http://127.0.0.1:{port}/"),
+            entry_url,
+            pass: None,
+        }
+    }
+
+    /// The server's process id.
+    pub fn pid(&self) -> u32 {
+        self.child.id()
+    }
+
+    /// `Origin` of this server, as a browser sends it.
+    pub fn origin(&self) -> String {
+        format!("http://127.0.0.1:{}", self.port)
+    }
+
+    /// A request with the pass (when there is one) and `headers`.
+    pub fn send(
+        &self,
+        method: &str,
+        target: &str,
+        headers: &[(&str, &str)],
+        body: &[u8],
+    ) -> Answer {
+        let mut all: Vec<(&str, &str)> = Vec::new();
+        if let Some(pass) = &self.pass {
+            all.push(("Cookie", pass));
+        }
+        all.extend_from_slice(headers);
+        request(self.port, method, target, &all, body)
     }
 
     pub fn get(&self, target: &str) -> Answer {
-        request(self.port, "GET", target, &[], b"")
+        self.send("GET", target, &[], b"")
     }
 
+    /// A form POST as our own pages send it: form type, pass, this server's `Origin`.
     pub fn post(&self, target: &str, form: &str) -> Answer {
-        self.post_with(target, form, &[])
+        let origin = self.origin();
+        self.post_with(target, form, &[("Origin", &origin)])
     }
 
+    /// A form POST with the pass and `headers` (no `Origin` unless given).
     pub fn post_with(&self, target: &str, form: &str, headers: &[(&str, &str)]) -> Answer {
         let mut all = vec![("Content-Type", "application/x-www-form-urlencoded")];
         all.extend_from_slice(headers);
-        request(self.port, "POST", target, &all, form.as_bytes())
+        self.send("POST", target, &all, form.as_bytes())
+    }
+
+    /// The page id of a picture: keyed with the store's secret, which `serve` keeps in
+    /// the store folder.
+    pub fn id_of(&self, picture: &str) -> String {
+        tagweave_serve::PageIds::open(&self.folder.join(".tagweave"))
+            .expect("the store has its page key")
+            .of(picture)
     }
 
     /// This run's token, as written into the forms of a picture's page.
@@ -172,10 +238,22 @@ pub fn request(
     headers: &[(&str, &str)],
     body: &[u8],
 ) -> Answer {
-    let mut stream = TcpStream::connect(("127.0.0.1", port)).expect("the server listens");
-    stream
-        .set_read_timeout(Some(Duration::from_secs(60)))
-        .unwrap();
+    request_within(port, method, target, headers, body, Duration::from_secs(60))
+        .unwrap_or_else(|e| panic!("{method} {target}: no answer: {e}"))
+}
+
+/// As [`request`], but gives up when the answer is not all in within `time`.
+pub fn request_within(
+    port: u16,
+    method: &str,
+    target: &str,
+    headers: &[(&str, &str)],
+    body: &[u8],
+    time: Duration,
+) -> std::io::Result<Answer> {
+    let deadline = std::time::Instant::now() + time;
+    let mut stream = TcpStream::connect(("127.0.0.1", port))?;
+    stream.set_read_timeout(Some(time))?;
     let mut head = format!("{method} {target} HTTP/1.1\r\n");
     if !headers.iter().any(|(n, _)| n.eq_ignore_ascii_case("Host")) {
         head.push_str(&format!("Host: 127.0.0.1:{port}\r\n"));
@@ -187,11 +265,22 @@ pub fn request(
         head.push_str(&format!("Content-Length: {}\r\n", body.len()));
     }
     head.push_str("Connection: close\r\n\r\n");
-    stream.write_all(head.as_bytes()).unwrap();
-    stream.write_all(body).unwrap();
+    stream.write_all(head.as_bytes())?;
+    stream.write_all(body)?;
     let mut raw = Vec::new();
-    stream.read_to_end(&mut raw).unwrap();
-    parse_answer(&raw, method == "HEAD")
+    let mut chunk = [0u8; 16 * 1024];
+    loop {
+        let left = deadline.saturating_duration_since(std::time::Instant::now());
+        if left.is_zero() {
+            return Err(std::io::ErrorKind::TimedOut.into());
+        }
+        stream.set_read_timeout(Some(left))?;
+        match stream.read(&mut chunk)? {
+            0 => break,
+            n => raw.extend_from_slice(&chunk[..n]),
+        }
+    }
+    Ok(parse_answer(&raw, method == "HEAD"))
 }
 
 fn parse_answer(raw: &[u8], head_only: bool) -> Answer {
@@ -282,6 +371,7 @@ pub fn text_sidecar_of(root: &Path, picture: &str) -> PathBuf {
     root.join(picture).with_extension("txt")
 }
 
-pub fn id_of(picture: &str) -> String {
+/// The item id of a picture (the unkeyed hash of its path, as the store knows it).
+pub fn item_id_of(picture: &str) -> String {
     tagweave_collection::item_id(picture)
 }

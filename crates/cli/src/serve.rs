@@ -33,6 +33,11 @@ pub fn run(args: &ServeArgs) -> anyhow::Result<Outcome> {
     let server = ReviewServer::start(store, &options)?;
     println!("Review page: {}", server.url());
     println!(
+        "Open that address once, in the browser you will use: it lets that browser in and \
+         then stops working (keep it to yourself until then). For another browser, start \
+         `tagweave serve` again."
+    );
+    println!(
         "Serving {} on this machine only{}. Stop with Ctrl-C.",
         root.display(),
         if args.read_only { ", read-only" } else { "" }

@@ -18,5 +18,5 @@ pub use item::{
     is_unchanged, item_id, read_item, FileStamp, ImageFormat, ItemRecord, ReadItem, SidecarKind,
     SidecarRef,
 };
-pub use normalize::normalize_tag;
+pub use normalize::{misleading_char, normalize_tag};
 pub use vocabulary::Vocabulary;

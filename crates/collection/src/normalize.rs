@@ -34,6 +34,24 @@ pub fn normalize_tag(raw: &str) -> Option<String> {
     (!joined.is_empty()).then_some(joined)
 }
 
+/// The first character of `tag` that would make it show as something it is not, if any:
+/// a bidirectional control (U+202E turns `gpj.exe` into what shows as "exe.jpg") or a
+/// Unicode non-character (U+FDD0..U+FDEF, and the last two code points of every plane,
+/// such as U+FFFE and U+FFFF), which no text should carry. Tags are refused with it, not
+/// silently changed: a person should see what was there.
+// source: Unicode Standard Annex #9 (UAX #9), Table 1 "Bidirectional Character Types":
+// explicit formatting characters LRE/RLE/PDF/LRO/RLO (U+202A..U+202E), LRI/RLI/FSI/PDI
+// (U+2066..U+2069), implicit marks LRM/RLM (U+200E, U+200F) and ALM (U+061C); Unicode
+// Standard §23.7 "Noncharacters" (66 code points); section numbers from memory.
+pub fn misleading_char(tag: &str) -> Option<char> {
+    tag.chars().find(|&c| {
+        let p = c as u32;
+        matches!(p, 0x202A..=0x202E | 0x2066..=0x2069 | 0x200E | 0x200F | 0x061C)
+            || (0xFDD0..=0xFDEF).contains(&p)
+            || p & 0xFFFE == 0xFFFE
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -41,6 +59,27 @@ mod tests {
 
     fn cps(points: &[u32]) -> String {
         points.iter().map(|&p| char::from_u32(p).unwrap()).collect()
+    }
+
+    #[test]
+    fn tags_that_show_as_something_else_are_named() {
+        assert_eq!(misleading_char("holiday"), None);
+        assert_eq!(misleading_char("caf\u{e9} \u{200d} \u{1F468}"), None);
+        assert_eq!(misleading_char("gpj.exe\u{202E}"), Some('\u{202E}'));
+        for p in [
+            0x202A, 0x202B, 0x202C, 0x202D, 0x202E, 0x2066, 0x2067, 0x2068, 0x2069, 0x200E, 0x200F,
+            0x061C, 0xFDD0, 0xFDEF, 0xFFFE, 0xFFFF, 0x1FFFE, 0x10FFFF,
+        ] {
+            let c = char::from_u32(p).unwrap();
+            assert_eq!(misleading_char(&format!("a{c}b")), Some(c), "U+{p:04X}");
+        }
+        // Neighbours of the ranges are ordinary characters.
+        for p in [
+            0x2029, 0x202F, 0x2065, 0x206A, 0xFDCF, 0xFDF0, 0xFFFD, 0x1FFFD,
+        ] {
+            let c = char::from_u32(p).unwrap();
+            assert_eq!(misleading_char(&format!("a{c}b")), None, "U+{p:04X}");
+        }
     }
 
     #[test]

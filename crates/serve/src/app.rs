@@ -2,15 +2,20 @@
 //! route, which status, who may write) is plain code over plain values.
 
 use std::collections::{BTreeSet, HashMap};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Mutex, MutexGuard, OnceLock};
 
-use tagweave_collection::{normalize_tag, CrawlOptions, ItemRecord};
+use tagweave_collection::{misleading_char, normalize_tag, CrawlOptions, ItemRecord};
 use tagweave_query::{Dispute, Queries, QueryError, Ranking};
 use tagweave_store::Store;
 use tagweave_writeback::{commit_plan, diff, original_path, Planner, TagChange};
 
-use crate::guard::{host_allowed, loopback_hosts, same_origin, WriteToken};
+use crate::guard::{
+    change_origin_allowed, cookies, host_allowed, is_form, loopback_hosts, pass_cookie,
+    site_allowed, Secret, PASS_COOKIE,
+};
+use crate::ids::PageIds;
 use crate::pages::{self, Card, Page, Written};
 use crate::renditions::{Rendition, Renditions};
 use crate::text::{first, pairs, tag_words};
@@ -33,7 +38,10 @@ pub struct Incoming<'a> {
     pub target: &'a str,
     pub host: Option<&'a str>,
     pub origin: Option<&'a str>,
+    pub referer: Option<&'a str>,
     pub fetch_site: Option<&'a str>,
+    pub cookie: Option<&'a str>,
+    pub content_type: Option<&'a str>,
     pub body: &'a [u8],
 }
 
@@ -49,6 +57,8 @@ pub struct Reply {
     pub location: Option<String>,
     /// For 405 answers.
     pub allow: Option<&'static str>,
+    /// Only on the answer to the one-time address: the pass.
+    pub set_cookie: Option<String>,
 }
 
 const HTML: &str = "text/html; charset=utf-8";
@@ -69,7 +79,7 @@ const QUEUE_PAGE: usize = 20;
 const TAG_MAX: usize = 100;
 
 impl Reply {
-    fn new(status: u16, content_type: &'static str, body: Vec<u8>) -> Reply {
+    pub(crate) fn new(status: u16, content_type: &'static str, body: Vec<u8>) -> Reply {
         Reply {
             status,
             content_type,
@@ -77,6 +87,7 @@ impl Reply {
             max_age: None,
             location: None,
             allow: None,
+            set_cookie: None,
         }
     }
 }
@@ -98,9 +109,16 @@ pub(crate) struct App {
     store: Store,
     queries: Queries,
     root: PathBuf,
+    /// Each row's page id (see [`crate::ids`]), and back.
+    page_ids: Vec<String>,
     row_of_id: HashMap<String, usize>,
     row_of_path: HashMap<String, usize>,
-    token: WriteToken,
+    /// The one-time key of the printed address, and whether it was spent.
+    entry_key: Secret,
+    entry_spent: AtomicBool,
+    /// The cookie every request must carry.
+    pass: Secret,
+    token: Secret,
     read_only: bool,
     hosts: Vec<String>,
     renditions: Renditions,
@@ -121,13 +139,20 @@ enum PictureRoute {
 }
 
 impl App {
-    pub(crate) fn new(store: Store, queries: Queries, port: u16, read_only: bool) -> App {
+    pub(crate) fn new(
+        store: Store,
+        queries: Queries,
+        ids: PageIds,
+        port: u16,
+        read_only: bool,
+    ) -> App {
         let root = store.collection_root().to_path_buf();
         let items = queries.items();
-        let row_of_id = items
+        let page_ids: Vec<String> = items.iter().map(|item| ids.of(&item.rel_path)).collect();
+        let row_of_id = page_ids
             .iter()
             .enumerate()
-            .map(|(i, item)| (item.id.clone(), i))
+            .map(|(i, id)| (id.clone(), i))
             .collect();
         let row_of_path = items
             .iter()
@@ -137,9 +162,13 @@ impl App {
         App {
             renditions: Renditions::new(&root, store.dir()),
             root,
+            page_ids,
             row_of_id,
             row_of_path,
-            token: WriteToken::new(),
+            entry_key: Secret::new(),
+            entry_spent: AtomicBool::new(false),
+            pass: Secret::new(),
+            token: Secret::new(),
             read_only,
             hosts: loopback_hosts(port),
             audit: OnceLock::new(),
@@ -149,19 +178,47 @@ impl App {
         }
     }
 
+    /// The path of the one-time address `serve` prints.
+    pub(crate) fn entry_path(&self) -> String {
+        format!("/open/{}", self.entry_key.as_str())
+    }
+
     pub fn respond(&self, request: &Incoming) -> Reply {
         if !host_allowed(request.host, &self.hosts) {
-            return self.message(
+            return self.refusal(
                 403,
                 "Unknown host",
                 "This review page answers only to 127.0.0.1, localhost or [::1] with its own \
                  port in the address. Open the address `tagweave serve` printed.",
             );
         }
+        if !site_allowed(request.fetch_site) {
+            return self.refusal(
+                403,
+                "Refused",
+                "Another site (or another program on another port of this machine) asked \
+                 for this page. Open the address `tagweave serve` printed.",
+            );
+        }
         let (path, query) = request
             .target
             .split_once('?')
             .unwrap_or((request.target, ""));
+        let has_pass =
+            cookies(request.cookie, PASS_COOKIE).any(|offered| self.pass.matches(offered));
+        if let Some(key) = path.strip_prefix("/open/") {
+            return self.open(request, key, has_pass);
+        }
+        if !has_pass {
+            return self.refusal(
+                403,
+                "Open the printed address",
+                "This review page lets in only the browser that opened the address \
+                 `tagweave serve` printed when it started. That address works once; if it \
+                 was used by another browser, or this browser was closed since, stop \
+                 `tagweave serve` and start it again for a new one.",
+            );
+        }
         let Some(path) = path.strip_prefix('/') else {
             return self.not_found();
         };
@@ -191,6 +248,37 @@ impl App {
         }
     }
 
+    /// The one-time address: the first browser to open it gets the pass, and the key is
+    /// spent. A browser that has the pass already is sent on to the search page.
+    fn open(&self, request: &Incoming, key: &str, has_pass: bool) -> Reply {
+        if request.method != Method::Get {
+            // Not HEAD either: a link preview must not spend the key.
+            let mut reply = self.refusal(405, "Not here", "This address answers only GET.");
+            reply.allow = Some("GET");
+            return reply;
+        }
+        let mut reply = Reply::new(303, HTML, Vec::new());
+        reply.location = Some("/".to_string());
+        if has_pass {
+            return reply;
+        }
+        let fresh = self.entry_key.matches(key)
+            && self
+                .entry_spent
+                .compare_exchange(false, true, Ordering::SeqCst, Ordering::SeqCst)
+                .is_ok();
+        if !fresh {
+            return self.refusal(
+                403,
+                "Address already used",
+                "This address works once, and it was used (or it is not the one `tagweave \
+                 serve` printed). Stop `tagweave serve` and start it again for a new one.",
+            );
+        }
+        reply.set_cookie = Some(pass_cookie(&self.pass));
+        reply
+    }
+
     /// The answer to a request the HTTP layer could not take (malformed, too large, or
     /// too many at once).
     pub(crate) fn refused(&self, status: u16) -> Reply {
@@ -199,7 +287,7 @@ impl App {
         } else {
             "The review page takes small requests from a browser only."
         };
-        self.message(status, "Request refused", text)
+        self.refusal(status, "Request refused", text)
     }
 
     fn get_only(&self, request: &Incoming, answer: impl FnOnce() -> Reply) -> Reply {
@@ -252,6 +340,14 @@ impl App {
 
     /// Why a change request may not go ahead, if it may not.
     fn refuse_change(&self, request: &Incoming) -> Option<Reply> {
+        if !is_form(request.content_type) {
+            return Some(self.message(
+                415,
+                "Not a form",
+                "A change must be sent by a form of this review page \
+                 (application/x-www-form-urlencoded).",
+            ));
+        }
         if self.read_only {
             return Some(self.message(
                 403,
@@ -262,7 +358,7 @@ impl App {
         }
         let form = form(request.body);
         let token_ok = first(&form, "token").is_some_and(|t| self.token.matches(t));
-        if !token_ok || !same_origin(request.origin, request.fetch_site, &self.hosts) {
+        if !token_ok || !change_origin_allowed(request.origin, request.referer, &self.hosts) {
             return Some(self.message(
                 403,
                 "Refused",
@@ -274,7 +370,8 @@ impl App {
         None
     }
 
-    /// The row of an indexed picture by its id: exactly 16 lower-case hex digits, and known.
+    /// The row of an indexed picture by its page id: exactly 16 lower-case hex digits, and
+    /// known.
     fn row_of(&self, id: &str) -> Option<usize> {
         let well_formed =
             id.len() == 16 && id.bytes().all(|b| matches!(b, b'0'..=b'9' | b'a'..=b'f'));
@@ -289,7 +386,18 @@ impl App {
     }
 
     fn page(&self, status: u16, page: Page) -> Reply {
-        let html = pages::layout(&page, self.read_only, &self.root.display().to_string());
+        let root = self.root.display().to_string();
+        let html = pages::layout(&page, self.read_only, Some(&root));
+        Reply::new(status, HTML, html.into_bytes())
+    }
+
+    /// A refusal to someone who may not be let in: it says nothing about the collection.
+    fn refusal(&self, status: u16, title: &str, text: &str) -> Reply {
+        let page = Page {
+            title: title.to_string(),
+            body: pages::message(title, text),
+        };
+        let html = pages::layout(&page, false, None);
         Reply::new(status, HTML, html.into_bytes())
     }
 
@@ -343,7 +451,7 @@ impl App {
     fn card(&self, row: usize, badge: Option<&'static str>, similarity: Option<f32>) -> Card {
         let item = self.item(row);
         Card {
-            id: item.id.clone(),
+            id: self.page_ids[row].clone(),
             picture: item.rel_path.clone(),
             badge,
             untagged: item.tags.is_empty(),
@@ -478,7 +586,7 @@ impl App {
             .map(|s| (s.tag, s.probability))
             .collect();
         let content = pages::PictureContent {
-            id: item.id.clone(),
+            id: self.page_ids[row].clone(),
             picture: item.rel_path.clone(),
             sidecars: item.sidecars.iter().map(|s| s.rel_path.clone()).collect(),
             tags: now
@@ -613,6 +721,9 @@ impl App {
                 )
             }
         };
+        if let Some(refusal) = self.refuse_misleading(spelling) {
+            return refusal;
+        }
         let change = TagChange {
             picture: item.rel_path.clone(),
             add: if adding {
@@ -627,6 +738,21 @@ impl App {
             },
         };
         let mut notes_by_id = self.notes();
+        if let Some(link) = self.linked_sidecar(item) {
+            let target = std::fs::read_link(self.root.join(&link))
+                .map(|t| t.display().to_string())
+                .unwrap_or_else(|_| "somewhere unreadable".to_string());
+            return self.message(
+                409,
+                "Not written",
+                &format!(
+                    "The sidecar {link} is a symbolic link (to {target}), not a file. Tags are \
+                     written only into files inside the collection, never through a link, \
+                     and writing beside it would start a second sidecar. Replace the link \
+                     with the file it points to, then run `tagweave scan`."
+                ),
+            );
+        }
         let planned = Planner::new(
             &self.root,
             &CrawlOptions {
@@ -635,7 +761,28 @@ impl App {
             },
         )
         .and_then(|planner| planner.plan(&change));
-        let plan = match planned.and_then(|plan| commit_plan(&plan).map(|()| plan)) {
+        let plan = match planned {
+            // A picture the index knows sidecars of must not get a new one (its old tags
+            // would drop out at the next scan).
+            Ok(plan) if !item.sidecars.is_empty() && plan.edits.iter().any(|e| e.created) => {
+                return self.message(
+                    409,
+                    "Not written",
+                    &format!(
+                        "The sidecars of {} changed since the last scan ({} no longer \
+                         found as its sidecar). Run `tagweave scan`, then try again.",
+                        item.rel_path,
+                        item.sidecars
+                            .iter()
+                            .map(|s| s.rel_path.as_str())
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    ),
+                )
+            }
+            planned => planned,
+        };
+        let plan = match plan.and_then(|plan| commit_plan(&plan).map(|()| plan)) {
             Ok(plan) => plan,
             Err(error) => return self.message(409, "Not written", &error.to_string()),
         };
@@ -667,7 +814,7 @@ impl App {
                 })
                 .collect(),
             already: !plan.already_present.is_empty() || !plan.not_present.is_empty(),
-            back: back_link(form, &item.id),
+            back: back_link(form, &self.page_ids[row]),
         };
         self.page(200, pages::written(&written))
     }
@@ -679,14 +826,64 @@ impl App {
         let Some(tag) = first(form, "tag").and_then(normalize_tag) else {
             return self.message(400, "Which tag?", "Send the tag to set aside.");
         };
+        if let Some(refusal) = self.refuse_misleading(&tag) {
+            return refusal;
+        }
         self.notes()
             .entry(item.id.clone())
             .or_default()
             .set_aside
             .insert(tag);
         let mut reply = Reply::new(303, HTML, Vec::new());
-        reply.location = Some(back_link(form, &item.id));
+        reply.location = Some(back_link(form, &self.page_ids[row]));
         reply
+    }
+}
+
+impl App {
+    /// A sidecar of the picture that is a symbolic link now: one the scan indexed, or a
+    /// file name a sidecar of it would have (`STEM.txt`, `NAME.EXT.xmp`, … in any case).
+    fn linked_sidecar(&self, item: &ItemRecord) -> Option<String> {
+        let is_link = |rel: &str| {
+            std::fs::symlink_metadata(self.root.join(rel)).is_ok_and(|m| m.file_type().is_symlink())
+        };
+        if let Some(s) = item.sidecars.iter().find(|s| is_link(&s.rel_path)) {
+            return Some(s.rel_path.clone());
+        }
+        let picture = Path::new(&item.rel_path);
+        let name = picture.file_name()?.to_str()?;
+        let stem = picture.file_stem()?.to_str()?;
+        let folder = self.root.join(picture.parent().unwrap_or(Path::new("")));
+        let sidecar_name = |file: &str| {
+            let (base, ext) = file.rsplit_once('.')?;
+            let ours = base == name || base == stem;
+            (ours && (ext.eq_ignore_ascii_case("txt") || ext.eq_ignore_ascii_case("xmp")))
+                .then_some(())
+        };
+        std::fs::read_dir(&folder)
+            .ok()?
+            .filter_map(Result::ok)
+            .filter(|e| e.file_type().is_ok_and(|t| t.is_symlink()))
+            .filter_map(|e| e.file_name().into_string().ok())
+            .find(|file| sidecar_name(file).is_some())
+            .map(|file| match picture.parent().and_then(Path::to_str) {
+                Some(p) if !p.is_empty() => format!("{p}/{file}"),
+                _ => file,
+            })
+    }
+
+    /// Refuses a tag with a character that would make it show as something it is not.
+    fn refuse_misleading(&self, tag: &str) -> Option<Reply> {
+        let c = misleading_char(tag)?;
+        Some(self.message(
+            400,
+            "Not a tag",
+            &format!(
+                "The tag contains U+{:04X}, an invisible character that changes how text \
+                 is shown (or none that text should carry). Type the tag without it.",
+                c as u32
+            ),
+        ))
     }
 }
 

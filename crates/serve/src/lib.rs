@@ -6,28 +6,39 @@
 //! no fonts or styles from elsewhere: everything is inside the binary).
 //!
 //! Promises:
+//! - **Nothing without this run's pass.** `serve` prints one address with a one-time key;
+//!   the browser that opens it gets a pass (an `HttpOnly; SameSite=Strict` cookie) and the
+//!   key is spent. Every request without the pass is refused, reads included, so other
+//!   users of the machine and other web pages learn nothing (see `guard.rs`).
 //! - **Pictures only by id.** Pictures and their reduced copies are served by the 16-digit
-//!   id of an indexed item and read from the item's indexed path; nothing in a request is
-//!   ever used as a file path. Anything else is 404.
-//! - **Changes only from our own pages.** Every change (a POST) must carry the run's
-//!   token written into our pages' forms; requests naming another host, or saying they
-//!   come from another site, are refused too. `read_only` refuses every change.
+//!   page id of an indexed item (a hash keyed with a secret of the store, see [`ids`]) and
+//!   read from the item's indexed path; nothing in a request is ever used as a file path.
+//!   Anything else is 404.
+//! - **Changes only from our own pages.** Every change (a POST) must be a form, carry the
+//!   run's token written into our pages' forms, and say it comes from this server
+//!   (`Origin`, or `Referer` when there is no `Origin`); requests naming another host, or
+//!   saying another site started them, are refused. `read_only` refuses every change.
 //! - **The same safe write as `tagweave apply`.** Accepted tags are planned, read back and
-//!   written atomically by `tagweave-writeback`, originals kept as `NAME.orig`; the index
-//!   is not rescanned (the page says so), and the server holds the store, and so its lock,
-//!   for as long as it runs.
+//!   written atomically by `tagweave-writeback`, originals kept as `NAME.orig`; a sidecar
+//!   that became a link since the scan is refused by name; the index is not rescanned (the
+//!   page says so), and the server holds the store, and so its lock, for as long as it runs.
+//! - **Slow clients lock no one out.** Each connection has a total deadline, the input
+//!   read after an answer is capped, and when too many connections are still sending their
+//!   request the oldest of them is let go (see `connections.rs`).
 
 mod app;
+mod connections;
 mod guard;
 mod http;
+pub mod ids;
 mod pages;
 pub mod renditions;
 mod text;
 
 use std::net::{Ipv4Addr, SocketAddr, TcpListener};
 use std::path::PathBuf;
-use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Arc;
+use std::time::Instant;
 
 use tagweave_query::{Queries, QueryError};
 use tagweave_store::{Store, StoreError};
@@ -35,10 +46,8 @@ use tagweave_writeback::WritebackError;
 
 use app::App;
 pub use app::{Incoming, Method, Reply};
-
-/// Connections served at once; more are answered 503 at once. A page with a grid asks
-/// for a few dozen thumbnails, a browser opens six connections.
-const MAX_CONNECTIONS: usize = 32;
+use connections::Connections;
+pub use ids::PageIds;
 
 #[derive(Debug, thiserror::Error)]
 pub enum ServeError {
@@ -67,6 +76,15 @@ pub enum ServeError {
          writable (the copies can be deleted at any time)"
     )]
     Cache {
+        path: PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+    #[error(
+        "cannot keep the review page's key in {path}: {source}; check that the store \
+         folder is writable"
+    )]
+    Key {
         path: PathBuf,
         #[source]
         source: std::io::Error,
@@ -109,7 +127,8 @@ impl ReviewServer {
         };
         let listener = TcpListener::bind(wanted).map_err(bind_error)?;
         let address = listener.local_addr().map_err(bind_error)?;
-        let app = App::new(store, queries, address.port(), options.read_only);
+        let ids = PageIds::open(store.dir())?;
+        let app = App::new(store, queries, ids, address.port(), options.read_only);
         Ok(ReviewServer {
             listener,
             app: Arc::new(app),
@@ -121,16 +140,17 @@ impl ReviewServer {
         self.address
     }
 
-    /// The search page's address, for printing.
+    /// The address to open, for printing: it carries this run's one-time key, and the
+    /// first browser to open it is let in (see `guard.rs`).
     pub fn url(&self) -> String {
-        format!("http://{}/", self.address)
+        format!("http://{}{}", self.address, self.app.entry_path())
     }
 
     /// Answers requests for as long as the process runs (Ctrl-C ends it; the kernel then
     /// releases the store's lock). Each connection gets its own thread, at most
-    /// [`MAX_CONNECTIONS`] at once.
+    /// 64 at once (see `connections.rs`).
     pub fn run(self) -> Result<(), ServeError> {
-        let active = Arc::new(AtomicUsize::new(0));
+        let connections = Arc::new(Connections::default());
         for stream in self.listener.incoming() {
             let stream = match stream {
                 Ok(stream) => stream,
@@ -138,25 +158,55 @@ impl ReviewServer {
                 Err(e) if is_per_connection(&e) => continue,
                 Err(e) => return Err(ServeError::Accept(e)),
             };
+            let started = Instant::now();
             let app = Arc::clone(&self.app);
-            if active.fetch_add(1, Ordering::SeqCst) >= MAX_CONNECTIONS {
-                active.fetch_sub(1, Ordering::SeqCst);
+            let Some(ticket) = connections.admit(&stream) else {
                 http::refuse_now(stream, &app.refused(503));
                 continue;
-            }
-            let counter = Arc::clone(&active);
-            let spawned = std::thread::Builder::new()
+            };
+            let admitted = Admitted {
+                connections: Arc::clone(&connections),
+                ticket: Some(ticket),
+            };
+            // With no thread to be had, the closure is dropped (and with it the
+            // connection and its admission): the next connection may fare better.
+            let _ = std::thread::Builder::new()
                 .name("tagweave-serve".into())
                 .spawn(move || {
-                    http::serve_connection(stream, &|r| app.respond(r), &|s| app.refused(s));
-                    counter.fetch_sub(1, Ordering::SeqCst);
+                    http::serve_connection(
+                        stream,
+                        &http::LIMITS,
+                        started,
+                        &|| admitted.request_read(),
+                        &|r| app.respond(r),
+                        &|s| app.refused(s),
+                    );
+                    drop(admitted);
                 });
-            if spawned.is_err() {
-                // No thread to be had: this connection is dropped, the next may fare better.
-                active.fetch_sub(1, Ordering::SeqCst);
-            }
         }
         Ok(())
+    }
+}
+
+/// A connection's place among those served; handed back when dropped.
+struct Admitted {
+    connections: Arc<Connections>,
+    ticket: Option<connections::Ticket>,
+}
+
+impl Admitted {
+    fn request_read(&self) {
+        if let Some(ticket) = &self.ticket {
+            self.connections.request_read(ticket);
+        }
+    }
+}
+
+impl Drop for Admitted {
+    fn drop(&mut self) {
+        if let Some(ticket) = self.ticket.take() {
+            self.connections.closed(ticket);
+        }
     }
 }
 

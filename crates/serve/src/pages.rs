@@ -96,7 +96,9 @@ const SCAN_NOTE: &str = "Written to the sidecar files. The index still has the o
      run <code>tagweave scan</code> to index the new tags (stop this page first; it holds the \
      store).";
 
-pub fn layout(page: &Page, read_only: bool, root: &str) -> String {
+/// The whole page around `page`. `root` (the collection folder) is shown in the bar; it is
+/// left out of refusals, which must say nothing about the collection.
+pub fn layout(page: &Page, read_only: bool, root: Option<&str>) -> String {
     let banner = if read_only {
         "<p class=\"banner\">Read-only: started with <code>--read-only</code>, this page \
          changes nothing.</p>"
@@ -110,13 +112,18 @@ pub fn layout(page: &Page, read_only: bool, root: &str) -> String {
          <link rel=\"icon\" href=\"data:,\">\n</head>\n<body>\n\
          <header class=\"bar\"><a class=\"brand\" href=\"/\">tagweave</a>\
          <nav><a href=\"/\">Search</a><a href=\"/review\">Review queue</a></nav>\
-         <span class=\"root\" title=\"collection folder\">{root}</span></header>\n\
+         {root}</header>\n\
          {banner}\n<main>\n{body}\n</main>\n\
          <footer>Suggestions are the model's guesses for you to judge. Nothing is written \
          until you accept it; originals are kept as <code>NAME.orig</code>.</footer>\n\
          </body>\n</html>\n",
         title = html(&page.title),
-        root = html(root),
+        root = root
+            .map(|r| format!(
+                "<span class=\"root\" title=\"collection folder\">{}</span>",
+                html(r)
+            ))
+            .unwrap_or_default(),
         body = page.body,
     )
 }
@@ -624,7 +631,7 @@ mod tests {
             changed: true,
         };
         let page = picture(&content);
-        let all = layout(&page, false, hostile);
+        let all = layout(&page, false, Some(hostile));
         assert!(!all.contains("<script"), "{all}");
         assert!(all.contains("&lt;script&gt;"));
         assert!(!all.contains("tok\"en"));
@@ -647,14 +654,14 @@ mod tests {
             token: None,
             changed: false,
         };
-        let page = layout(&picture(&content), true, "/x");
+        let page = layout(&picture(&content), true, Some("/x"));
         assert!(!page.contains("method=\"post\""), "{page}");
         assert!(page.contains("--read-only"));
         let content = PictureContent {
             token: Some("abc"),
             ..content
         };
-        let page = layout(&picture(&content), false, "/x");
+        let page = layout(&picture(&content), false, Some("/x"));
         assert!(page.contains("method=\"post\""));
         assert!(page.contains("name=\"token\" value=\"abc\""));
     }

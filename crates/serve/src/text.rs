@@ -2,9 +2,15 @@
 //! and percent-encoding for links. Written here because each is a few lines and the
 //! review page must not trust any of its inputs.
 
-/// Escapes text for HTML element content and quoted attribute values.
+use tagweave_collection::misleading_char;
+
+/// Escapes text for HTML element content and quoted attribute values. A character that
+/// would make text show as something it is not (a bidirectional control, a non-character;
+/// see [`misleading_char`]) is shown as its code, `[U+202E]`, so a tag read from a sidecar
+/// never displays as another.
 pub fn html(text: &str) -> String {
     let mut out = String::with_capacity(text.len());
+    let mut one = [0u8; 4];
     for c in text.chars() {
         match c {
             '&' => out.push_str("&amp;"),
@@ -12,6 +18,9 @@ pub fn html(text: &str) -> String {
             '>' => out.push_str("&gt;"),
             '"' => out.push_str("&quot;"),
             '\'' => out.push_str("&#39;"),
+            c if misleading_char(c.encode_utf8(&mut one)).is_some() => {
+                out.push_str(&format!("[U+{:04X}]", c as u32))
+            }
             c => out.push(c),
         }
     }
@@ -109,6 +118,14 @@ mod tests {
             "&lt;a href=&quot;x&quot; title=&#39;y&#39;&gt;&amp;&lt;/a&gt;"
         );
         assert_eq!(html("plain words"), "plain words");
+    }
+
+    #[test]
+    fn characters_that_disguise_text_are_shown_as_codes() {
+        // by hand: U+202E (RIGHT-TO-LEFT OVERRIDE) would show "gpj.exe" as "exe.jpg".
+        assert_eq!(html("gpj.exe\u{202E}"), "gpj.exe[U+202E]");
+        assert_eq!(html("a\u{FFFF}b\u{2066}"), "a[U+FFFF]b[U+2066]");
+        assert_eq!(html("caf\u{e9}"), "caf\u{e9}");
     }
 
     #[test]
