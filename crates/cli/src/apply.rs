@@ -51,7 +51,11 @@ struct NewTag {
 /// The tags `changes` add that no picture of `vocabulary` carries yet, with how many
 /// pictures get each and the known tag it is nearest to (by edit distance).
 fn new_tags(changes: &[TagChange], vocabulary: &Vocabulary) -> Vec<NewTag> {
-    let known: HashSet<&str> = vocabulary.entries().iter().map(|(t, _)| t.as_str()).collect();
+    let known: HashSet<&str> = vocabulary
+        .entries()
+        .iter()
+        .map(|(t, _)| t.as_str())
+        .collect();
     let mut new: BTreeMap<String, usize> = BTreeMap::new();
     for tag in changes.iter().flat_map(|c| &c.add) {
         if let Some(normal) = normalize_tag(tag).filter(|t| !known.contains(t.as_str())) {
@@ -146,7 +150,11 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
                 "  new tag `{}` ({} {}): no picture of the collection carried it before{}",
                 new.tag,
                 new.pictures,
-                if new.pictures == 1 { "picture" } else { "pictures" },
+                if new.pictures == 1 {
+                    "picture"
+                } else {
+                    "pictures"
+                },
                 new.nearest_known
                     .as_ref()
                     .map(|k| format!("; did you mean `{k}`?"))

@@ -154,9 +154,7 @@ fn print_found(
                 LIKELY * 100.0
             );
         } else {
-            println!(
-                "no picture scores above {LIKELY:.2} for all of these tags; the closest:"
-            );
+            println!("no picture scores above {LIKELY:.2} for all of these tags; the closest:");
         }
     }
     println!(
@@ -361,10 +359,7 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
 
 /// Tag probabilities and familiarity of a picture given on the command line: from the
 /// index when it is there (its row), else described from the file.
-fn judge(
-    queries: &Queries,
-    path: &Path,
-) -> anyhow::Result<(Option<usize>, Vec<f32>, Familiarity)> {
+fn judge(queries: &Queries, path: &Path) -> anyhow::Result<(Option<usize>, Vec<f32>, Familiarity)> {
     Ok(match queries.row_of_path(path) {
         Some(row) => (
             Some(row),

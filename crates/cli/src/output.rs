@@ -71,7 +71,10 @@ mod tests {
         let io = std::io::Error::new(ErrorKind::NotFound, "no such file");
         let error = anyhow::Error::new(CannotRead(io)).context("a.jpg is not in the index");
         let text = describe(&error);
-        assert_eq!(text, "a.jpg is not in the index: cannot read a.jpg: no such file");
+        assert_eq!(
+            text,
+            "a.jpg is not in the index: cannot read a.jpg: no such file"
+        );
         // anyhow's own chain printing repeats it: what this replaces
         assert_eq!(format!("{error:#}").matches("no such file").count(), 2);
     }

@@ -63,7 +63,11 @@ mod tests {
         assert_eq!(store_in(&collection), store);
         assert_eq!(store_in(&store), store, "a store stays itself");
         let elsewhere = temp.path().join("elsewhere");
-        assert_eq!(store_in(&elsewhere), elsewhere, "a new store's folder stays itself");
+        assert_eq!(
+            store_in(&elsewhere),
+            elsewhere,
+            "a new store's folder stays itself"
+        );
         assert_eq!(for_folder(&collection, Some(&collection)), store);
         assert_eq!(for_folder(&collection, Some(&elsewhere)), elsewhere);
         assert_eq!(for_folder(&collection, None), store);

@@ -86,7 +86,11 @@ mod tests {
         assert_eq!(closest_tag("harbor", known), Some("harbour"));
         assert_eq!(closest_tag("night", known), None, "known already");
         assert_eq!(closest_tag("lighthouse", known), None, "nothing near");
-        assert_eq!(closest_tag("sky", known), None, "two edits from sea: too far for 3 letters");
+        assert_eq!(
+            closest_tag("sky", known),
+            None,
+            "two edits from sea: too far for 3 letters"
+        );
         // a tie goes to the first listed (the most used)
         assert_eq!(closest_tag("sno", ["sea", "snow", "sun"]), Some("snow"));
         assert_eq!(closest_tag("sn", ["so", "sun"]), Some("so"));

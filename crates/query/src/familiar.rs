@@ -180,7 +180,10 @@ mod tests {
     fn the_usual_similarity_is_the_lower_one_percent_point() {
         let values: Vec<f32> = (1..=100).rev().map(|i| i as f32 / 100.0).collect();
         assert_eq!(lower_quantile(values, 0.99), Some(0.02));
-        assert_eq!(lower_quantile(vec![0.5, 0.9, 0.7, 0.8, 0.6], 0.99), Some(0.5));
+        assert_eq!(
+            lower_quantile(vec![0.5, 0.9, 0.7, 0.8, 0.6], 0.99),
+            Some(0.5)
+        );
         assert_eq!(lower_quantile(vec![0.5, 0.9], 0.99), None, "too few to say");
         assert_eq!(lower_quantile(vec![f32::NAN; 9], 0.99), None);
     }
@@ -189,7 +192,10 @@ mod tests {
     fn a_picture_further_than_usual_is_unlike_the_collection() {
         assert!(Familiarity::judge(0.6, Some(0.8)).unlike_collection);
         assert!(!Familiarity::judge(0.8, Some(0.8)).unlike_collection);
-        assert!(!Familiarity::judge(0.1, None).unlike_collection, "no reference, no flag");
+        assert!(
+            !Familiarity::judge(0.1, None).unlike_collection,
+            "no reference, no flag"
+        );
     }
 
     #[test]

@@ -827,7 +827,10 @@ pub(crate) mod tests {
         let outside = picture_problem(path, &unknown, false);
         assert!(inside.contains("move it out of the collection"), "{inside}");
         assert!(!outside.contains("collection"), "{outside}");
-        assert!(outside.starts_with("notes.pdf: not a picture format"), "{outside}");
+        assert!(
+            outside.starts_with("notes.pdf: not a picture format"),
+            "{outside}"
+        );
         let missing = VisionError::Io {
             path: path.to_path_buf(),
             source: std::io::Error::new(std::io::ErrorKind::NotFound, "no such file"),

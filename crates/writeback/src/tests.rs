@@ -101,7 +101,11 @@ fn text_append_keeps_the_original_once() {
 
     // A second change: the original stays the very first version.
     apply(root, &change("a.png", &["gull"], &["cliffs"]));
-    assert_eq!(read(&sidecar), "day\nOld Town\ngull\n", "no empty line left behind");
+    assert_eq!(
+        read(&sidecar),
+        "day\nOld Town\ngull\n",
+        "no empty line left behind"
+    );
     assert_eq!(read(&original), "cliffs\nday\n");
     assert_eq!(
         tags_of(root, "a.png"),

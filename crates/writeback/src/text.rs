@@ -182,7 +182,10 @@ mod tests {
     fn removing_the_first_line_leaves_no_empty_line() {
         assert_eq!(edit_text("gone\nday\n", &[], &set(&["gone"])), "day\n");
         assert_eq!(edit_text("a\ngone\nb\n", &[], &set(&["gone"])), "a\nb\n");
-        assert_eq!(edit_text("gone\r\nday\r\n", &[], &set(&["gone"])), "day\r\n");
+        assert_eq!(
+            edit_text("gone\r\nday\r\n", &[], &set(&["gone"])),
+            "day\r\n"
+        );
         assert_eq!(edit_text("gone\n", &[], &set(&["gone"])), "");
         // a file never starts with what could pass for a picture signature
         assert_eq!(
