@@ -32,6 +32,9 @@ pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
     if args.json {
         let mut value = serde_json::to_value(&report)?;
         value["curves"] = serde_json::json!(curve_path);
+        // As `suggest` judges it: a calibration fitted on too few pictures does not count.
+        value["calibrated"] =
+            (report.calibrated && tagweave_query::enough_to_calibrate(report.pictures)).into();
         println!("{value}");
     } else {
         print_summary(&report, &curve_path);
@@ -219,7 +222,7 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
         "  suggestions {readout:.0} % model read-out, {ridge:.0} % linear read-out, {near:.0} % \
          tags of the {} most similar pictures; {}",
         report.k,
-        if report.calibrated {
+        if report.calibrated && tagweave_query::enough_to_calibrate(report.pictures) {
             "probabilities calibrated on held-out pictures"
         } else {
             "too few held-out pictures to calibrate: scores are not probabilities"

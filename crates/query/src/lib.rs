@@ -310,7 +310,9 @@ impl Queries {
     /// evidence (`find` and `shift` multiply both kinds).
     pub fn all_calibrated(&self) -> bool {
         let suggester = &self.trained.suggester;
-        suggester.calibration.is_some() && suggester.completion.calibration.is_some()
+        enough_to_calibrate(self.trained.history.pictures)
+            && suggester.calibration.is_some()
+            && suggester.completion.calibration.is_some()
     }
 
     /// Whether the probabilities given for a picture are calibrated on held-out pictures
@@ -319,6 +321,9 @@ impl Queries {
     /// tags, which has a calibration of its own.
     pub fn calibrated(&self, row: Option<usize>) -> bool {
         let suggester = &self.trained.suggester;
+        if !enough_to_calibrate(self.trained.history.pictures) {
+            return false;
+        }
         match row {
             Some(r) if !self.evidence_columns(r).is_empty() => {
                 suggester.completion.calibration.is_some()
@@ -560,6 +565,16 @@ impl Queries {
             .map(|hit| (hit.row, hit.similarity))
             .collect())
     }
+}
+
+/// Fewest tagged pictures a model must have learned from for its calibration to count:
+/// the calibration is fitted on a held-out seventh of them, and on fewer than 10 held-out
+/// pictures a stated 80 % says little about how often such a tag is right.
+pub const MIN_TAGGED_TO_CALIBRATE: usize = 70;
+
+/// Whether a model trained on `tagged` pictures had enough of them to calibrate.
+pub fn enough_to_calibrate(tagged: usize) -> bool {
+    tagged >= MIN_TAGGED_TO_CALIBRATE
 }
 
 /// Why a picture file could not be described, and what to do: the advice to move a file
