@@ -875,3 +875,33 @@ fn unreadable_files_and_folders_are_named_and_skipped() {
         started.elapsed().as_secs_f64()
     );
 }
+
+/// A review sheet with a bad cell is refused naming the line a spreadsheet shows it on
+/// (sheets are written with CRLF line ends, which once made the count one short), once
+/// as text and, under --json, as one JSON object.
+#[test]
+fn a_bad_review_sheet_names_the_line_of_the_bad_cell() {
+    let _serial = one_at_a_time();
+    let temp = tempfile::tempdir().unwrap();
+    let root = temp.path();
+    good_pictures(root);
+    let scan = tagweave(root, &["scan", ".", "--json"]);
+    assert_eq!(scan.status.code(), Some(0), "{}", stderr_of(&scan));
+    let sheet = "\u{feff}picture,tag,probability,kind,accept\r\n\
+                 good-0.jpg,harbour,0.9,suggested,y\r\n\
+                 good-1.jpg,harbour,0.8,suggested,\r\n\
+                 good-2.jpg,harbour,0.7,suggested,maybe\r\n";
+    put(root, "review.csv", sheet.as_bytes());
+    let out = tagweave(root, &["apply", "review.csv", "--dry-run"]);
+    assert_eq!(out.status.code(), Some(1));
+    let message = stderr_of(&out);
+    assert!(message.contains("line 4: `accept` is `maybe`"), "{message}");
+    assert_eq!(message.matches("`maybe`").count(), 1, "{message}");
+    let out = tagweave(root, &["apply", "review.csv", "--json"]);
+    assert_eq!(out.status.code(), Some(1));
+    let error = json(&out);
+    assert!(
+        error["error"].as_str().unwrap().contains("line 4:"),
+        "{error}"
+    );
+}

@@ -202,3 +202,17 @@ pub fn try_open_store_copy(
     let store = tagweave_store::Store::open(&copy);
     (scratch, store)
 }
+
+/// Runs the binary with its standard output going into a pipe nobody reads any more (as
+/// `tagweave … | head` once `head` has quit), and returns what it did.
+pub fn tagweave_into_closed_pipe(cwd: &Path, args: &[&str]) -> Output {
+    let (reader, writer) = std::io::pipe().expect("a pipe");
+    drop(reader);
+    Command::new(env!("CARGO_BIN_EXE_tagweave"))
+        .args(args)
+        .current_dir(cwd)
+        .stdout(writer)
+        .stderr(std::process::Stdio::piped())
+        .output()
+        .expect("the tagweave binary runs")
+}

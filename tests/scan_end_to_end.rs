@@ -127,6 +127,44 @@ fn commands_outside_any_collection_say_how_to_start() {
     assert_eq!(out.status.code(), Some(1));
     let message = String::from_utf8_lossy(&out.stderr);
     assert!(message.contains("tagweave scan"), "{message}");
+    // Under --json the error is one JSON object on standard output too.
+    let out = tagweave(temp.path(), &["tags", "--json"]);
+    assert_eq!(out.status.code(), Some(1));
+    let error = json(&out);
+    assert!(
+        error["error"].as_str().unwrap().contains("tagweave scan"),
+        "{error}"
+    );
+    assert_eq!(error.as_object().unwrap().len(), 1, "{error}");
+}
+
+// The collection folder stands for the store inside it: `--store FOLDER`, `tags FOLDER`,
+// and a scan given the folder as its store never makes a store among the pictures.
+#[test]
+fn the_collection_folder_stands_for_its_store() {
+    let temp = tempfile::tempdir().unwrap();
+    let folder = temp.path().join("photos");
+    std::fs::create_dir_all(&folder).unwrap();
+    for (i, picture) in demo_jpegs(4).iter().enumerate() {
+        std::fs::copy(picture, folder.join(format!("p{i}.jpg"))).unwrap();
+    }
+    std::fs::write(folder.join("p0.txt"), "harbour\nnight\n").unwrap();
+    let name = folder.to_str().unwrap();
+    let scan = tagweave(temp.path(), &["scan", name, "--store", name, "--json"]);
+    assert_eq!(scan.status.code(), Some(0), "{}", stderr_of(&scan));
+    assert!(folder.join(".tagweave/db").exists());
+    assert!(!folder.join("db").exists(), "no store among the pictures");
+    let by_store = tagweave(temp.path(), &["tags", "--store", name, "--json"]);
+    assert_eq!(by_store.status.code(), Some(0), "{}", stderr_of(&by_store));
+    let by_folder = tagweave(temp.path(), &["tags", name, "--json"]);
+    assert_eq!(json(&by_folder), json(&by_store));
+    assert_eq!(json(&by_store)["distinct"], 2);
+    let store = folder.join(".tagweave");
+    let by_store_dir = tagweave(
+        temp.path(),
+        &["tags", "--store", store.to_str().unwrap(), "--json"],
+    );
+    assert_eq!(json(&by_store_dir), json(&by_store));
 }
 
 #[test]
@@ -362,7 +400,17 @@ fn the_demo_command_indexes_and_measures_the_archive() {
         text.contains(&format!("pictures  {:>6}", truth.len())),
         "{text}"
     );
-    for expected in ["Step 1", "Step 2", "ridge", "known mislabels"] {
+    // the jargon of training and measuring comes with a legend
+    for expected in [
+        "Step 1",
+        "Step 2",
+        "ridge",
+        "known mislabels",
+        "Words used above:",
+        "reconstruction error  how far",
+        "P@1, P@5",
+        "N+            how many tags",
+    ] {
         assert!(text.contains(expected), "{expected} missing:\n{text}");
     }
 }

@@ -4,7 +4,7 @@ use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
 use serde::Serialize;
-use tagweave_query::{Dispute, EvidenceMix, Found, Queries, Ranking, TagScore};
+use tagweave_query::{Dispute, EvidenceMix, Familiarity, Found, Queries, Ranking, TagScore};
 use tagweave_store::Store;
 use tagweave_writeback::{write_sheet_keeping_decisions, Decision, RowKind, SheetRow};
 
@@ -88,6 +88,10 @@ pub struct AuditArgs {
     /// Pictures shown (the review sheet holds every picture with a disputed tag).
     #[arg(long, default_value_t = 20)]
     pub limit: usize,
+    /// Also list the tagged pictures with no doubtful tag, after the flagged ones (the
+    /// whole ranking, e.g. to measure it).
+    #[arg(long)]
+    pub all: bool,
     /// Where the review sheet goes.
     #[arg(long, value_name = "CSV", default_value = AUDIT_SHEET)]
     pub sheet: PathBuf,
@@ -115,9 +119,27 @@ impl RankArgs {
 /// Below this chance of fitting every asked tag, `find` says no picture is likely to.
 const LIKELY: f32 = 0.5;
 
-fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
-    if json {
-        println!("{}", serde_json::to_string(found)?);
+/// A model's number for a person: a percentage when it is a calibrated probability, else
+/// the bare score (`0.98`), which ranks like a probability but is not one.
+pub fn strength(value: f32, calibrated: bool) -> String {
+    if calibrated {
+        format!("{:.0} %", value * 100.0)
+    } else {
+        format!("{value:.2}")
+    }
+}
+
+/// The answer of `find` or `shift`: `asked` goes into the JSON object beside the pictures.
+fn print_found(
+    found: &[Found],
+    json: Option<serde_json::Value>,
+    what: &str,
+    calibrated: bool,
+) -> anyhow::Result<()> {
+    if let Some(mut asked) = json {
+        asked["calibrated"] = calibrated.into();
+        asked["pictures"] = serde_json::to_value(found)?;
+        println!("{asked}");
         return Ok(());
     }
     if found.is_empty() {
@@ -126,16 +148,24 @@ fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
     }
     let chance = found.iter().any(|f| f.probability.is_some());
     if chance && found.iter().all(|f| f.probability.unwrap_or(0.0) < LIKELY) {
-        println!(
-            "no picture is likely to fit all of these tags (none above {:.0} %); the closest:",
-            LIKELY * 100.0
-        );
+        if calibrated {
+            println!(
+                "no picture is likely to fit all of these tags (none above {:.0} %); the closest:",
+                LIKELY * 100.0
+            );
+        } else {
+            println!("no picture scores above {LIKELY:.2} for all of these tags; the closest:");
+        }
     }
     println!(
         "{:>4}  {:>10}  {:>7}  {:<9}  picture",
         "rank",
         "similarity",
-        if chance { "fits" } else { "" },
+        match (chance, calibrated) {
+            (false, _) => "",
+            (true, true) => "fits",
+            (true, false) => "score",
+        },
         what
     );
     for (i, f) in found.iter().enumerate() {
@@ -148,7 +178,7 @@ fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
         };
         let fits = f
             .probability
-            .map_or_else(String::new, |p| format!("{:.0} %", p * 100.0));
+            .map_or_else(String::new, |p| strength(p, calibrated));
         println!(
             "{:>4}  {:>10.3}  {:>7}  {:<9}  {}",
             i + 1,
@@ -161,13 +191,29 @@ fn print_found(found: &[Found], json: bool, what: &str) -> anyhow::Result<()> {
     if found.iter().any(|f| !f.carries && !f.tagged) {
         println!("  * untagged picture: the tags are the model's guess, not anybody's record");
     }
+    if chance && !calibrated {
+        print_scores_note();
+    }
     Ok(())
+}
+
+/// Said under numbers that are scores, not probabilities.
+fn print_scores_note() {
+    println!(
+        "  scores, not probabilities: too few tagged pictures were held out in training to \
+         calibrate them; higher is likelier, but 0.9 does not mean 9 in 10"
+    );
 }
 
 pub fn find(args: &FindArgs) -> anyhow::Result<Outcome> {
     let (_store, queries) = open(&args.common.store)?;
-    let found = queries.find(&args.tags, args.common.ranking())?;
-    print_found(&found, args.common.json, "tags")?;
+    let asked = queries.tags_asked(&args.tags)?;
+    let found = queries.find(&asked, args.common.ranking())?;
+    let json = args
+        .common
+        .json
+        .then(|| serde_json::json!({ "tags": asked }));
+    print_found(&found, json, "tags", queries.all_calibrated())?;
     Ok(Outcome::Done)
 }
 
@@ -181,8 +227,23 @@ pub fn shift(args: &ShiftArgs) -> anyhow::Result<Outcome> {
             path: args.picture.clone(),
         }
     })?;
-    let found = queries.shift(row, &args.away, &args.toward, args.common.ranking())?;
-    print_found(&found, args.common.json, "toward")?;
+    let asked = |tags: &[String]| -> anyhow::Result<Vec<String>> {
+        Ok(if tags.is_empty() {
+            Vec::new()
+        } else {
+            queries.tags_asked(tags)?
+        })
+    };
+    let (away, toward) = (asked(&args.away)?, asked(&args.toward)?);
+    let found = queries.shift(row, &away, &toward, args.common.ranking())?;
+    let json = args.common.json.then(|| {
+        serde_json::json!({
+            "start": queries.items()[row].rel_path,
+            "away": away,
+            "toward": toward,
+        })
+    });
+    print_found(&found, json, "toward", queries.all_calibrated())?;
     Ok(Outcome::Done)
 }
 
@@ -193,7 +254,20 @@ struct PictureSuggestions {
     carried: Vec<String>,
     /// Carried tags the model took as evidence (those it knows).
     evidence: Vec<String>,
+    /// Whether `probability` of the suggestions is calibrated on held-out pictures; when
+    /// not, it is a score in [0, 1] that ranks like a probability but is not one.
+    calibrated: bool,
+    /// How near the picture lies to the pictures the model learned from.
+    #[serde(flatten)]
+    familiarity: Familiarity,
     suggestions: Vec<TagScore>,
+}
+
+/// A picture given on the command line that could not be judged.
+#[derive(Serialize)]
+struct Unjudged {
+    picture: String,
+    error: String,
 }
 
 pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
@@ -206,22 +280,33 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
         })
         .collect();
     let probabilities = queries.suggest_rows(&listed)?;
+    let familiarity = queries.familiarity_of_rows(&listed);
     for (r, &i) in listed.iter().enumerate() {
         answers.push(answer(
             &queries,
             queries.items()[i].rel_path.clone(),
             Some(i),
-            &probabilities.row(r).to_vec(),
+            (&probabilities.row(r).to_vec(), familiarity[r]),
             args.limit,
         ));
     }
+    // One picture that cannot be read does not cost the others their answers.
+    let mut failed = Vec::new();
     for path in &args.pictures {
-        let (row, probabilities) = match queries.row_of_path(path) {
-            Some(row) => (Some(row), queries.suggest_rows(&[row])?.row(0).to_vec()),
-            None => (None, queries.suggest_file(path)?),
-        };
         let picture = path.display().to_string();
-        answers.push(answer(&queries, picture, row, &probabilities, args.limit));
+        match judge(&queries, path) {
+            Ok((row, probabilities, familiarity)) => answers.push(answer(
+                &queries,
+                picture,
+                row,
+                (&probabilities, familiarity),
+                args.limit,
+            )),
+            Err(error) => failed.push(Unjudged {
+                picture,
+                error: crate::output::describe(&error),
+            }),
+        }
     }
     let sheet = if args.untagged || args.partly_tagged {
         let rows: Vec<SheetRow> = answers
@@ -247,41 +332,84 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
         if let Some(sheet) = &sheet {
             value["sheet"] = serde_json::to_value(sheet)?;
         }
+        if !failed.is_empty() {
+            value["failed"] = serde_json::to_value(&failed)?;
+        }
         println!("{value}");
     } else {
         for a in &answers {
-            println!(
-                "{}{}",
-                a.picture,
-                if a.indexed {
-                    ""
-                } else {
-                    "  (not in the index)"
-                }
-            );
-            if !a.carried.is_empty() {
-                println!("  carries   {}", a.carried.join(", "));
-                if a.evidence.is_empty() {
-                    println!(
-                        "  judged from the picture alone (the model learned nothing from these \
-                         tags about the others, or does not know them)"
-                    );
-                } else {
-                    println!(
-                        "  judged from the picture and its tags {}",
-                        a.evidence.join(", ")
-                    );
-                }
-            }
-            for s in &a.suggestions {
-                println!("  {:>5.0} %  {}", s.probability * 100.0, s.tag);
-            }
+            print_answer(a);
+        }
+        if answers.iter().any(|a| !a.calibrated) {
+            print_scores_note();
         }
         if let Some(written) = &sheet {
             print_sheet_note(&store, written);
         }
     }
-    Ok(Outcome::Done)
+    for f in &failed {
+        eprintln!("tagweave: {}", f.error);
+    }
+    Ok(if failed.is_empty() {
+        Outcome::Done
+    } else {
+        Outcome::DoneWithSkips
+    })
+}
+
+/// Tag probabilities and familiarity of a picture given on the command line: from the
+/// index when it is there (its row), else described from the file.
+fn judge(queries: &Queries, path: &Path) -> anyhow::Result<(Option<usize>, Vec<f32>, Familiarity)> {
+    Ok(match queries.row_of_path(path) {
+        Some(row) => (
+            Some(row),
+            queries.suggest_rows(&[row])?.row(0).to_vec(),
+            queries.familiarity_of_rows(&[row])[0],
+        ),
+        None => {
+            let (probabilities, familiarity) = queries.judge_file(path)?;
+            (None, probabilities, familiarity)
+        }
+    })
+}
+
+fn print_answer(a: &PictureSuggestions) {
+    println!(
+        "{}{}",
+        a.picture,
+        if a.indexed {
+            ""
+        } else {
+            "  (not in the index)"
+        }
+    );
+    if a.familiarity.unlike_collection {
+        println!(
+            "  unlike this collection: its nearest tagged picture is further away (similarity \
+             {:.3}) than for {:.0} % of the tagged pictures ({:.3} or more); the tags below are \
+             guesses",
+            a.familiarity.nearest_similarity,
+            tagweave_query::USUAL_SHARE * 100.0,
+            a.familiarity.usual_similarity.unwrap_or(0.0)
+        );
+    }
+    if !a.carried.is_empty() {
+        println!("  carries   {}", a.carried.join(", "));
+        if a.evidence.is_empty() {
+            println!(
+                "  judged from the picture alone (the model learned nothing from these \
+                 tags about the others, or does not know them)"
+            );
+        } else {
+            println!(
+                "  judged from the picture and its tags {}",
+                a.evidence.join(", ")
+            );
+        }
+    }
+    for s in &a.suggestions {
+        println!("  {:>5}  {}", strength(s.probability, a.calibrated), s.tag);
+    }
 }
 
 /// One picture's answer: its carried tags, those taken as evidence, and the best
@@ -290,7 +418,7 @@ fn answer(
     queries: &Queries,
     picture: String,
     row: Option<usize>,
-    probabilities: &[f32],
+    (probabilities, familiarity): (&[f32], Familiarity),
     limit: usize,
 ) -> PictureSuggestions {
     let carried = row.map_or_else(Vec::new, |r| queries.items()[r].tags.clone());
@@ -298,6 +426,8 @@ fn answer(
         picture,
         indexed: row.is_some(),
         evidence: row.map_or_else(Vec::new, |r| queries.evidence(r)),
+        calibrated: queries.calibrated(row),
+        familiarity,
         suggestions: queries
             .tag_scores(probabilities, &carried)
             .into_iter()
@@ -393,8 +523,13 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
         }
     }
     let sheet = write_sheet_out(&args.sheet, &rows)?;
+    let listed: Vec<&Dispute> = if args.all {
+        disputes.iter().collect()
+    } else {
+        flagged.clone()
+    };
     if args.json {
-        let shown: Vec<&Dispute> = disputes.iter().take(args.limit).collect();
+        let shown: Vec<&Dispute> = listed.iter().copied().take(args.limit).collect();
         println!(
             "{}",
             serde_json::json!({
@@ -414,7 +549,8 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
         disputes.len()
     );
     println!("{}", describe_mix(&audit.mix));
-    for (i, d) in flagged.iter().take(args.limit).enumerate() {
+    let calibrated = queries.all_calibrated();
+    for (i, d) in listed.iter().take(args.limit).enumerate() {
         let disputed: Vec<String> = d
             .disputed
             .iter()
@@ -430,10 +566,14 @@ pub fn audit(args: &AuditArgs) -> anyhow::Result<Outcome> {
         let proposed: Vec<String> = d
             .proposed
             .iter()
-            .map(|t| format!("{} ({:.0} %)", t.tag, t.probability * 100.0))
+            .map(|t| format!("{} ({})", t.tag, strength(t.probability, calibrated)))
             .collect();
         println!("{:>4}. {}", i + 1, d.picture);
-        println!("      doubtful  {}", disputed.join(", "));
+        if disputed.is_empty() {
+            println!("      no doubtful tag");
+        } else {
+            println!("      doubtful  {}", disputed.join(", "));
+        }
         if !proposed.is_empty() {
             println!("      proposed  {}", proposed.join(", "));
         }

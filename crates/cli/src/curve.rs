@@ -9,6 +9,13 @@ const PANEL_W: f64 = 300.0;
 const PANEL_H: f64 = 220.0;
 const MARGIN: f64 = 44.0;
 const COLOURS: [&str; 3] = ["#1f5f8b", "#c8553d", "#588b3f"];
+/// Height of the title band above the panels.
+const TITLE_H: f64 = 30.0;
+/// Height of a panel's frame, with its title above and axis label below.
+const PLOT_H: f64 = PANEL_H - 22.0 - 48.0;
+/// Distance between legend lines, and room below the last line for its letters' tails.
+const LEGEND_LINE: f64 = 12.0;
+const BOTTOM_ROOM: f64 = 8.0;
 
 struct Series<'a> {
     label: String,
@@ -67,11 +74,16 @@ pub fn render(history: &TrainingHistory, kept_epochs: usize) -> String {
         },
     ];
     let width = PANEL_W * panels.len() as f64;
+    // Tall enough for the longest legend (the pretraining panel lists three layers).
+    let legend_lines = panels.iter().map(|p| p.series.len()).max().unwrap_or(0);
+    let height = (TITLE_H + PANEL_H).max(
+        legend_top(TITLE_H) + LEGEND_LINE * legend_lines.saturating_sub(1) as f64 + BOTTOM_ROOM,
+    );
     let mut svg = format!(
         "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{width}\" height=\"{h}\" \
          viewBox=\"0 0 {width} {h}\" font-family=\"sans-serif\" font-size=\"11\">\n\
          <rect width=\"100%\" height=\"100%\" fill=\"white\"/>\n",
-        h = PANEL_H + 30.0
+        h = height
     );
     let _ = writeln!(
         svg,
@@ -79,15 +91,20 @@ pub fn render(history: &TrainingHistory, kept_epochs: usize) -> String {
         history.pictures, history.seconds
     );
     for (i, panel) in panels.iter().enumerate() {
-        draw_panel(&mut svg, panel, i as f64 * PANEL_W, 30.0);
+        draw_panel(&mut svg, panel, i as f64 * PANEL_W, TITLE_H);
     }
     svg.push_str("</svg>\n");
     svg
 }
 
+/// Baseline of a panel's first legend line, for a panel whose top is at `y0`.
+fn legend_top(y0: f64) -> f64 {
+    y0 + 22.0 + PLOT_H + 28.0
+}
+
 fn draw_panel(svg: &mut String, panel: &Panel, x0: f64, y0: f64) {
     let (left, top) = (x0 + MARGIN, y0 + 22.0);
-    let (w, h) = (PANEL_W - MARGIN - 12.0, PANEL_H - 22.0 - 48.0);
+    let (w, h) = (PANEL_W - MARGIN - 12.0, PLOT_H);
     let _ = writeln!(
         svg,
         "<text x=\"{left}\" y=\"{}\" font-weight=\"bold\">{}</text>",
@@ -170,10 +187,19 @@ fn draw_panel(svg: &mut String, panel: &Panel, x0: f64, y0: f64) {
             svg,
             "<text x=\"{}\" y=\"{}\" fill=\"{colour}\">{}</text>",
             left,
-            top + h + 28.0 + 12.0 * i as f64,
+            legend_top(y0) + LEGEND_LINE * i as f64,
             series.label
         );
     }
+}
+
+/// The number after the first `prefix` in `text` (test helper).
+#[cfg(test)]
+fn number_after(text: &str, prefix: &str) -> f64 {
+    let start = text.find(prefix).map(|i| i + prefix.len()).unwrap_or(0);
+    let rest = &text[start..];
+    let end = rest.find('"').unwrap_or(rest.len());
+    rest[..end].parse().unwrap_or(f64::NAN)
 }
 
 fn short(v: f32) -> String {
@@ -209,6 +235,26 @@ mod tests {
         // every opened element is closed or self-closed
         let opened = svg.matches("<text").count();
         assert_eq!(opened, svg.matches("</text>").count());
+        // every text line, the last legend line of three included, lies inside the picture
+        let three = TrainingHistory {
+            pretraining: vec![
+                ("image".into(), vec![1.0, 0.8]),
+                ("tags".into(), vec![0.3, 0.2]),
+                ("shared".into(), vec![0.2, 0.1]),
+            ],
+            ..history
+        };
+        let svg = render(&three, 2);
+        let height = number_after(&svg, "height=\"");
+        let lowest = svg
+            .match_indices("<text x=")
+            .map(|(at, _)| number_after(&svg[at..], " y=\""))
+            .fold(0.0, f64::max);
+        assert!(svg.contains(">shared layer</text>"));
+        assert!(
+            lowest + 3.0 <= height,
+            "a line at y {lowest} in a picture {height} high"
+        );
         let empty = render(&TrainingHistory::default(), 0);
         assert_eq!(empty.matches("nothing recorded").count(), 3);
     }

@@ -96,6 +96,7 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
     ask::audit(&AuditArgs {
         store: store_args(),
         limit: 5,
+        all: false,
         sheet: store_dir.join(ask::AUDIT_SHEET),
         json: false,
     })?;

@@ -71,6 +71,29 @@ pub struct EvalArgs {
     pub variant_rows: bool,
 }
 
+/// The table's column names, for people who do not measure models for a living. Each
+/// measure is over the test pictures, which no method saw while learning; "higher is
+/// better" unless said.
+pub const EVAL_LEGEND: &str = "\
+Columns (on the test pictures, held back while the methods learned; higher is better
+unless said):
+  joint, knn, prior, ridge  the methods: tagweave's model; the tags of the most similar
+                pictures; each tag's frequency (a picture-blind floor); a linear fit
+  LRAP          label ranking average precision: 1.0 when every tag a picture carries is
+                ranked above every tag it does not
+  P@1, P@5      share of the top 1 / top 5 suggested tags that the picture carries
+  R@5           share of a picture's tags found among its top 5 suggestions
+  coverage      how far down the ranking one must read to see all of a picture's tags
+                (lower is better)
+  tag P, tag R  precision and recall per tag of the top 5 suggestions, averaged over tags
+  N+            how many tags were suggested correctly at least once
+  search mAP    mean average precision of finding pictures by one tag; pair mAP: by two
+  mislabel AUC  chance that a picture given wrong tags on purpose is ranked more doubtful
+                than a correctly tagged one (0.5 is chance); mislabel P: share of wrong
+                ones among the most doubtful
+  seconds       time to learn and to score
+";
+
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
 pub enum TagLayerChoice {
     /// One logistic unit per tag.
@@ -140,17 +163,14 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
     // Variants of every picture, decoded again from the folder; only the train pictures'
     // reach the joint model. A picture that no longer decodes trains as itself.
     let variants = if joint.variant_share > 0.0 || joint.variant_rows {
-        let bar = progress::bar("describing variants");
+        let progress = progress::Progress::new();
         let (variants, _) = variant_features(
             &store,
             &table.items,
             table.features.view(),
-            &mut |done, total| {
-                bar.set_length(total as u64);
-                bar.set_position(done as u64);
-            },
+            &mut |done, total| progress.show("describing variants", done, total),
         )?;
-        bar.finish_and_clear();
+        progress.finish();
         variants
     } else {
         Vec::new()
@@ -170,20 +190,17 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         train_fraction: args.train_fraction,
         ..EvalOptions::default()
     };
-    let bar = progress::bar("evaluating");
-    let mut report = run_experiment(&collection, &options, &joint, &mut |event| {
-        let (done, total) = match event {
-            Progress::Fitting { index, total, .. } => (2 * index, 2 * total),
-            Progress::Measuring { index, total, .. } => (2 * index + 1, 2 * total),
-            Progress::Auditing { fold, folds } => {
-                bar.set_message("auditing out of fold");
-                (fold, folds)
-            }
-        };
-        bar.set_length(total as u64);
-        bar.set_position(done as u64);
+    let progress = progress::Progress::new();
+    let mut report = run_experiment(&collection, &options, &joint, &mut |event| match event {
+        Progress::Fitting { index, total, .. } => {
+            progress.show("measuring methods", 2 * index, 2 * total)
+        }
+        Progress::Measuring { index, total, .. } => {
+            progress.show("measuring methods", 2 * index + 1, 2 * total)
+        }
+        Progress::Auditing { fold, folds } => progress.show("auditing out of fold", fold, folds),
     })?;
-    bar.finish_and_clear();
+    progress.finish();
     if let (Some(measured), Some(file)) = (&report.known_mislabels, &args.known_mislabels) {
         if measured.known == 0 {
             bail!(
@@ -203,6 +220,7 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         print!("{}", report.to_markdown());
     } else {
         print!("{}", report.to_table());
+        print!("{EVAL_LEGEND}");
     }
     Ok(Outcome::Done)
 }
@@ -213,7 +231,7 @@ fn simulate_order(
     seed: u64,
     joint: &JointOptions,
 ) -> anyhow::Result<TaggingOrder> {
-    let bar = progress::bar("simulating tagging order");
+    let progress = progress::Progress::new();
     let make = || Box::new(JointScorer::with_options(joint.clone())) as Box<dyn TagScorer>;
     let options = TaggingOrderOptions {
         seed,
@@ -228,16 +246,18 @@ fn simulate_order(
         &make,
         &mut |p| {
             let ways = TaggingStrategy::ALL.len() + 1;
-            bar.set_message(format!("simulating tagging order: {}", p.method));
-            bar.set_length((ways * p.batches) as u64);
             let way = std::iter::once(tagweave_eval::RANDOM)
                 .chain(TaggingStrategy::ALL.iter().map(|s| s.name()))
                 .position(|name| name == p.method)
                 .unwrap_or(0);
-            bar.set_position((way * p.batches + p.batch) as u64);
+            progress.show(
+                "simulating tagging order (one training per batch and way)",
+                way * p.batches + p.batch,
+                ways * p.batches,
+            );
         },
     )?;
-    bar.finish_and_clear();
+    progress.finish();
     Ok(order)
 }
 

@@ -1,11 +1,28 @@
 //! The `tagweave` command: parses arguments, calls the library crates, prints results.
 
+// Every `println!`/`print!` of the crate goes through `output::write`, so a closed pipe
+// ends the command quietly instead of panicking. Defined before the modules that use them.
+macro_rules! println {
+    () => {
+        $crate::output::write(format_args!(""), true)
+    };
+    ($($arg:tt)*) => {
+        $crate::output::write(format_args!($($arg)*), true)
+    };
+}
+macro_rules! print {
+    ($($arg:tt)*) => {
+        $crate::output::write(format_args!($($arg)*), false)
+    };
+}
+
 mod apply;
 mod ask;
 mod curve;
 mod demo;
 mod eval;
 mod exit;
+mod output;
 mod progress;
 mod scan;
 mod serve;
@@ -55,17 +72,37 @@ enum Command {
     Serve(serve::ServeArgs),
 }
 
+impl Command {
+    /// Whether the command was asked for JSON: then an error is printed as JSON too.
+    fn json(&self) -> bool {
+        match self {
+            Command::Scan(a) => a.json,
+            Command::Tags(a) => a.json,
+            Command::Train(a) => a.json,
+            Command::Eval(a) => a.json,
+            Command::Find(a) => a.common.json,
+            Command::Suggest(a) => a.json,
+            Command::Shift(a) => a.common.json,
+            Command::Audit(a) => a.json,
+            Command::Apply(a) => a.json,
+            Command::Demo(_) | Command::Serve(_) => false,
+        }
+    }
+}
+
 /// Options every command that reads a store shares.
 #[derive(clap::Args, Clone)]
 pub struct StoreArgs {
-    /// Store folder. Default: FOLDER/.tagweave when scanning a folder, otherwise the nearest
-    /// .tagweave/ in the current folder or above.
+    /// Store folder, or the collection folder holding it in .tagweave/. Default:
+    /// FOLDER/.tagweave when scanning a folder, otherwise the nearest .tagweave/ in the
+    /// current folder or above.
     #[arg(long, value_name = "PATH")]
     pub store: Option<PathBuf>,
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    let json = cli.command.json();
     let result = match cli.command {
         Command::Scan(args) => scan::run(&args),
         Command::Tags(args) => tags::run(&args),
@@ -82,7 +119,13 @@ fn main() -> ExitCode {
     match result {
         Ok(code) => code.into(),
         Err(error) => {
-            eprintln!("tagweave: {error:#}");
+            // Under --json, standard output holds one JSON object whatever happens: the
+            // answer, or this. People still read the message on standard error.
+            let message = output::describe(&error);
+            if json {
+                println!("{}", output::error_json(&message));
+            }
+            eprintln!("tagweave: {message}");
             exit::Outcome::Failed.into()
         }
     }

@@ -91,7 +91,7 @@ pub fn open_for_scan(args: &ScanArgs) -> anyhow::Result<Store> {
 }
 
 pub fn scan_with_progress(store: &Store, options: &ScanOptions) -> anyhow::Result<ScanReport> {
-    let bar = progress::bar("reading pictures");
+    let progress = progress::Progress::new();
     let report = tagweave_indexer::scan(store, options, &|event| {
         let (message, done, total) = match event {
             ScanProgress::Crawled { to_read, .. } => ("reading pictures", 0, to_read),
@@ -100,11 +100,9 @@ pub fn scan_with_progress(store: &Store, options: &ScanOptions) -> anyhow::Resul
             ScanProgress::Encoding { done, total } => ("describing pictures", done, total),
             ScanProgress::Coding { done, total } => ("coding new pictures", done, total),
         };
-        bar.set_message(message);
-        bar.set_length(total as u64);
-        bar.set_position(done as u64);
+        progress.show(message, done, total);
     })?;
-    bar.finish_and_clear();
+    progress.finish();
     Ok(report)
 }
 

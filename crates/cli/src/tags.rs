@@ -1,3 +1,5 @@
+use std::path::PathBuf;
+
 use serde::Serialize;
 
 use crate::exit::Outcome;
@@ -5,6 +7,9 @@ use crate::{store_path, StoreArgs};
 
 #[derive(clap::Args)]
 pub struct TagsArgs {
+    /// The collection folder (its store is FOLDER/.tagweave); the same as --store FOLDER.
+    #[arg(conflicts_with = "store")]
+    pub folder: Option<PathBuf>,
     #[command(flatten)]
     pub store: StoreArgs,
     /// Print one JSON object instead of a table.
@@ -22,7 +27,7 @@ struct TagCount<'a> {
 }
 
 pub fn run(args: &TagsArgs) -> anyhow::Result<Outcome> {
-    let store = store_path::open_existing(args.store.store.as_deref())?;
+    let store = store_path::open_existing(args.folder.as_deref().or(args.store.store.as_deref()))?;
     let vocabulary = store.vocabulary()?;
     let shown = args.limit.unwrap_or(usize::MAX);
     if args.json {

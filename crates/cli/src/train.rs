@@ -32,6 +32,9 @@ pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
     if args.json {
         let mut value = serde_json::to_value(&report)?;
         value["curves"] = serde_json::json!(curve_path);
+        // As `suggest` judges it: a calibration fitted on too few pictures does not count.
+        value["calibrated"] =
+            (report.calibrated && tagweave_query::enough_to_calibrate(report.pictures)).into();
         println!("{value}");
     } else {
         print_summary(&report, &curve_path);
@@ -41,48 +44,148 @@ pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
 
 /// Trains, shows progress, writes the curve picture; returns the report and its path.
 pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainReport, PathBuf)> {
-    let bar = progress::bar("pretraining");
+    let progress = progress::Progress::new();
     let options = TrainRunOptions {
         seed,
         ..TrainRunOptions::default()
     };
-    let max_epochs = options.joint.max_epochs as u64;
-    let report = tagweave_indexer::train(store, &options, &mut |event| match event {
-        TrainProgress::Model(run, JointProgress::Pretraining { layer, report }) => {
-            bar.set_message(match (run, layer) {
-                (TrainingRun::Choosing, _) => "pretraining (trial run)",
-                (TrainingRun::Final, "image") => "pretraining image layer",
-                (TrainingRun::Final, "tags") => "pretraining tag layer",
-                (TrainingRun::Final, _) => "pretraining shared layer",
-            });
-            bar.set_length(options.joint.pretrain_epochs as u64);
-            bar.set_position(report.epoch as u64 + 1);
-        }
-        TrainProgress::Model(run, JointProgress::FineTuning(r)) => {
-            bar.set_message(match run {
-                TrainingRun::Choosing => "fine-tuning (trial run)",
-                TrainingRun::Final => "fine-tuning",
-            });
-            bar.set_length(max_epochs);
-            bar.set_position(r.epoch as u64 + 1);
-        }
-        TrainProgress::Variants { done, total } => {
-            bar.set_message("describing variants");
-            bar.set_length(total as u64);
-            bar.set_position(done as u64);
-        }
-        TrainProgress::Coding { done, total } => {
-            bar.set_message("coding pictures");
-            bar.set_length(total as u64);
-            bar.set_position(done as u64);
+    let mut stages = TrainStages::new(options.joint.pretrain_epochs, options.joint.max_epochs);
+    let report = tagweave_indexer::train(store, &options, &mut |event| {
+        for shown in stages.on(&event) {
+            match shown {
+                Shown::Stage { stage, done, total } => progress.show(&stage, done, total),
+                Shown::Note(line) => progress.note(&line),
+            }
         }
     })?;
-    bar.finish_and_clear();
+    progress.finish();
     let trained = load_model(store)?.context("the model just trained is not in the store")?;
     let path = store.dir().join(CURVE_FILE);
     std::fs::write(&path, curve::render(&trained.history, report.epochs))
         .with_context(|| format!("cannot write the training curves to {}", path.display()))?;
     Ok((report, path))
+}
+
+/// What the progress bar shows: a stage with its count, or a line said above the bar.
+#[derive(Debug, Clone, PartialEq)]
+enum Shown {
+    Stage {
+        stage: String,
+        done: usize,
+        total: usize,
+    },
+    Note(String),
+}
+
+/// Turns training events into stages and notes: the trial run is named and explained once,
+/// and when fine-tuning ends, why it ended is said (the bar alone would stop at 38/100).
+struct TrainStages {
+    pretrain_epochs: usize,
+    max_epochs: usize,
+    explained_trial: bool,
+    /// The fine-tuning under way: its run and its last epoch (counted from 0).
+    fine_tuning: Option<(TrainingRun, usize)>,
+    /// Best held-out score of the trial run so far, and its epoch.
+    best_trial: Option<(f32, usize)>,
+}
+
+impl TrainStages {
+    fn new(pretrain_epochs: usize, max_epochs: usize) -> TrainStages {
+        TrainStages {
+            pretrain_epochs,
+            max_epochs,
+            explained_trial: false,
+            fine_tuning: None,
+            best_trial: None,
+        }
+    }
+
+    /// Fine-tuning epochs of the final run: those the trial run chose (its best epoch),
+    /// or all of them when there was no trial run.
+    fn final_epochs(&self) -> usize {
+        self.best_trial.map_or(self.max_epochs, |(_, e)| e + 1)
+    }
+
+    fn on(&mut self, event: &TrainProgress) -> Vec<Shown> {
+        let mut shown = Vec::new();
+        let still_fine_tuning = matches!(
+            (event, self.fine_tuning),
+            (TrainProgress::Model(run, JointProgress::FineTuning(_)), Some((was, _))) if *run == was
+        );
+        if !still_fine_tuning {
+            shown.extend(self.end_fine_tuning());
+        }
+        let stage = |stage: &str, done: usize, total: usize| Shown::Stage {
+            stage: stage.to_string(),
+            done,
+            total,
+        };
+        match event {
+            TrainProgress::Model(run, JointProgress::Pretraining { layer, report }) => {
+                if *run == TrainingRun::Choosing && !self.explained_trial {
+                    self.explained_trial = true;
+                    shown.push(Shown::Note(
+                        "trial run: trains on most tagged pictures and checks on the rest how \
+                         long to fine-tune; the final run then trains on all of them"
+                            .into(),
+                    ));
+                }
+                let name = match run {
+                    TrainingRun::Choosing => format!("trial run: pretraining {layer} layer"),
+                    TrainingRun::Final => format!("pretraining {layer} layer"),
+                };
+                shown.push(stage(&name, report.epoch + 1, self.pretrain_epochs));
+            }
+            TrainProgress::Model(run, JointProgress::FineTuning(r)) => {
+                self.fine_tuning = Some((*run, r.epoch));
+                let total = match run {
+                    TrainingRun::Choosing => {
+                        if let Some(score) = r.validation_score.filter(|s| s.is_finite()) {
+                            if self.best_trial.is_none_or(|(best, _)| score > best) {
+                                self.best_trial = Some((score, r.epoch));
+                            }
+                        }
+                        self.max_epochs
+                    }
+                    TrainingRun::Final => self.final_epochs().max(r.epoch + 1),
+                };
+                let name = match run {
+                    TrainingRun::Choosing => "trial run: fine-tuning",
+                    TrainingRun::Final => "fine-tuning",
+                };
+                shown.push(stage(name, r.epoch + 1, total));
+            }
+            TrainProgress::Variants { done, total } => {
+                shown.push(stage("describing variants", *done, *total));
+            }
+            TrainProgress::Coding { done, total } => {
+                shown.push(stage("coding pictures", *done, *total));
+            }
+        }
+        shown
+    }
+
+    /// Says how the fine-tuning under way ended, if one is.
+    fn end_fine_tuning(&mut self) -> Option<Shown> {
+        let (run, last) = self.fine_tuning.take()?;
+        let ran = last + 1;
+        let line = match run {
+            TrainingRun::Choosing if ran < self.max_epochs => format!(
+                "trial run: fine-tuning stopped after epoch {ran} of at most {}: the tag ranking \
+                 of the held-out pictures had stopped improving (best at epoch {}), so the \
+                 final run fine-tunes {} epochs",
+                self.max_epochs,
+                self.final_epochs(),
+                self.final_epochs()
+            ),
+            TrainingRun::Choosing => format!(
+                "trial run: fine-tuning ran all {ran} epochs (best at epoch {})",
+                self.final_epochs()
+            ),
+            TrainingRun::Final => format!("fine-tuning done: {ran} epochs"),
+        };
+        Some(Shown::Note(line))
+    }
 }
 
 pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
@@ -119,7 +222,7 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
         "  suggestions {readout:.0} % model read-out, {ridge:.0} % linear read-out, {near:.0} % \
          tags of the {} most similar pictures; {}",
         report.k,
-        if report.calibrated {
+        if report.calibrated && tagweave_query::enough_to_calibrate(report.pictures) {
             "probabilities calibrated on held-out pictures"
         } else {
             "too few held-out pictures to calibrate: scores are not probabilities"
@@ -143,4 +246,124 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
         report.coded, report.layers[2], report.hash_bits
     );
     println!("  curves      {}", curve_path.display());
+    print!("{TRAIN_LEGEND}");
+}
+
+/// The words of the summary, for people who do not train models for a living.
+pub const TRAIN_LEGEND: &str = "\
+Words used above:
+  units                 the numbers a layer computes for each picture: the image layer
+                        from its features, the tag layer from its tags, the shared layer
+                        (the code) from both
+  reconstruction error  how far a layer's rebuilding of what it was shown is from the
+                        real thing (mean squared difference); lower means it learned a
+                        pattern, not that suggestions are good
+  tag ranking (LRAP)    on pictures held out from training: 1.0 when every tag a picture
+                        carries is ranked above every tag it does not; higher is better
+  loss                  what fine-tuning makes smaller; only its downward trend matters
+  read-out              the part that turns a picture's code into tag scores
+  calibrated            a stated 80 % comes true about 8 times in 10 on held-out pictures
+  hash                  each code cut to one bit per value, to find near codes fast before
+                        they are compared exactly
+";
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use tagweave_model::{EpochReport, FineTuneReport};
+
+    fn pretraining(run: TrainingRun, layer: &'static str, epoch: usize) -> TrainProgress {
+        TrainProgress::Model(
+            run,
+            JointProgress::Pretraining {
+                layer,
+                report: EpochReport {
+                    epoch,
+                    learning_rate: 0.1,
+                    reconstruction_error: 0.5,
+                    validation_error: None,
+                },
+            },
+        )
+    }
+
+    fn fine_tuning(run: TrainingRun, epoch: usize, score: Option<f32>) -> TrainProgress {
+        TrainProgress::Model(
+            run,
+            JointProgress::FineTuning(FineTuneReport {
+                epoch,
+                train_loss: 1.0,
+                validation_score: score,
+            }),
+        )
+    }
+
+    fn notes(shown: &[Shown]) -> Vec<&str> {
+        shown
+            .iter()
+            .filter_map(|s| match s {
+                Shown::Note(line) => Some(line.as_str()),
+                Shown::Stage { .. } => None,
+            })
+            .collect()
+    }
+
+    // A trial run that stops early at epoch 5 of 100 (best at epoch 3), then a final run of
+    // 3 epochs: the trial run is named and explained once, its early end is said with the
+    // reason, and the final run's bar ends full (3/3), never at 3/100.
+    #[test]
+    fn the_trial_run_is_explained_and_an_early_stop_is_said() {
+        let mut stages = TrainStages::new(5, 100);
+        let mut shown = Vec::new();
+        for epoch in 0..5 {
+            shown.extend(stages.on(&pretraining(TrainingRun::Choosing, "image", epoch)));
+        }
+        for (epoch, score) in [0.5, 0.6, 0.7, 0.65, 0.69].into_iter().enumerate() {
+            shown.extend(stages.on(&fine_tuning(TrainingRun::Choosing, epoch, Some(score))));
+        }
+        shown.extend(stages.on(&pretraining(TrainingRun::Final, "image", 0)));
+        for epoch in 0..3 {
+            shown.extend(stages.on(&fine_tuning(TrainingRun::Final, epoch, None)));
+        }
+        shown.extend(stages.on(&TrainProgress::Coding { done: 0, total: 10 }));
+        let said = notes(&shown);
+        assert_eq!(said.len(), 3, "{said:#?}");
+        assert!(said[0].starts_with("trial run: trains on most tagged pictures"));
+        assert!(
+            said[1].contains("stopped after epoch 5 of at most 100")
+                && said[1].contains("best at epoch 3")
+                && said[1].contains("final run fine-tunes 3 epochs"),
+            "{}",
+            said[1]
+        );
+        assert_eq!(said[2], "fine-tuning done: 3 epochs");
+        let last_final = shown
+            .iter()
+            .rev()
+            .find_map(|s| match s {
+                Shown::Stage { stage, done, total } if stage == "fine-tuning" => {
+                    Some((*done, *total))
+                }
+                _ => None,
+            })
+            .unwrap();
+        assert_eq!(last_final, (3, 3));
+        let trial_stage = shown.iter().find_map(|s| match s {
+            Shown::Stage { stage, .. } => Some(stage.as_str()),
+            Shown::Note(_) => None,
+        });
+        assert_eq!(trial_stage, Some("trial run: pretraining image layer"));
+    }
+
+    #[test]
+    fn a_trial_run_that_ran_every_epoch_says_so() {
+        let mut stages = TrainStages::new(5, 2);
+        stages.on(&fine_tuning(TrainingRun::Choosing, 0, Some(0.5)));
+        stages.on(&fine_tuning(TrainingRun::Choosing, 1, Some(0.6)));
+        let shown = stages.on(&pretraining(TrainingRun::Final, "image", 0));
+        assert_eq!(
+            notes(&shown),
+            ["trial run: fine-tuning ran all 2 epochs (best at epoch 2)"]
+        );
+    }
 }

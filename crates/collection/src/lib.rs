@@ -9,6 +9,7 @@ mod normalize;
 pub mod sidecar;
 #[cfg(test)]
 mod test_support;
+mod typo;
 mod vocabulary;
 mod xmp;
 
@@ -19,4 +20,5 @@ pub use item::{
     SidecarRef,
 };
 pub use normalize::{misleading_char, normalize_tag};
+pub use typo::closest_tag;
 pub use vocabulary::Vocabulary;

@@ -10,7 +10,7 @@ use std::path::{Path, PathBuf};
 
 use ndarray::{Array1, Array2, Axis};
 use serde::Serialize;
-use tagweave_collection::{normalize_tag, ItemRecord};
+use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
 use tagweave_store::{
     CodeIndex, FeatureTable, SearchMode, Store, StoreError, CODES, EXTRACTOR_BLOB,
 };
@@ -18,25 +18,26 @@ use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_
 use tagweave_vision::{FeatureExtractor, VisionError};
 
 mod audit;
+mod familiar;
 pub use audit::{Audit, Dispute, DisputedTag, EvidenceMix};
+pub use familiar::{Familiarity, USUAL_SHARE};
 
 #[derive(Debug, thiserror::Error)]
 pub enum QueryError {
     #[error("this collection has no trained model yet; run `tagweave train` first")]
     NotTrained,
     #[error(
-        "the model does not know the tag(s) {unknown:?}; `tagweave tags` lists the tags \
-         pictures carry (the model learns tags carried by at least one tagged picture)"
+        "the model does not know the tag{} {}; `tagweave tags` lists the tags pictures carry \
+         (the model learns tags carried by at least one tagged picture)",
+        if unknown.len() == 1 { "" } else { "s" },
+        unknown.iter().map(UnknownTag::to_string).collect::<Vec<_>>().join(", ")
     )]
-    UnknownTags { unknown: Vec<String> },
+    UnknownTags { unknown: Vec<UnknownTag> },
     #[error("give at least one tag")]
     NoTags,
-    #[error("{path} is not a picture of this collection and cannot be read as one: {source}")]
-    Picture {
-        path: PathBuf,
-        #[source]
-        source: VisionError,
-    },
+    /// A picture file that could not be described; `problem` says why and what to do.
+    #[error("{problem}")]
+    Picture { path: PathBuf, problem: String },
     #[error(
         "{path} is not indexed; scan the folder first (`tagweave scan FOLDER`), or give a \
          picture file to judge on its own"
@@ -49,6 +50,23 @@ pub enum QueryError {
 }
 
 pub type Result<T> = std::result::Result<T, QueryError>;
+
+/// A typed tag the model does not know, and the known tag it is probably a slip for.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct UnknownTag {
+    pub typed: String,
+    pub did_you_mean: Option<String>,
+}
+
+impl std::fmt::Display for UnknownTag {
+    fn fmt(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        write!(f, "`{}`", self.typed)?;
+        match &self.did_you_mean {
+            Some(tag) => write!(f, " (did you mean `{tag}`?)"),
+            None => Ok(()),
+        }
+    }
+}
 
 /// One tag with the model's probability that it fits a picture.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -109,6 +127,8 @@ pub struct Queries {
     neighbour_row: Vec<Option<usize>>,
     columns: TagColumns,
     extractor: Option<FeatureExtractor>,
+    /// The tagged pictures to judge familiarity by (see [`Familiarity`]), once asked.
+    memory: familiar::MemoryCache,
 }
 
 impl Queries {
@@ -145,6 +165,7 @@ impl Queries {
             neighbour_row,
             columns: trained.columns(),
             trained,
+            memory: familiar::MemoryCache::new(),
         })
     }
 
@@ -243,15 +264,7 @@ impl Queries {
     /// Tag probabilities for a picture file outside the index, described on the fly
     /// with the collection's own feature extractor.
     pub fn suggest_file(&self, path: &Path) -> Result<Vec<f32>> {
-        let extractor = self.extractor.as_ref().ok_or(QueryError::NotTrained)?;
-        let raw = extractor
-            .features(path)
-            .map_err(|source| QueryError::Picture {
-                path: path.to_path_buf(),
-                source,
-            })?;
-        let raw = Array1::from(raw).insert_axis(Axis(0));
-        let x = self.trained.scale(raw.view())?;
+        let x = self.scaled_file(path)?;
         let p = self
             .trained
             .suggester
@@ -259,29 +272,137 @@ impl Queries {
         Ok(p.row(0).to_vec())
     }
 
+    /// [`Self::suggest_file`] and how far the picture lies from the tagged pictures.
+    pub fn judge_file(&self, path: &Path) -> Result<(Vec<f32>, Familiarity)> {
+        let x = self.scaled_file(path)?;
+        let p = self
+            .trained
+            .suggester
+            .suggest(x.view(), &self.neighbours, &[])?;
+        let familiarity = self.familiarity_of_features(x.row(0));
+
+        Ok((p.row(0).to_vec(), familiarity))
+    }
+
+    /// A picture file's features, scaled for the model (one row).
+    fn scaled_file(&self, path: &Path) -> Result<Array2<f32>> {
+        let extractor = self.extractor.as_ref().ok_or(QueryError::NotTrained)?;
+        let raw = extractor
+            .features(path)
+            .map_err(|error| QueryError::Picture {
+                path: path.to_path_buf(),
+                problem: picture_problem(path, &error, self.is_inside(path)),
+            })?;
+        let raw = Array1::from(raw).insert_axis(Axis(0));
+        Ok(self.trained.scale(raw.view())?)
+    }
+
+    /// Whether `path` lies inside the collection folder (it need not exist).
+    fn is_inside(&self, path: &Path) -> bool {
+        let absolute = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
+        let folder = std::fs::canonicalize(absolute.parent().unwrap_or(Path::new(".")))
+            .unwrap_or_else(|_| absolute.clone());
+        let root = std::fs::canonicalize(&self.root).unwrap_or_else(|_| self.root.clone());
+        folder.starts_with(root)
+    }
+
+    /// Whether every probability the model gives is calibrated, with or without tags as
+    /// evidence (`find` and `shift` multiply both kinds).
+    pub fn all_calibrated(&self) -> bool {
+        let suggester = &self.trained.suggester;
+        enough_to_calibrate(self.trained.history.pictures)
+            && suggester.calibration.is_some()
+            && suggester.completion.calibration.is_some()
+    }
+
+    /// Whether the probabilities given for a picture are calibrated on held-out pictures
+    /// (else they are scores, ordered like probabilities but not ones). An indexed picture
+    /// (`row`) carrying tags the model knows is judged by the blend for pictures with some
+    /// tags, which has a calibration of its own.
+    pub fn calibrated(&self, row: Option<usize>) -> bool {
+        let suggester = &self.trained.suggester;
+        if !enough_to_calibrate(self.trained.history.pictures) {
+            return false;
+        }
+        match row {
+            Some(r) if !self.evidence_columns(r).is_empty() => {
+                suggester.completion.calibration.is_some()
+            }
+            _ => suggester.calibration.is_some(),
+        }
+    }
+
     /// Probabilities as tag scores, best first; `carried` marks the picture's own tags.
     pub fn tag_scores(&self, probabilities: &[f32], carried: &[String]) -> Vec<TagScore> {
         tag_scores(&self.trained.vocabulary, probabilities, carried)
     }
 
-    /// Normalised tags as a 0/1 row in model columns; unknown tags are an error.
-    fn tag_row(&self, tags: &[String]) -> Result<Array2<f32>> {
+    /// The tags a person typed, as the model's tags, in the order typed, each once. An
+    /// argument is one tag when the model knows it as a whole ("Old Town" → old-town);
+    /// otherwise each word between its commas and spaces is one ("night harbour" and
+    /// "night,harbour" → night, harbour), as on the review page. Unknown tags are an error
+    /// naming each, with the known tag it is probably a slip for.
+    pub fn tags_asked(&self, typed: &[String]) -> Result<Vec<String>> {
+        let known = |text: &str| normalize_tag(text).filter(|t| self.columns.index_of(t).is_some());
+        let mut tags: Vec<String> = Vec::new();
+        let mut unknown = Vec::new();
+        for text in typed {
+            let words: Vec<&str> = match known(text) {
+                Some(_) => vec![text.as_str()],
+                None => text
+                    .split(|c: char| c == ',' || c.is_whitespace())
+                    .filter(|w| normalize_tag(w).is_some())
+                    .collect(),
+            };
+            for word in words {
+                match known(word) {
+                    Some(tag) if !tags.contains(&tag) => tags.push(tag),
+                    Some(_) => {}
+                    None => unknown.push(word.to_string()),
+                }
+            }
+        }
+        if !unknown.is_empty() {
+            let by_use = self.tags_by_use();
+            let unknown = unknown
+                .into_iter()
+                .map(|typed| UnknownTag {
+                    did_you_mean: closest_tag(&typed, by_use.iter().map(String::as_str))
+                        .map(str::to_string),
+                    typed,
+                })
+                .collect();
+            return Err(QueryError::UnknownTags { unknown });
+        }
         if tags.is_empty() {
             return Err(QueryError::NoTags);
         }
+        Ok(tags)
+    }
+
+    /// The model's tags, the most carried first (ties by tag).
+    fn tags_by_use(&self) -> Vec<String> {
+        let mut count: HashMap<&str, usize> = HashMap::new();
+        for tag in self.items.iter().flat_map(|i| &i.tags) {
+            *count.entry(tag).or_default() += 1;
+        }
+        let mut tags = self.trained.vocabulary.clone();
+        tags.sort_by(|a, b| {
+            let uses = |t: &String| count.get(t.as_str()).copied().unwrap_or(0);
+            uses(b).cmp(&uses(a)).then(a.cmp(b))
+        });
+        tags
+    }
+
+    /// Typed tags ([`Self::tags_asked`]) as a 0/1 row in model columns.
+    fn tag_row(&self, tags: &[String]) -> Result<Array2<f32>> {
         let mut row = Array2::zeros((1, self.columns.len()));
-        let mut unknown = Vec::new();
-        for tag in tags {
-            match normalize_tag(tag).and_then(|t| self.columns.index_of(&t)) {
-                Some(c) => row[[0, c]] = 1.0,
-                None => unknown.push(tag.clone()),
+        for tag in self.tags_asked(tags)? {
+            if let Some(c) = self.columns.index_of(&tag) {
+                row[[0, c]] = 1.0;
             }
         }
-        if unknown.is_empty() {
-            Ok(row)
-        } else {
-            Err(QueryError::UnknownTags { unknown })
-        }
+        Ok(row)
     }
 
     /// Where the tags sit among picture codes: the mean of their centroids (each the
@@ -358,7 +479,11 @@ impl Queries {
             self.code_of_tags(toward)?
         };
         let query = shifted_code(&start, &away_code, &toward_code);
-        let wanted: Vec<String> = toward.iter().filter_map(|t| normalize_tag(t)).collect();
+        let wanted = if toward.is_empty() {
+            Vec::new()
+        } else {
+            self.tags_asked(toward)?
+        };
         let columns_of = |tags: &[String]| -> Result<Vec<usize>> {
             if tags.is_empty() {
                 return Ok(Vec::new());
@@ -439,6 +564,34 @@ impl Queries {
             .into_iter()
             .map(|hit| (hit.row, hit.similarity))
             .collect())
+    }
+}
+
+/// Fewest tagged pictures a model must have learned from for its calibration to count:
+/// the calibration is fitted on a held-out seventh of them, and on fewer than 10 held-out
+/// pictures a stated 80 % says little about how often such a tag is right.
+pub const MIN_TAGGED_TO_CALIBRATE: usize = 70;
+
+/// Whether a model trained on `tagged` pictures had enough of them to calibrate.
+pub fn enough_to_calibrate(tagged: usize) -> bool {
+    tagged >= MIN_TAGGED_TO_CALIBRATE
+}
+
+/// Why a picture file could not be described, and what to do: the advice to move a file
+/// out of the collection is for files inside it only.
+fn picture_problem(path: &Path, error: &VisionError, inside: bool) -> String {
+    let name = path.display();
+    match error {
+        VisionError::Io { source, .. } => format!("cannot read {name}: {source}"),
+        VisionError::UnknownFormat { .. } if inside => format!(
+            "{name}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP); \
+             convert it or move it out of the collection"
+        ),
+        VisionError::UnknownFormat { .. } => format!(
+            "{name}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP); \
+             convert it to one of these"
+        ),
+        other => other.to_string(),
     }
 }
 
@@ -677,6 +830,30 @@ pub(crate) mod tests {
         assert!((fits_all(&[0, 2], &wanted, &[], &p) - 0.3).abs() < 1e-6);
         // a score outside [0, 1] (no calibration) never makes a product above 1
         assert_eq!(fits_all(&[0], &wanted[..1], &[], &[1.7]), 1.0);
+    }
+
+    #[test]
+    fn advice_to_move_a_file_out_is_for_files_inside_the_collection() {
+        let path = Path::new("notes.pdf");
+        let unknown = VisionError::UnknownFormat {
+            path: path.to_path_buf(),
+        };
+        let inside = picture_problem(path, &unknown, true);
+        let outside = picture_problem(path, &unknown, false);
+        assert!(inside.contains("move it out of the collection"), "{inside}");
+        assert!(!outside.contains("collection"), "{outside}");
+        assert!(
+            outside.starts_with("notes.pdf: not a picture format"),
+            "{outside}"
+        );
+        let missing = VisionError::Io {
+            path: path.to_path_buf(),
+            source: std::io::Error::new(std::io::ErrorKind::NotFound, "no such file"),
+        };
+        assert_eq!(
+            picture_problem(path, &missing, false),
+            "cannot read notes.pdf: no such file"
+        );
     }
 
     #[test]

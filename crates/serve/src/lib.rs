@@ -19,7 +19,7 @@
 //!   (`Origin`, or `Referer` when there is no `Origin`); requests naming another host, or
 //!   saying another site started them, are refused. `read_only` refuses every change.
 //! - **The same safe write as `tagweave apply`.** Accepted tags are planned, read back and
-//!   written atomically by `tagweave-writeback`, originals kept as `NAME.orig`; a sidecar
+//!   written atomically by `tagweave-writeback`, originals kept beside them with `.orig` added (`NAME.txt.orig`); a sidecar
 //!   that became a link since the scan is refused by name; the index is not rescanned (the
 //!   page says so), and the server holds the store, and so its lock, for as long as it runs.
 //! - **Slow clients lock no one out.** Each connection has a total deadline, the input

@@ -115,7 +115,7 @@ pub fn layout(page: &Page, read_only: bool, root: Option<&str>) -> String {
          {root}</header>\n\
          {banner}\n<main>\n{body}\n</main>\n\
          <footer>Suggestions are the model's guesses for you to judge. Nothing is written \
-         until you accept it; originals are kept as <code>NAME.orig</code>.</footer>\n\
+         until you accept it; the first version of each changed sidecar is kept beside it as <code>NAME.txt.orig</code> or <code>NAME.xmp.orig</code>.</footer>\n\
          </body>\n</html>\n",
         title = html(&page.title),
         root = root

@@ -26,7 +26,8 @@
 //!   sidecar that several pictures share is refused: its tags would reach them all.
 //! - **Safe writes.** A temporary file in the same folder (hidden, so the crawler never takes
 //!   a crash's leftover for anything), flushed, renamed over the sidecar, then the folder
-//!   flushed. Before the first change to a sidecar its original is kept as `NAME.orig`, never
+//!   flushed. Before the first change to a sidecar its original is kept as `NAME.txt.orig` (or
+//!   `NAME.xmp.orig`: the sidecar's own name with `.orig` added), never
 //!   overwritten later. A sidecar whose bytes changed since planning is refused, not
 //!   clobbered (checked when writing starts and again just before the rename).
 //!

@@ -233,7 +233,7 @@ pub fn parse_sheet(path: &Path, bytes: &[u8]) -> Result<Vec<SheetRow>, Writeback
         problem,
     };
     let csv_error = |e: csv::Error| {
-        let line = e.position().map_or(1, csv::Position::line);
+        let line = e.position().map_or(1, |p| line_of(bytes, p));
         let problem = match e.kind() {
             csv::ErrorKind::Utf8 { .. } => {
                 "is not UTF-8 text; save the sheet as \"CSV UTF-8\"".to_string()
@@ -252,7 +252,7 @@ pub fn parse_sheet(path: &Path, bytes: &[u8]) -> Result<Vec<SheetRow>, Writeback
     let mut rows = Vec::new();
     for record in reader.byte_records() {
         let record = record.map_err(csv_error)?;
-        let line = record.position().map_or(0, csv::Position::line);
+        let line = record.position().map_or(0, |p| line_of(bytes, p));
         let bad = |problem: String| line_error(line, problem);
         // Decoded here rather than by the csv reader, whose UTF-8 errors lack the line.
         let record = csv::StringRecord::from_byte_record(record)
@@ -379,6 +379,21 @@ fn unguard(cell: &str) -> &str {
         Some(rest) if rest.starts_with(FORMULA_STARTS) => rest,
         _ => cell,
     }
+}
+
+/// The line (counted from 1) on which the record at `position` starts. The csv reader's own
+/// line count is one short after CRLF line ends (the ends sheets are written with), and its
+/// byte offset can point at the end of the line before; so: the line of the first byte from
+/// there on that is not a line end.
+fn line_of(bytes: &[u8], position: &csv::Position) -> u64 {
+    let start = usize::try_from(position.byte())
+        .unwrap_or(usize::MAX)
+        .min(bytes.len());
+    let first = bytes[start..]
+        .iter()
+        .position(|&b| b != b'\r' && b != b'\n')
+        .map_or(bytes.len(), |i| start + i);
+    1 + bytes[..first].iter().filter(|&&b| b == b'\n').count() as u64
 }
 
 /// The delimiter whose first record names all five columns, and each column's position.
@@ -635,6 +650,25 @@ mod tests {
             .unwrap_err()
             .to_string()
             .contains("`high`"));
+    }
+
+    #[test]
+    fn errors_name_the_line_whatever_the_line_ends() {
+        // Line 4 of each: the sheet's own CRLF ends, bare LF, and a blank line before it.
+        for text in [
+            "picture,tag,probability,kind,accept\r\na.png,kelp,,suggested,y\r\n\
+             b.png,kelp,,suggested,\r\nc.png,kelp,,suggested,maybe\r\n",
+            "picture,tag,probability,kind,accept\na.png,kelp,,suggested,y\n\
+             b.png,kelp,,suggested,\nc.png,kelp,,suggested,maybe\n",
+            "picture,tag,probability,kind,accept\r\na.png,kelp,,suggested,y\r\n\
+             \r\nc.png,kelp,,suggested,maybe\r\n",
+        ] {
+            let message = parse(text).unwrap_err().to_string();
+            assert!(message.contains("line 4:"), "{message:?} for {text:?}");
+        }
+        let with_bom = "\u{feff}picture,tag,probability,kind,accept\r\na.png,kelp,,maybe,\r\n";
+        let message = parse(with_bom).unwrap_err().to_string();
+        assert!(message.contains("line 2:"), "{message}");
     }
 
     #[test]

@@ -101,7 +101,11 @@ fn text_append_keeps_the_original_once() {
 
     // A second change: the original stays the very first version.
     apply(root, &change("a.png", &["gull"], &["cliffs"]));
-    assert_eq!(read(&sidecar), "\nday\nOld Town\ngull\n");
+    assert_eq!(
+        read(&sidecar),
+        "day\nOld Town\ngull\n",
+        "no empty line left behind"
+    );
     assert_eq!(read(&original), "cliffs\nday\n");
     assert_eq!(
         tags_of(root, "a.png"),
@@ -284,7 +288,7 @@ fn text_and_xmp_beside_one_picture_stay_in_step() {
         read_sidecar(&xmp, SidecarKind::Xmp).unwrap(),
         ["gull", "dawn"]
     );
-    assert_eq!(read(&text), "\ndawn\n");
+    assert_eq!(read(&text), "dawn\n");
 }
 
 #[test]

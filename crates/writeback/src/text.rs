@@ -26,8 +26,9 @@ pub(crate) fn text_problem(tag: &str) -> Option<&'static str> {
 /// tags or a comment too keeps those), then one line per tag of `add`, in the file's own
 /// line-ending style, after a final line end if the file lacked one.
 ///
-/// A dropped first line leaves an empty line behind, for the same reason as
-/// [`NEW_FILE_HEADER`]: the file never starts with what was its second line.
+/// A dropped line leaves nothing behind, not even an empty line. Should a dropped first
+/// line leave the file starting with text that could pass for a picture signature (a tag
+/// "BMX" starts like a BMP file), the comment of [`NEW_FILE_HEADER`] goes first instead.
 pub(crate) fn edit_text(before: &str, add: &[String], remove: &HashSet<String>) -> String {
     let (bom, body) = match before.strip_prefix('\u{feff}') {
         Some(rest) => ("\u{feff}", rest),
@@ -37,6 +38,7 @@ pub(crate) fn edit_text(before: &str, add: &[String], remove: &HashSet<String>) 
     let mut out =
         String::with_capacity(before.len() + add.iter().map(|t| t.len() + 2).sum::<usize>());
     out.push_str(bom);
+    let mut dropped_first = false;
     for (index, line) in body.split_inclusive('\n').enumerate() {
         let (content, ending) = split_ending(line);
         match strip_tags(content, remove) {
@@ -45,9 +47,12 @@ pub(crate) fn edit_text(before: &str, add: &[String], remove: &HashSet<String>) 
                 out.push_str(&content);
                 out.push_str(ending);
             }
-            Kept::Nothing if index == 0 => out.push_str(ending),
-            Kept::Nothing => {}
+            Kept::Nothing => dropped_first |= index == 0,
         }
+    }
+    if dropped_first && bom.is_empty() && starts_like_a_picture(&out) {
+        let comment = NEW_FILE_HEADER.trim_end();
+        out.insert_str(0, &format!("{comment}{newline}"));
     }
     if !add.is_empty() {
         if out.len() > bom.len() && !out.ends_with('\n') {
@@ -59,6 +64,14 @@ pub(crate) fn edit_text(before: &str, add: &[String], remove: &HashSet<String>) 
         }
     }
     out
+}
+
+/// Whether text starts with the first bytes of a picture signature the crawler sniffs
+/// (the ones text can hold: BMP `BM`, GIF `GIF8`, RIFF/WebP `RIFF`, TIFF `II*` / `MM`).
+fn starts_like_a_picture(text: &str) -> bool {
+    ["BM", "GIF8", "RIFF", "II*", "MM"]
+        .iter()
+        .any(|signature| text.starts_with(signature))
 }
 
 /// `\r\n` when the first line ends so, else `\n`.
@@ -166,8 +179,23 @@ mod tests {
     }
 
     #[test]
-    fn removing_the_first_line_leaves_it_empty() {
-        assert_eq!(edit_text("gone\nBMX\n", &[], &set(&["gone"])), "\nBMX\n");
+    fn removing_the_first_line_leaves_no_empty_line() {
+        assert_eq!(edit_text("gone\nday\n", &[], &set(&["gone"])), "day\n");
+        assert_eq!(edit_text("a\ngone\nb\n", &[], &set(&["gone"])), "a\nb\n");
+        assert_eq!(
+            edit_text("gone\r\nday\r\n", &[], &set(&["gone"])),
+            "day\r\n"
+        );
+        assert_eq!(edit_text("gone\n", &[], &set(&["gone"])), "");
+        // a file never starts with what could pass for a picture signature
+        assert_eq!(
+            edit_text("gone\nBMX\n", &[], &set(&["gone"])),
+            "# tags, one per line\nBMX\n"
+        );
+        assert_eq!(
+            edit_text("gone\r\nGIF89a\r\n", &[], &set(&["gone"])),
+            "# tags, one per line\r\nGIF89a\r\n"
+        );
         assert_eq!(
             edit_text("gone # why\nx\n", &[], &set(&["gone"])),
             "# why\nx\n"
