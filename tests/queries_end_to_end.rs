@@ -938,3 +938,140 @@ fn apply_names_new_tags_and_speaks_of_originals_only_when_one_was_kept() {
     assert!(folder.join(sidecar.with_file_name(&kept)).is_file());
     assert!(!said.contains("new tag `"), "{said}");
 }
+
+// `to-tag` on the demo archive: only untagged pictures, each farther-first pick no less
+// similar to what is covered than the one before (the k-center greedy order: Gonzalez 1985),
+// tags typed into its sheet reach the sidecar through `apply`, and the picture then leaves
+// the list.
+#[test]
+fn to_tag_lists_untagged_pictures_and_its_sheet_takes_typed_tags() {
+    let _serial = one_at_a_time();
+    let copy = prepared_copy();
+    let folder = copy.path();
+    let truth = truth_by_file();
+    let listed = succeeded(&tagweave(
+        folder,
+        &[
+            "to-tag",
+            "--json",
+            "--count",
+            "6",
+            "--way",
+            "unlike-tagged",
+            "--sheet",
+            "t.csv",
+        ],
+    ));
+    assert_eq!(listed["trained"], true);
+    assert_eq!(listed["way"], "unlike-tagged");
+    assert_eq!(listed["untagged"], 41);
+    let pictures = listed["pictures"].as_array().unwrap();
+    assert_eq!(pictures.len(), 6);
+    let mut last = f64::NEG_INFINITY;
+    for p in pictures {
+        let file = p["picture"].as_str().unwrap();
+        assert!(
+            truth[file].written_tags.is_empty(),
+            "{file} carries tags, yet was listed"
+        );
+        assert_eq!(p["why"], "unlike-tagged");
+        let nearest = p["nearest_similarity"].as_f64().unwrap();
+        assert!(
+            nearest < tagweave_suggest::NEAR_DUPLICATE as f64,
+            "{nearest}"
+        );
+        assert!(nearest >= last - 1e-6, "{nearest} after {last}");
+        last = nearest;
+    }
+
+    let unsure = succeeded(&tagweave(
+        folder,
+        &[
+            "to-tag",
+            "--json",
+            "--count",
+            "3",
+            "--way",
+            "least-sure",
+            "--sheet",
+            "u.csv",
+        ],
+    ));
+    assert_eq!(unsure["way"], "least-sure");
+    let vocabulary = stdout_of(&tagweave(folder, &["tags"]));
+    for p in unsure["pictures"].as_array().unwrap() {
+        assert_eq!(p["why"], "model-unsure");
+        for tag in p["likeliest"].as_array().unwrap() {
+            assert!(vocabulary.contains(tag.as_str().unwrap()), "{tag}");
+        }
+    }
+
+    // The person types two tags for the first picture and nothing for the others.
+    let sheet = folder.join("t.csv");
+    let text = std::fs::read_to_string(&sheet).unwrap();
+    let first = pictures[0]["picture"].as_str().unwrap();
+    let typed = text.replacen(
+        &format!("{first},,,to-tag,"),
+        &format!("{first},\"harbour, night\",,to-tag,"),
+        1,
+    );
+    assert_ne!(
+        typed, text,
+        "the sheet lists {first} as a to-tag row:\n{text}"
+    );
+    std::fs::write(&sheet, typed).unwrap();
+    succeeded(&tagweave(folder, &["apply", "t.csv", "--json"]));
+    let sidecar = folder.join(first).with_extension("txt");
+    let written = std::fs::read_to_string(&sidecar).unwrap();
+    assert!(
+        written.contains("harbour") && written.contains("night"),
+        "{written}"
+    );
+
+    succeeded(&tagweave(folder, &["scan", ".", "--json"]));
+    let again = succeeded(&tagweave(
+        folder,
+        &[
+            "to-tag",
+            "--json",
+            "--count",
+            "6",
+            "--way",
+            "unlike-tagged",
+            "--sheet",
+            "t.csv",
+        ],
+    ));
+    assert_eq!(again["untagged"], 40);
+    let again: Vec<&str> = again["pictures"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["picture"].as_str().unwrap())
+        .collect();
+    assert!(!again.contains(&first), "{first} is tagged now: {again:?}");
+}
+
+// Before anything is tagged or trained, the list is the most varied pictures, said plainly.
+#[test]
+fn to_tag_works_before_any_tag_or_training() {
+    let temp = tempfile::tempdir().unwrap();
+    for (i, shade) in [(0u8, 20u8), (1, 120), (2, 240)] {
+        image::RgbImage::from_fn(32, 24, |x, y| {
+            image::Rgb([shade, (x * 7) as u8 ^ shade, (y * 9) as u8])
+        })
+        .save(temp.path().join(format!("p{i}.png")))
+        .unwrap();
+    }
+    succeeded(&tagweave(temp.path(), &["scan", ".", "--json"]));
+    let listed = succeeded(&tagweave(
+        temp.path(),
+        &["to-tag", "--json", "--count", "10"],
+    ));
+    assert_eq!(listed["trained"], false);
+    assert_eq!(listed["way"], "unlike-tagged");
+    assert_eq!(listed["pictures"].as_array().unwrap().len(), 3);
+    assert_eq!(listed["pictures"][0]["nearest_similarity"], Value::Null);
+    let text = stdout_of(&tagweave(temp.path(), &["to-tag", "--count", "1"]));
+    assert!(text.contains("no trained model yet"), "{text}");
+}

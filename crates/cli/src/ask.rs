@@ -457,14 +457,14 @@ fn describe_mix(mix: &EvidenceMix) -> String {
 /// A review sheet as written: where, how many rows, how many of a person's decisions
 /// already in it were kept.
 #[derive(Serialize)]
-struct WrittenSheet {
-    path: PathBuf,
-    rows: usize,
-    kept_decisions: usize,
+pub(crate) struct WrittenSheet {
+    pub(crate) path: PathBuf,
+    pub(crate) rows: usize,
+    pub(crate) kept_decisions: usize,
 }
 
 /// Writes the review sheet, keeping every decision already typed into one at that path.
-fn write_sheet_out(path: &Path, rows: &[SheetRow]) -> anyhow::Result<WrittenSheet> {
+pub(crate) fn write_sheet_out(path: &Path, rows: &[SheetRow]) -> anyhow::Result<WrittenSheet> {
     let written = write_sheet_keeping_decisions(path, rows)
         .with_context(|| format!("cannot write the review sheet {}", path.display()))?;
     Ok(WrittenSheet {

@@ -28,6 +28,7 @@ mod scan;
 mod serve;
 mod store_path;
 mod tags;
+mod to_tag;
 mod train;
 
 use std::path::PathBuf;
@@ -64,6 +65,9 @@ enum Command {
     Shift(ask::ShiftArgs),
     /// Tagged pictures whose tags do not fit them, worst first, and a review sheet.
     Audit(ask::AuditArgs),
+    /// Untagged pictures worth tagging by hand next, with a reason each, and a sheet to
+    /// type their tags into.
+    ToTag(to_tag::ToTagArgs),
     /// Write the accepted rows of a filled-in review sheet into the sidecars.
     Apply(apply::ApplyArgs),
     /// Run the whole job on the bundled invented archive (demo-collection/).
@@ -85,6 +89,7 @@ impl Command {
             Command::Shift(a) => a.common.json,
             Command::Audit(a) => a.json,
             Command::Apply(a) => a.json,
+            Command::ToTag(a) => a.json,
             Command::Demo(_) | Command::Serve(_) => false,
         }
     }
@@ -112,6 +117,7 @@ fn main() -> ExitCode {
         Command::Shift(args) => ask::shift(&args),
         Command::Audit(args) => ask::audit(&args),
         Command::Apply(args) => apply::run(&args),
+        Command::ToTag(args) => to_tag::run(&args),
         Command::Eval(args) => eval::run(&args),
         Command::Demo(args) => demo::run(&args),
         Command::Serve(args) => serve::run(&args),

@@ -189,6 +189,19 @@ pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped
         sidecars,
         tags: dedup_normalized(tags),
     };
+    for tag in &item.tags {
+        if let Some(c) = crate::misleading_char(tag) {
+            notes.push(Note {
+                path: candidate.path.clone(),
+                message: format!(
+                    "tag `{}` holds U+{:04X}, a character that makes text show as something \
+                     else (or none at all); check the sidecar",
+                    tag.escape_debug(),
+                    c as u32
+                ),
+            });
+        }
+    }
     Ok(ReadItem { item, notes })
 }
 
@@ -232,6 +245,21 @@ mod tests {
         assert_eq!(item_id(""), "af1349b9f5f9a1a6");
         assert_eq!(item_id("a/b.jpg").len(), 16);
         assert_ne!(item_id("a/b.jpg"), item_id("a/c.jpg"));
+    }
+
+    // A right-to-left override turns `gpj.exe` into what displays as "exe.jpg": the tag is
+    // read (nothing a person wrote is dropped) and the scan is told, naming the character.
+    #[test]
+    fn a_tag_that_would_show_as_something_else_is_reported() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        put(root, "pic.png", PNG);
+        put(root, "pic.txt", "harbour\n\u{202E}gpj.exe\n".as_bytes());
+        let read = read_item(root, &only_candidate(root)).unwrap();
+        assert_eq!(read.item.tags.len(), 2);
+        let said: Vec<&str> = read.notes.iter().map(|n| n.message.as_str()).collect();
+        assert_eq!(said.len(), 1, "{said:?}");
+        assert!(said[0].contains("U+202E"), "{said:?}");
     }
 
     #[test]

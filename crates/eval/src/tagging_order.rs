@@ -129,9 +129,10 @@ pub struct TaggingProgress<'a> {
 }
 
 /// Runs the simulation for random picking and each of `strategies`, refitting a fresh
-/// method from `make_method` after every batch. `tags[i]` (normalised, every picture
-/// tagged) and `content_keys[i]` belong to feature row `i`; a picture with the same content
-/// as a tagged one is never chosen. Deterministic for the same inputs and seed.
+/// method from `make_method` after every batch. `tags[i]` (normalised) and `content_keys[i]`
+/// belong to feature row `i`; only tagged pictures take part (an untagged one has no truth
+/// to hide); a picture with the same content as a tagged one is never chosen.
+/// Deterministic for the same inputs and seed.
 pub fn simulate_tagging_order(
     features: ArrayView2<f32>,
     tags: &[Vec<String>],
@@ -142,6 +143,12 @@ pub fn simulate_tagging_order(
     on_progress: &mut dyn FnMut(TaggingProgress),
 ) -> Result<TaggingOrder, EvalError> {
     check_collection(features, tags, content_keys)?;
+    let rows: Vec<usize> = (0..tags.len()).filter(|&i| !tags[i].is_empty()).collect();
+    let features = features.select(Axis(0), &rows);
+    let features = features.view();
+    let tags: Vec<Vec<String>> = rows.iter().map(|&i| tags[i].clone()).collect();
+    let tags = tags.as_slice();
+    let content_keys: Vec<&String> = rows.iter().map(|&i| &content_keys[i]).collect();
     let n = features.nrows();
     let batches = options.batches(n);
     if batches.is_empty() {
@@ -151,7 +158,7 @@ pub fn simulate_tagging_order(
         });
     }
     let vocabulary = TagColumns::from_items(tags.iter().map(Vec::as_slice));
-    let groups = group_ids(content_keys);
+    let groups = group_ids(&content_keys);
     let mut order: Vec<usize> = (0..n).collect();
     order.shuffle(&mut ChaCha8Rng::seed_from_u64(options.seed ^ START_SEED));
     let simulation = Simulation {
@@ -399,6 +406,30 @@ mod tests {
             (lrap - (3.0 * 1.0 + 3.0 * 0.5) / 6.0).abs() < 1e-12,
             "{lrap}"
         );
+    }
+
+    // Untagged pictures take no part: with them added the curves are the same.
+    #[test]
+    fn untagged_pictures_are_left_out_of_the_simulation() {
+        let (x, tags, keys) = small_set(120);
+        let options = TaggingOrderOptions {
+            seed: 5,
+            start: 10,
+            batch: 10,
+            until: 30,
+        };
+        let prior = || Box::new(PriorScorer::default()) as Box<dyn TagScorer>;
+        let run = |x: ArrayView2<f32>, tags: &[Vec<String>], keys: &[String]| {
+            simulate_tagging_order(x, tags, keys, &options, &[], &prior, &mut |_| {}).unwrap()
+        };
+        let plain = run(x.view(), &tags, &keys);
+        let mut more_x = x.clone();
+        more_x.push_row(x.row(0)).unwrap();
+        let mut more_tags = tags.clone();
+        more_tags.push(Vec::new());
+        let mut more_keys = keys.clone();
+        more_keys.push("untagged".into());
+        assert_eq!(run(more_x.view(), &more_tags, &more_keys), plain);
     }
 
     #[test]

@@ -19,8 +19,10 @@ use tagweave_vision::{FeatureExtractor, VisionError};
 
 mod audit;
 mod familiar;
+mod to_tag;
 pub use audit::{Audit, Dispute, DisputedTag, EvidenceMix};
 pub use familiar::{Familiarity, USUAL_SHARE};
+pub use to_tag::{pictures_to_tag, PictureToTag, ToTagList, ToTagReason};
 
 #[derive(Debug, thiserror::Error)]
 pub enum QueryError {

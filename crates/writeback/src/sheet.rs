@@ -29,6 +29,10 @@ pub enum RowKind {
     Suggested,
     /// The picture carries the tag but the model doubts it.
     Disputed,
+    /// A picture proposed for tagging by hand: the person types its tags into the `tag`
+    /// cell (several separated by `,` or `;`); a typed tag is the decision, `accept` is not
+    /// needed. Left empty, the row changes nothing.
+    ToTag,
 }
 
 impl RowKind {
@@ -37,6 +41,7 @@ impl RowKind {
         match self {
             RowKind::Suggested => "suggested",
             RowKind::Disputed => "disputed",
+            RowKind::ToTag => "to-tag",
         }
     }
 }
@@ -269,21 +274,45 @@ pub fn parse_sheet(path: &Path, bytes: &[u8]) -> Result<Vec<SheetRow>, Writeback
             ));
         }
         let tag = unguard(cell(1).trim()).trim().to_string();
+        let probability = parse_probability(cell(2)).map_err(&bad)?;
+        let kind = match cell(3).trim().to_lowercase().as_str() {
+            "suggested" => RowKind::Suggested,
+            "disputed" => RowKind::Disputed,
+            "to-tag" => RowKind::ToTag,
+            other => {
+                return Err(bad(format!(
+                    "`kind` is `{other}`; allowed values: suggested, disputed, to-tag"
+                )))
+            }
+        };
+        if let Some(c) = tagweave_collection::misleading_char(&tag) {
+            return Err(bad(format!(
+                "the `tag` cell holds U+{:04X}, a character that makes text show as something \
+                 else (or none at all); retype the tag",
+                c as u32
+            )));
+        }
+        if kind == RowKind::ToTag {
+            // Each typed tag is a row of its own, decided: the person wrote it.
+            rows.extend(
+                tag.split([',', ';'])
+                    .map(str::trim)
+                    .filter(|t| normalize_tag(t).is_some())
+                    .map(|t| SheetRow {
+                        picture: picture.clone(),
+                        tag: t.to_string(),
+                        probability: None,
+                        kind,
+                        decision: Decision::Accept,
+                    }),
+            );
+            continue;
+        }
         if normalize_tag(&tag).is_none() {
             return Err(bad(
                 "the `tag` cell is empty; fill it in or delete the row".into()
             ));
         }
-        let probability = parse_probability(cell(2)).map_err(&bad)?;
-        let kind = match cell(3).trim().to_lowercase().as_str() {
-            "suggested" => RowKind::Suggested,
-            "disputed" => RowKind::Disputed,
-            other => {
-                return Err(bad(format!(
-                    "`kind` is `{other}`; allowed values: suggested, disputed"
-                )))
-            }
-        };
         let decision = parse_decision(cell(4), kind).map_err(&bad)?;
         rows.push(SheetRow {
             picture,
@@ -310,6 +339,9 @@ pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, Writeback
     }
     let mut pictures: BTreeMap<&str, BTreeMap<String, Wish>> = BTreeMap::new();
     for row in rows {
+        if row.kind == RowKind::ToTag && normalize_tag(&row.tag).is_none() {
+            continue; // a picture proposed for tagging that nobody has tagged yet
+        }
         let Some(normal) = normalize_tag(&row.tag) else {
             return Err(WritebackError::SheetRow {
                 picture: row.picture.clone(),
@@ -325,7 +357,7 @@ pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, Writeback
                 ..Wish::default()
             });
         match (row.kind, row.decision) {
-            (RowKind::Suggested, Decision::Accept) => wish.add = true,
+            (RowKind::Suggested | RowKind::ToTag, Decision::Accept) => wish.add = true,
             (RowKind::Disputed, Decision::Accept) => wish.keep = true,
             (RowKind::Disputed, Decision::Remove) => wish.remove = true,
             (RowKind::Suggested, Decision::Remove) => {
@@ -487,6 +519,52 @@ fn parse_decision(cell: &str, kind: RowKind) -> Result<Decision, String> {
 mod tests {
     use super::*;
     use proptest::prelude::*;
+
+    #[test]
+    fn a_tag_that_would_show_as_something_else_is_refused_with_its_line() {
+        let text = "picture,tag,probability,kind,accept\na.jpg,sea,,suggested,y\nb.jpg,\u{202E}gpj.exe,,suggested,y\n";
+        let e = parse_sheet(Path::new("s.csv"), text.as_bytes())
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("line 3") && e.contains("U+202E"), "{e}");
+    }
+
+    // A picture proposed for tagging by hand: the person typed two tags into one cell of
+    // one row and left another row empty. Separators `,` and `;` as the row kind documents.
+    #[test]
+    fn tags_typed_into_a_to_tag_row_are_added_and_an_empty_row_changes_nothing() {
+        let text = "picture,tag,probability,kind,accept\r\n\
+                    a.jpg,\"Harbour, night ;dusk\",,to-tag,\r\n\
+                    b.jpg,,,to-tag,\r\n";
+        let rows = parse_sheet(Path::new("s.csv"), text.as_bytes()).unwrap();
+        let typed: Vec<(&str, &str)> = rows
+            .iter()
+            .map(|r| (r.picture.as_str(), r.tag.as_str()))
+            .collect();
+        assert_eq!(
+            typed,
+            [("a.jpg", "Harbour"), ("a.jpg", "night"), ("a.jpg", "dusk")]
+        );
+        assert!(rows
+            .iter()
+            .all(|r| r.kind == RowKind::ToTag && r.decision == Decision::Accept));
+        let changes = changes_from_sheet(&rows).unwrap();
+        assert_eq!(changes.len(), 1);
+        assert_eq!(changes[0].add, ["dusk", "Harbour", "night"]);
+        assert!(changes[0].remove.is_empty());
+        // Written back (an empty to-tag row included) and read again, nothing is lost.
+        let mut written = rows.clone();
+        written.push(SheetRow {
+            picture: "b.jpg".into(),
+            tag: String::new(),
+            probability: None,
+            kind: RowKind::ToTag,
+            decision: Decision::Undecided,
+        });
+        let bytes = render_sheet(&written).unwrap();
+        assert_eq!(parse_sheet(Path::new("s.csv"), &bytes).unwrap(), rows);
+        assert_eq!(changes_from_sheet(&written).unwrap(), changes);
+    }
 
     // A person typed `remove` into row 2 and `y` into a row the new run no longer lists:
     // both survive a fresh sheet, the first on the new row (with its new probability), the
