@@ -939,6 +939,15 @@ fn apply_names_new_tags_and_speaks_of_originals_only_when_one_was_kept() {
     assert!(!said.contains("new tag `"), "{said}");
 }
 
+/// `to-tag --json` for six pictures, farthest first, into the sheet `t.csv`.
+fn farthest_first_six(folder: &Path) -> Value {
+    let way = ["--way", "unlike-tagged", "--sheet", "t.csv"];
+    succeeded(&tagweave(
+        folder,
+        &[&["to-tag", "--json", "--count", "6"][..], &way].concat(),
+    ))
+}
+
 // `to-tag` on the demo archive: only untagged pictures, each farther-first pick no less
 // similar to what is covered than the one before (the k-center greedy order: Gonzalez 1985),
 // tags typed into its sheet reach the sidecar through `apply`, and the picture then leaves
@@ -949,19 +958,7 @@ fn to_tag_lists_untagged_pictures_and_its_sheet_takes_typed_tags() {
     let copy = prepared_copy();
     let folder = copy.path();
     let truth = truth_by_file();
-    let listed = succeeded(&tagweave(
-        folder,
-        &[
-            "to-tag",
-            "--json",
-            "--count",
-            "6",
-            "--way",
-            "unlike-tagged",
-            "--sheet",
-            "t.csv",
-        ],
-    ));
+    let listed = farthest_first_six(folder);
     assert_eq!(listed["trained"], true);
     assert_eq!(listed["way"], "unlike-tagged");
     assert_eq!(listed["untagged"], 41);
@@ -1029,19 +1026,7 @@ fn to_tag_lists_untagged_pictures_and_its_sheet_takes_typed_tags() {
     );
 
     succeeded(&tagweave(folder, &["scan", ".", "--json"]));
-    let again = succeeded(&tagweave(
-        folder,
-        &[
-            "to-tag",
-            "--json",
-            "--count",
-            "6",
-            "--way",
-            "unlike-tagged",
-            "--sheet",
-            "t.csv",
-        ],
-    ));
+    let again = farthest_first_six(folder);
     assert_eq!(again["untagged"], 40);
     let again: Vec<&str> = again["pictures"]
         .as_array()

@@ -44,22 +44,25 @@ fn screenshot_dir() -> PathBuf {
     dir
 }
 
+/// Headless chromium without network chatter, at a fixed window size.
+const QUIET_HEADLESS: [&str; 9] = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--hide-scrollbars",
+    "--window-size=1280,1000",
+];
+
 /// Runs headless chromium once with a fresh profile, no network chatter, and a time limit;
 /// returns what it printed.
 fn run_chromium(browser: &str, args: &[String]) -> String {
     let profile = tempfile::tempdir().unwrap();
     let mut child = Command::new(browser)
-        .args([
-            "--headless",
-            "--no-sandbox",
-            "--disable-gpu",
-            "--no-first-run",
-            "--disable-background-networking",
-            "--disable-component-update",
-            "--disable-sync",
-            "--hide-scrollbars",
-            "--window-size=1280,1000",
-        ])
+        .args(QUIET_HEADLESS)
         .arg(format!("--user-data-dir={}", profile.path().display()))
         .args(args)
         .stdout(Stdio::piped())
@@ -205,18 +208,8 @@ impl Browser {
         let profile = tempfile::tempdir().unwrap();
         let mut child = Chromium(
             Command::new(browser)
-                .args([
-                    "--headless",
-                    "--no-sandbox",
-                    "--disable-gpu",
-                    "--no-first-run",
-                    "--disable-background-networking",
-                    "--disable-component-update",
-                    "--disable-sync",
-                    "--hide-scrollbars",
-                    "--window-size=1280,1000",
-                    "--remote-debugging-port=0",
-                ])
+                .args(QUIET_HEADLESS)
+                .arg("--remote-debugging-port=0")
                 .arg(format!("--user-data-dir={}", profile.path().display()))
                 .arg("about:blank")
                 .stdout(Stdio::null())
