@@ -597,6 +597,12 @@ impl App {
                 })
                 .collect(),
             suggestions,
+            calibrated: self.queries.calibrated(Some(row)),
+            unlike_collection: self
+                .queries
+                .familiarity_of_rows(&[row])
+                .first()
+                .is_some_and(|f| f.unlike_collection),
             vocabulary,
             token: self.writable_token(),
             changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),
@@ -673,6 +679,7 @@ impl App {
             page,
             pages: pages_total,
             entries,
+            calibrated: self.queries.all_calibrated(),
             token: self.writable_token(),
         };
         self.page(200, pages::review(&content))

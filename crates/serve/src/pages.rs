@@ -49,6 +49,11 @@ pub struct PictureContent<'a> {
     /// carrying it.
     pub tags: Vec<(String, bool, Option<f32>)>,
     pub suggestions: Vec<(String, f32)>,
+    /// Whether the suggestions' numbers are calibrated probabilities (else bare scores).
+    pub calibrated: bool,
+    /// The picture is less like any tagged picture than the tagged ones are like each other:
+    /// its suggestions are guesses.
+    pub unlike_collection: bool,
     pub vocabulary: &'a [String],
     pub token: Option<&'a str>,
     pub changed: bool,
@@ -71,6 +76,8 @@ pub struct QueueContent<'a> {
     pub page: usize,
     pub pages: usize,
     pub entries: Vec<QueueEntry>,
+    /// Whether proposed tags' numbers are calibrated probabilities (else bare scores).
+    pub calibrated: bool,
     pub token: Option<&'a str>,
 }
 
@@ -317,16 +324,13 @@ fn button_form(
     label: &str,
     back: &str,
 ) -> String {
-    let (path, class) = match action {
-        "set-aside" => ("set-aside", "quiet"),
-        _ => (
-            "tags",
-            if field == "remove" {
-                "remove"
-            } else {
-                "accept"
-            },
-        ),
+    // Keeping a doubted tag and removing it are equal choices, drawn alike; rejecting a
+    // proposal is the quiet default.
+    let (path, class) = match (action, label) {
+        ("set-aside", "keep") => ("set-aside", "choice"),
+        ("set-aside", _) => ("set-aside", "quiet"),
+        _ if field == "remove" => ("tags", "choice"),
+        _ => ("tags", "accept"),
     };
     format!(
         "<form method=\"post\" action=\"/picture/{id}/{path}\" class=\"inline\" \
@@ -341,6 +345,20 @@ fn button_form(
 fn percent(p: f32) -> String {
     format!("{:.0} %", p * 100.0)
 }
+
+/// A model's number as a person should read it: a percentage only when it is a calibrated
+/// probability, else the bare score.
+fn strength(p: f32, calibrated: bool) -> String {
+    if calibrated {
+        percent(p)
+    } else {
+        format!("{p:.2}")
+    }
+}
+
+/// Said under numbers that are not calibrated probabilities.
+const SCORES_NOTE: &str = "<p class=\"hint\">Scores, not probabilities: higher is likelier, \
+     but 0.90 does not mean 9 times in 10 (too few tagged pictures to calibrate).</p>";
 
 pub fn picture(content: &PictureContent) -> Page {
     let id = &content.id;
@@ -391,6 +409,13 @@ pub fn picture(content: &PictureContent) -> Page {
     if content.changed {
         let _ = write!(body, "<p class=\"written\">{SCAN_NOTE}</p>");
     }
+    if content.unlike_collection {
+        body.push_str(
+            "<p class=\"problem\">Unlike this collection: this picture is less like any tagged \
+             picture than the tagged pictures are like each other, so the suggestions below are \
+             guesses.</p>",
+        );
+    }
     body.push_str("<h2>Suggested</h2><ul class=\"suggestions\">");
     if content.suggestions.is_empty() {
         body.push_str("<li class=\"empty\">nothing more to suggest</li>");
@@ -408,10 +433,13 @@ pub fn picture(content: &PictureContent) -> Page {
             "<li class=\"suggestion\" data-tag=\"{t}\"><span class=\"tagname\">{t}</span>\
              <meter min=\"0\" max=\"1\" value=\"{p:.3}\"></meter><span class=\"prob\">{pc}</span>{buttons}</li>",
             t = html(tag),
-            pc = percent(*p),
+            pc = strength(*p, content.calibrated),
         );
     }
     body.push_str("</ul>");
+    if !content.calibrated && !content.suggestions.is_empty() {
+        body.push_str(SCORES_NOTE);
+    }
     if let Some(token) = content.token {
         let _ = write!(
             body,
@@ -439,6 +467,9 @@ pub fn review(content: &QueueContent) -> Page {
         flagged = content.flagged,
         judged = content.judged,
     );
+    if !content.calibrated {
+        body.push_str(SCORES_NOTE);
+    }
     if content.entries.is_empty() {
         body.push_str("<p class=\"empty\">Nothing to review.</p>");
     }
@@ -480,9 +511,10 @@ pub fn review(content: &QueueContent) -> Page {
                 .unwrap_or_default();
             let _ = write!(
                 proposed,
-                "<li data-tag=\"{t}\"><span class=\"tagname\">{t}</span><span class=\"prob\">{pc}</span>{buttons}</li>",
+                "<li data-tag=\"{t}\"><span class=\"tagname\">{t}</span>\
+                 <meter min=\"0\" max=\"1\" value=\"{p:.3}\"></meter><span class=\"prob\">{pc}</span>{buttons}</li>",
                 t = html(tag),
-                pc = percent(*p),
+                pc = strength(*p, content.calibrated),
             );
         }
         if doubtful.is_empty() {
@@ -626,6 +658,8 @@ mod tests {
             sidecars: vec![format!("odd/{hostile}.txt")],
             tags: vec![(hostile.into(), true, Some(0.2))],
             suggestions: vec![(format!("\"{hostile}"), 0.7)],
+            calibrated: true,
+            unlike_collection: false,
             vocabulary: &[],
             token: Some("tok\"en"),
             changed: true,
@@ -650,6 +684,8 @@ mod tests {
             sidecars: vec![],
             tags: vec![("snow".into(), false, None)],
             suggestions: vec![("night".into(), 0.9)],
+            calibrated: true,
+            unlike_collection: false,
             vocabulary: &[],
             token: None,
             changed: false,
@@ -664,5 +700,65 @@ mod tests {
         let page = layout(&picture(&content), false, Some("/x"));
         assert!(page.contains("method=\"post\""));
         assert!(page.contains("name=\"token\" value=\"abc\""));
+    }
+
+    // Without a calibration a number is a score, never a percentage; a picture unlike the
+    // collection is said to get guesses; keeping and removing a doubted tag look alike.
+    #[test]
+    fn numbers_are_shown_as_honestly_as_the_model_allows() {
+        let content = PictureContent {
+            id: "0123456789abcdef".into(),
+            picture: "a.jpg".into(),
+            sidecars: vec![],
+            tags: vec![],
+            suggestions: vec![("night".into(), 0.834)],
+            calibrated: false,
+            unlike_collection: true,
+            vocabulary: &[],
+            token: None,
+            changed: false,
+        };
+        let page = picture(&content).body;
+        assert!(page.contains(">0.83<") && !page.contains('%'), "{page}");
+        assert!(page.contains("Scores, not probabilities"), "{page}");
+        assert!(page.contains("Unlike this collection"), "{page}");
+        let sure = picture(&PictureContent {
+            calibrated: true,
+            unlike_collection: false,
+            ..content
+        })
+        .body;
+        assert!(sure.contains(">83 %<"), "{sure}");
+        assert!(
+            !sure.contains("Scores, not") && !sure.contains("Unlike this"),
+            "{sure}"
+        );
+
+        let queue = QueueContent {
+            judged: 3,
+            flagged: 1,
+            page: 1,
+            pages: 1,
+            entries: vec![QueueEntry {
+                rank: 1,
+                card: card("b.jpg"),
+                doubtful: vec![("snow".into(), 0.1, 0.2)],
+                proposed: vec![("sea".into(), 0.41)],
+                changed: false,
+            }],
+            calibrated: false,
+            token: Some("t"),
+        };
+        let page = review(&queue).body;
+        let class_of = |label: &str| {
+            let at = page.find(&format!(">{label}</button>")).unwrap();
+            let start = page[..at].rfind("class=\"").unwrap() + 7;
+            page[start..at].split('"').next().unwrap().to_string()
+        };
+        assert_eq!(class_of("keep"), class_of("remove"));
+        assert!(
+            page.contains(">0.41<") && page.contains("Scores, not"),
+            "{page}"
+        );
     }
 }
