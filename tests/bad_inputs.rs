@@ -905,3 +905,70 @@ fn a_bad_review_sheet_names_the_line_of_the_bad_cell() {
         "{error}"
     );
 }
+
+/// An XMP sidecar written by Exempi 2.6.3 through python-xmp-toolkit 2.1.0, an independent
+/// implementation of the standard (tests/fixtures/xmp-exempi/README.md).
+fn exempi_fixture(name: &str) -> Vec<u8> {
+    std::fs::read(repo_root().join("tests/fixtures/xmp-exempi").join(name)).unwrap()
+}
+
+/// `apply` writes accepted tags the way the collection's own sidecars spell them (here XMP
+/// sidecars from another implementation), not in the index's normalised form.
+#[test]
+fn apply_writes_tags_in_the_spelling_of_the_collection() {
+    let _serial = one_at_a_time();
+    let temp = tempfile::tempdir().unwrap();
+    let root = temp.path();
+    // source: shore.xmp (Exempi) spells its keywords `Sea`, `  Boats `, `naïve art`.
+    put(root, "shore.jpg", &corpus::rgb_jpeg(96, 64, 30));
+    put(root, "shore.xmp", &exempi_fixture("shore.xmp"));
+    put(root, "quay.jpg", &corpus::rgb_jpeg(96, 64, 31));
+    let quay_before = exempi_fixture("quay.xmp");
+    put(root, "quay.xmp", &quay_before);
+    put(root, "field.jpg", &corpus::rgb_jpeg(96, 64, 32));
+    let scan = tagweave(root, &["scan", ".", "--json"]);
+    assert_eq!(scan.status.code(), Some(0), "{}", stderr_of(&scan));
+
+    // The sheet holds the index's normalised forms; field.jpg has no sidecar yet and
+    // `  BOATS` differs from the collection's `Boats` in case only.
+    let sheet = "picture,tag,probability,kind,accept\n\
+                 quay.jpg,sea,0.9,suggested,y\n\
+                 quay.jpg,naïve-art,0.8,suggested,y\n\
+                 field.jpg,  BOATS,0.7,suggested,y\n\
+                 field.jpg,wheat-field,0.6,suggested,y\n";
+    put(root, "review.csv", sheet.as_bytes());
+    let out = tagweave(root, &["apply", "review.csv", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr_of(&out));
+    let report = json(&out);
+    assert_eq!(report["tags_added"], 4, "{report}");
+
+    let quay = String::from_utf8(std::fs::read(root.join("quay.xmp")).unwrap()).unwrap();
+    // by hand: the two items after `Harbour` (a sheet's tags come in sorted order of their
+    // normalised form), in the collection's spelling, nothing else moved.
+    let expected = String::from_utf8(quay_before).unwrap().replace(
+        "     <rdf:li>Harbour</rdf:li>\n",
+        "     <rdf:li>Harbour</rdf:li>\n     <rdf:li>naïve art</rdf:li>\n     <rdf:li>Sea</rdf:li>\n",
+    );
+    assert_eq!(quay, expected);
+    assert!(
+        !quay.contains("naïve-art") && !quay.contains(">sea<"),
+        "{quay}"
+    );
+    let field = std::fs::read_to_string(root.join("field.txt")).unwrap();
+    assert!(
+        field.ends_with("\nBoats\nwheat-field\n"),
+        "a tag the collection never spelled keeps the sheet's form: {field}"
+    );
+    assert_eq!(
+        std::fs::read(root.join("shore.xmp")).unwrap(),
+        exempi_fixture("shore.xmp")
+    );
+
+    // The index then reads one tag per keyword, each once.
+    let scan = tagweave(root, &["scan", ".", "--json"]);
+    assert_eq!(scan.status.code(), Some(0), "{}", stderr_of(&scan));
+    let tags = stdout_of(&tagweave(root, &["tags", "--json"]));
+    for tag in ["sea", "naïve-art", "boats", "wheat-field", "harbour"] {
+        assert!(tags.contains(&format!("\"{tag}\"")), "{tag}: {tags}");
+    }
+}

@@ -13,12 +13,22 @@ pub use crate::xmp::parse_xmp;
 /// rest of the line. A leading byte-order mark is the file's and is skipped; one anywhere
 /// else is dropped from its tag by [`normalize_tag`](crate::normalize_tag).
 pub fn parse_text(text: &str) -> Vec<String> {
+    dedup_normalized(text_spellings(text))
+}
+
+/// The tags of a plain-text sidecar as written (each piece [`parse_text`] reads, trimmed, in
+/// file order, repeats kept, empty pieces left out), for writing a tag back the way the
+/// collection spells it.
+pub fn text_spellings(text: &str) -> Vec<&str> {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-    let pieces = text.lines().flat_map(|line| {
-        let content = line.split('#').next().unwrap_or_default();
-        content.split(',')
-    });
-    dedup_normalized(pieces)
+    text.lines()
+        .flat_map(|line| {
+            let content = line.split('#').next().unwrap_or_default();
+            content.split(',')
+        })
+        .map(str::trim)
+        .filter(|piece| !piece.is_empty())
+        .collect()
 }
 
 /// Reads and parses one sidecar, refusing files over [`MAX_SIDECAR_BYTES`] and (plain text)
@@ -90,6 +100,15 @@ mod tests {
     fn text_lines_commas_comments_and_repeats() {
         let text = "Harbour, Boats\n# a whole-line comment\nsunset # golden hour\n\n  old   town \nHARBOUR\n,,\n";
         assert_eq!(parse_text(text), ["harbour", "boats", "sunset", "old-town"]);
+    }
+
+    #[test]
+    fn text_spellings_are_the_pieces_as_written() {
+        let text = "\u{feff}Harbour, Boats\n# note\n  old   town # golden\nHARBOUR\n,,\n";
+        assert_eq!(
+            text_spellings(text),
+            ["Harbour", "Boats", "old   town", "HARBOUR"]
+        );
     }
 
     #[test]

@@ -24,6 +24,12 @@
 //!   A picture without a sidecar gets a new text sidecar `STEM.txt` (or `NAME.EXT.txt` when
 //!   another picture of the folder shares the stem), which the crawler pairs with it. A
 //!   sidecar that several pictures share is refused: its tags would reach them all.
+//! - **Whose spelling.** An added tag is written the way the collection's own sidecars spell
+//!   it ([`Spellings`]): the spelling most of its pictures use for that normalised tag (`Sea`,
+//!   `naïve art`), a tie going to the smallest in code point order, whatever case or spacing
+//!   the sheet gave, so one keyword never gets a second spelling. A tag no sidecar spells yet
+//!   is written as the sheet has it (trimmed): a suggestion in the index's form, a tag a
+//!   person typed into a to-tag row as typed.
 //! - **Safe writes.** A temporary file in the same folder (hidden, so the crawler never takes
 //!   a crash's leftover for anything), flushed, renamed over the sidecar, then the folder
 //!   flushed. Before the first change to a sidecar its original is kept as `NAME.txt.orig` (or
@@ -44,6 +50,7 @@ mod commit;
 mod error;
 mod plan;
 mod sheet;
+mod spelling;
 mod text;
 mod xmp;
 
@@ -57,3 +64,4 @@ pub use sheet::{
     changes_from_sheet, parse_sheet, read_sheet, render_sheet, write_sheet,
     write_sheet_keeping_decisions, Decision, RowKind, SheetRow, SheetWritten, TagChange, COLUMNS,
 };
+pub use spelling::Spellings;

@@ -3,8 +3,9 @@
 
 use std::collections::{BTreeSet, HashMap, HashSet};
 use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
 
-use tagweave_collection::sidecar::{parse_text, parse_xmp, read_sidecar};
+use tagweave_collection::sidecar::{parse_text, parse_xmp, read_sidecar, text_spellings};
 use tagweave_collection::{
     crawl, normalize_tag, Candidate, CollectionError, CrawlOptions, SidecarKind, MAX_SIDECAR_BYTES,
     MAX_TEXT_LINE_BYTES,
@@ -12,8 +13,9 @@ use tagweave_collection::{
 
 use crate::error::WritebackError;
 use crate::sheet::TagChange;
+use crate::spelling::Spellings;
 use crate::text::{edit_text, text_problem, NEW_FILE_HEADER};
-use crate::xmp::{edit_xmp, xmp_problem};
+use crate::xmp::{edit_xmp, xmp_problem, xmp_spellings};
 
 /// New contents for one sidecar file, not yet written.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -63,6 +65,8 @@ pub struct Planner {
     names_by_folder: HashMap<String, Vec<String>>,
     /// Pictures that claim each sidecar (relative paths).
     claims: HashMap<String, Vec<String>>,
+    /// How the collection's sidecars spell each tag; read at the first plan that adds one.
+    spellings: OnceLock<Spellings>,
 }
 
 /// Plans one change with a fresh crawl of `root`; use a [`Planner`] for many.
@@ -80,6 +84,7 @@ impl Planner {
             pictures: HashMap::new(),
             names_by_folder: HashMap::new(),
             claims: HashMap::new(),
+            spellings: OnceLock::new(),
         };
         for candidate in found.candidates {
             let (folder, name) = split_rel(&candidate.rel_path);
@@ -107,8 +112,39 @@ impl Planner {
         &self.root
     }
 
+    /// How the sidecars of the collection spell each tag (read once, at the first call).
+    /// A sidecar that cannot be read is passed over here: planning a change to it fails
+    /// with its own message anyway.
+    pub fn spellings(&self) -> &Spellings {
+        self.spellings.get_or_init(|| {
+            let mut spellings = Spellings::default();
+            for candidate in self.pictures.values() {
+                let mut written: Vec<String> = Vec::new();
+                for sidecar in &candidate.sidecars {
+                    let path = self.root.join(&sidecar.rel_path);
+                    let Ok(bytes) = std::fs::read(&path) else {
+                        continue;
+                    };
+                    if parse_bytes(&path, &bytes, sidecar.kind).is_err() {
+                        continue;
+                    }
+                    let text = String::from_utf8_lossy(&bytes);
+                    match sidecar.kind {
+                        SidecarKind::Text => {
+                            written.extend(text_spellings(&text).into_iter().map(str::to_string))
+                        }
+                        SidecarKind::Xmp => written.extend(xmp_spellings(&text)),
+                    }
+                }
+                spellings.add_picture(written.iter().map(String::as_str));
+            }
+            spellings
+        })
+    }
+
     /// The exact edits that bring the picture's tags to its current tags ∪ `add` − `remove`
-    /// (under [`normalize_tag`]). New tags go into every sidecar the picture has (so each
+    /// (under [`normalize_tag`]). An added tag is written in the collection's own spelling
+    /// when its sidecars spell it at all ([`Spellings::to_write`]), else as the sheet has it. New tags go into every sidecar the picture has (so each
     /// sidecar stays a complete record of what was accepted), or into a new text sidecar when
     /// it has none; a removed tag comes out of every sidecar that holds it. Each new file is
     /// read back with the collection's readers before it is offered; any doubt is an error.
@@ -135,15 +171,16 @@ impl Planner {
             not_present: Vec::new(),
         };
         let mut add: Vec<(String, String)> = Vec::new();
-        for spelling in &change.add {
-            let spelling = spelling.trim();
-            let Some(normal) = normalize_tag(spelling) else {
+        for typed in &change.add {
+            let Some(normal) = normalize_tag(typed) else {
                 continue;
             };
             if carried.contains(&normal) {
                 push_unique(&mut plan.already_present, normal);
             } else if !add.iter().any(|(n, _)| *n == normal) {
-                add.push((normal, spelling.to_string()));
+                if let Some(written) = self.spellings().to_write(typed) {
+                    add.push(written);
+                }
             }
         }
         let mut remove = HashSet::new();

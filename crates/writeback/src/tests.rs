@@ -617,3 +617,85 @@ proptest! {
         }
     }
 }
+
+/// An XMP sidecar written by Exempi 2.6.3 through python-xmp-toolkit 2.1.0, an independent
+/// implementation of the XMP standard (see tests/fixtures/xmp-exempi/README.md).
+fn exempi_fixture(name: &str) -> Vec<u8> {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../../tests/fixtures/xmp-exempi")
+        .join(name);
+    std::fs::read(&path).unwrap_or_else(|e| panic!("{}: {e}", path.display()))
+}
+
+#[test]
+fn accepted_tags_take_the_spelling_of_the_collection_sidecars() {
+    // source: fixtures written by Exempi 2.6.3 (python-xmp-toolkit 2.1.0); shore.xmp spells
+    // its keywords `Sea`, `  Boats `, `naïve art`; quay.xmp holds `Harbour`.
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path();
+    put(root, "shore.jpg", JPEG);
+    let shore = put(root, "shore.xmp", &exempi_fixture("shore.xmp"));
+    put(root, "quay.jpg", JPEG);
+    let quay_before = exempi_fixture("quay.xmp");
+    let quay = put(root, "quay.xmp", &quay_before);
+    put(root, "bare.png", PNG);
+    let shore_before = std::fs::read(&shore).unwrap();
+
+    // The sheet has the index's forms; `Old Town` is typed and new to the collection.
+    let planner = Planner::new(root, &CrawlOptions::default()).unwrap();
+    let plan = planner
+        .plan(&change(
+            "quay.jpg",
+            &["sea", "naïve-art", "harbour", "Old Town"],
+            &[],
+        ))
+        .unwrap();
+    assert_eq!(plan.already_present, ["harbour"]);
+    assert_eq!(plan.edits.len(), 1);
+    assert_eq!(plan.edits[0].added, ["Sea", "naïve art", "Old Town"]);
+    commit_plan(&plan).unwrap();
+    // by hand: the three items after the last one, indented like it; every other byte kept.
+    let expected = String::from_utf8(quay_before).unwrap().replace(
+        "     <rdf:li>Harbour</rdf:li>\n",
+        "     <rdf:li>Harbour</rdf:li>\n     <rdf:li>Sea</rdf:li>\n     \
+         <rdf:li>naïve art</rdf:li>\n     <rdf:li>Old Town</rdf:li>\n",
+    );
+    assert_eq!(read(&quay), expected);
+    assert_eq!(
+        tags_of(root, "quay.jpg"),
+        ["harbour", "sea", "naïve-art", "old-town"]
+            .map(String::from)
+            .into()
+    );
+    assert_eq!(
+        std::fs::read(&shore).unwrap(),
+        shore_before,
+        "the other sidecar is only read"
+    );
+
+    // A picture without a sidecar gets a new text sidecar in the same spellings, trimmed.
+    let plan = planner
+        .plan(&change("bare.png", &["SEA", "boats"], &[]))
+        .unwrap();
+    commit_plan(&plan).unwrap();
+    assert_eq!(
+        read(&root.join("bare.txt")),
+        "# tags, one per line\nSea\nBoats\n"
+    );
+}
+
+#[test]
+fn the_spelling_most_pictures_use_is_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path();
+    for (name, tags) in [("a", "SEA\n"), ("b", "sea\n"), ("c", "Sea, sea\n")] {
+        put(root, &format!("{name}.png"), PNG);
+        put(root, &format!("{name}.txt"), tags.as_bytes());
+    }
+    put(root, "d.png", PNG);
+    put(root, "d.xmp", packet(&["Sea"]).as_bytes());
+    put(root, "e.png", PNG);
+    // sea: b and c = 2 pictures; Sea: c and d = 2; SEA: a = 1. Tie → "Sea" < "sea".
+    let plan = plan_edit(root, &change("e.png", &["sea"], &[])).unwrap();
+    assert_eq!(plan.edits[0].added, ["Sea"]);
+}

@@ -65,6 +65,26 @@ pub(crate) fn edit_xmp(
     splice(body, bom, edits)
 }
 
+/// The plain keywords of the packet as written (trimmed, document order, repeats kept), for
+/// writing a tag back the way the collection spells it. Qualified items are left out; a packet
+/// this module could not read gives none.
+pub(crate) fn xmp_spellings(text: &str) -> Vec<String> {
+    let body = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let Ok(packet) = scan(body) else {
+        return Vec::new();
+    };
+    packet
+        .subjects
+        .iter()
+        .filter_map(|s| s.array.as_ref())
+        .flat_map(|array| &array.items)
+        .filter(|item| item.plain)
+        .map(|item| item.text.trim())
+        .filter(|text| !text.is_empty())
+        .map(str::to_string)
+        .collect()
+}
+
 /// Where the new keywords go, and their text.
 fn addition(
     packet: &Packet,
@@ -609,6 +629,19 @@ mod tests {
             parse_xmp(after.as_bytes()).unwrap(),
             ["harbour", "fishing-boats", "rock-&-roll", "<storm>"]
         );
+    }
+
+    #[test]
+    fn spellings_are_the_plain_items_as_written() {
+        let packet = SPEC_PACKET.replace(
+            "<rdf:li>Harbour</rdf:li>",
+            "<rdf:li> Harbour </rdf:li><rdf:li rdf:value=\"kelp\"/><rdf:li>Rock &amp; Roll</rdf:li>",
+        );
+        assert_eq!(
+            xmp_spellings(&packet),
+            ["Harbour", "Rock & Roll", "fishing  boats"]
+        );
+        assert!(xmp_spellings("<not xml").is_empty());
     }
 
     #[test]
