@@ -3,6 +3,7 @@
 //! The sidecar files are the record; everything here only reads them.
 
 mod crawl;
+mod embedded;
 mod error;
 mod item;
 mod normalize;
@@ -14,6 +15,7 @@ mod vocabulary;
 mod xmp;
 
 pub use crawl::{crawl, Candidate, Crawl, CrawlOptions, Note, SkipReason, Skipped};
+pub use embedded::MAX_EMBEDDED_BYTES;
 pub use error::{CollectionError, MAX_SIDECAR_BYTES, MAX_TEXT_LINE_BYTES};
 pub use item::{
     is_unchanged, item_id, read_item, FileStamp, ImageFormat, ItemRecord, ReadItem, SidecarKind,
