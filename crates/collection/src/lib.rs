@@ -1,6 +1,7 @@
-//! Finds the pictures of a collection and the tags people wrote beside them.
+//! Finds the pictures of a collection and the tags people wrote beside them (sidecars) or
+//! inside them (XMP and IPTC keywords in the picture's metadata segments).
 //!
-//! The sidecar files are the record; everything here only reads them.
+//! The sidecar files are the record; everything here only reads them, and the pictures.
 
 mod crawl;
 mod embedded;
