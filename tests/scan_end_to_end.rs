@@ -451,6 +451,7 @@ fn keywords_inside_pictures_are_tags_and_apply_never_writes_into_them() {
     put(root, "boats.webp", &embedded_fixture("xmp-exiftool.webp"));
     put(root, "sea.png", &embedded_fixture("xmp-exempi.png"));
     put(root, "sea.txt", b"Sea\nharbour\n");
+    put(root, "pier.tif", &embedded_fixture("xmp-exempi.tif"));
 
     // Once per picture, in the verbose listing of the scan that reads them.
     let first = tagweave(root, &["scan", ".", "--verbose"]);
@@ -459,14 +460,14 @@ fn keywords_inside_pictures_are_tags_and_apply_never_writes_into_them() {
         stdout_of(&first)
             .matches("tags read from inside the picture")
             .count(),
-        4,
+        5,
         "{}",
         stdout_of(&first)
     );
     let report = json(&tagweave(root, &["scan", ".", "--json"]));
-    assert_eq!(report["unchanged"], 4, "{report}");
-    assert_eq!(report["items"], 4, "{report}");
-    assert_eq!(report["tagged"], 4, "{report}");
+    assert_eq!(report["unchanged"], 5, "{report}");
+    assert_eq!(report["items"], 5, "{report}");
+    assert_eq!(report["tagged"], 5, "{report}");
     assert_eq!(report["untagged"], 0, "{report}");
     let tags = indexed_tags(root);
     let expected = [
