@@ -414,3 +414,113 @@ fn the_demo_command_indexes_and_measures_the_archive() {
         assert!(text.contains(expected), "{expected} missing:\n{text}");
     }
 }
+
+/// The tags of every indexed picture, by relative path.
+fn indexed_tags(folder: &std::path::Path) -> std::collections::BTreeMap<String, Vec<String>> {
+    let store = tagweave_store::Store::open(&folder.join(".tagweave")).unwrap();
+    store
+        .items()
+        .unwrap()
+        .into_iter()
+        .map(|item| (item.rel_path, item.tags))
+        .collect()
+}
+
+fn embedded_fixture(name: &str) -> Vec<u8> {
+    std::fs::read(
+        repo_root()
+            .join("crates/collection/testdata/embedded")
+            .join(name),
+    )
+    .unwrap()
+}
+
+// source: crates/collection/testdata/embedded/README.md — keywords written inside the
+// pictures by Exempi 2.6.3 (python-xmp-toolkit 2.1.0) and by ExifTool 12.57.
+#[test]
+fn keywords_inside_pictures_are_tags_and_apply_never_writes_into_them() {
+    let temp = tempfile::tempdir().unwrap();
+    let root = temp.path();
+    let harbour = embedded_fixture("xmp-exempi.jpg");
+    put(root, "harbour.jpg", &harbour);
+    put(
+        root,
+        "lighthouse.jpg",
+        &embedded_fixture("iptc-exiftool.jpg"),
+    );
+    put(root, "boats.webp", &embedded_fixture("xmp-exiftool.webp"));
+    put(root, "sea.png", &embedded_fixture("xmp-exempi.png"));
+    put(root, "sea.txt", b"Sea\nharbour\n");
+    put(root, "pier.tif", &embedded_fixture("xmp-exempi.tif"));
+
+    // Once per picture, in the verbose listing of the scan that reads them.
+    let first = tagweave(root, &["scan", ".", "--verbose"]);
+    assert_eq!(first.status.code(), Some(0), "{}", stderr_of(&first));
+    assert_eq!(
+        stdout_of(&first)
+            .matches("tags read from inside the picture")
+            .count(),
+        5,
+        "{}",
+        stdout_of(&first)
+    );
+    let report = json(&tagweave(root, &["scan", ".", "--json"]));
+    assert_eq!(report["unchanged"], 5, "{report}");
+    assert_eq!(report["items"], 5, "{report}");
+    assert_eq!(report["tagged"], 5, "{report}");
+    assert_eq!(report["untagged"], 0, "{report}");
+    let tags = indexed_tags(root);
+    let expected = [
+        ("boats.webp", &["harbour", "night-boats"][..]),
+        ("harbour.jpg", &["harbour", "night-boats", "naïve-art"][..]),
+        ("lighthouse.jpg", &["lighthouse", "café-terrace", "fog"][..]),
+        (
+            "sea.png",
+            &["sea", "harbour", "night-boats", "naïve-art"][..],
+        ),
+    ];
+    for (file, want) in expected {
+        assert_eq!(tags[file], want, "{file}");
+    }
+
+    // Accepting a tag writes a sidecar beside the picture; the picture keeps every byte.
+    let sheet = "picture,tag,probability,kind,accept\nharbour.jpg,gulls,0.9,suggested,y\n";
+    put(root, "review.csv", sheet.as_bytes());
+    let out = tagweave(root, &["apply", "review.csv", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr_of(&out));
+    assert_eq!(std::fs::read(root.join("harbour.jpg")).unwrap(), harbour);
+    let written = std::fs::read_to_string(root.join("harbour.txt")).unwrap();
+    assert!(written.lines().any(|l| l.trim() == "gulls"), "{written}");
+
+    let rescan = json(&tagweave(root, &["scan", ".", "--json"]));
+    assert_eq!(rescan["refreshed"], 1, "{rescan}");
+    assert_eq!(
+        indexed_tags(root)["harbour.jpg"],
+        ["gulls", "harbour", "night-boats", "naïve-art"]
+    );
+}
+
+/// A picture whose embedded metadata is damaged is still indexed (without those keywords),
+/// and the scan says why; its sidecar's tags are read as usual.
+#[test]
+fn damaged_keywords_inside_a_picture_do_not_stop_the_scan() {
+    let temp = tempfile::tempdir().unwrap();
+    let root = temp.path();
+    let mut bytes = embedded_fixture("iptc-exiftool.jpg");
+    let at = bytes.windows(3).position(|w| w == b"\x1C\x02\x19").unwrap();
+    bytes[at] = 0x1D; // the first keyword data set no longer starts with its tag marker
+    put(root, "quay.jpg", &bytes);
+    put(root, "quay.txt", b"quay\n");
+    // Enough ordinary pictures for the scan to learn its features from.
+    for (i, jpeg) in demo_jpegs(4).iter().enumerate() {
+        std::fs::copy(jpeg, root.join(format!("demo-{i}.jpg"))).unwrap();
+    }
+    let out = tagweave(root, &["scan", ".", "--verbose"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr_of(&out));
+    let said = stdout_of(&out);
+    assert!(
+        said.contains("keywords inside the picture not read: its IPTC keywords"),
+        "{said}"
+    );
+    assert_eq!(indexed_tags(root)["quay.jpg"], ["quay"]);
+}

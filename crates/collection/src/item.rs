@@ -1,5 +1,5 @@
 //! What the crawler knows about one picture: where it is, how to tell whether it changed,
-//! and the tags a person wrote beside it.
+//! and the tags a person wrote beside it or inside it.
 
 use std::io::ErrorKind;
 use std::path::Path;
@@ -8,6 +8,7 @@ use std::time::UNIX_EPOCH;
 use serde::{Deserialize, Serialize};
 
 use crate::crawl::{Candidate, Note, SkipReason, Skipped};
+use crate::embedded::read_embedded;
 use crate::error::CollectionError;
 use crate::sidecar::{dedup_normalized, read_sidecar};
 
@@ -62,7 +63,8 @@ pub struct ItemRecord {
     /// BLAKE3 of the picture's bytes, hex.
     pub content_hash: String,
     pub sidecars: Vec<SidecarRef>,
-    /// Normalised tags, de-duplicated, in order of first appearance (text sidecar first).
+    /// Normalised tags, de-duplicated, in order of first appearance: text sidecar, XMP
+    /// sidecar, then the keywords kept inside the picture (its XMP packet, then IPTC).
     pub tags: Vec<String>,
 }
 
@@ -116,8 +118,10 @@ pub fn is_unchanged(previous: &ItemRecord, candidate: &Candidate) -> bool {
         && previous.sidecars == candidate.sidecars
 }
 
-/// Hashes the picture and reads its sidecars. Any sidecar that cannot be read makes the
-/// whole item skipped, so nothing downstream ever rewrites a sidecar we did not understand.
+/// Hashes the picture and reads its sidecars, then the keywords embedded in the picture's
+/// metadata segments. Any sidecar that cannot be read makes the whole item skipped, so
+/// nothing downstream ever rewrites a sidecar we did not understand; embedded keywords that
+/// cannot be read only leave a note (nothing ever writes into the picture).
 pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped> {
     let (stamp, content_hash) = hash_file(&candidate.path).map_err(|e| Skipped {
         path: candidate.path.clone(),
@@ -170,6 +174,26 @@ pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped
     }
 
     let mut notes = Vec::new();
+    let embedded = read_embedded(&candidate.path, candidate.format);
+    if !embedded.sources.is_empty() {
+        notes.push(Note {
+            path: candidate.path.clone(),
+            message: format!(
+                "tags read from inside the picture ({})",
+                embedded.sources.join(" and ")
+            ),
+        });
+    }
+    for problem in &embedded.problems {
+        notes.push(Note {
+            path: candidate.path.clone(),
+            message: format!(
+                "keywords inside the picture not read: {problem}; the picture is indexed \
+                 without them"
+            ),
+        });
+    }
+    tags.extend(embedded.keywords);
     if sidecars.len() > 1 {
         let names: Vec<&str> = sidecars
             .iter()
@@ -285,6 +309,68 @@ mod tests {
             "tags merged from pic.txt and pic.xmp"
         );
         assert!(is_unchanged(&read.item, &candidate));
+    }
+
+    fn embedded_fixture(name: &str) -> Vec<u8> {
+        let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("testdata/embedded");
+        std::fs::read(dir.join(name)).unwrap()
+    }
+
+    // source: testdata/embedded/xmp-exempi.png, written by Exempi 2.6.3 (README there).
+    #[test]
+    fn embedded_keywords_follow_the_sidecars_with_one_note() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        put(root, "pic.png", &embedded_fixture("xmp-exempi.png"));
+        put(root, "pic.txt", b"Naive art\nharbour\n");
+        let read = read_item(root, &only_candidate(root)).unwrap();
+        assert_eq!(
+            read.item.tags,
+            ["naive-art", "harbour", "night-boats", "naïve-art"]
+        );
+        let said: Vec<&str> = read.notes.iter().map(|n| n.message.as_str()).collect();
+        assert_eq!(
+            said,
+            ["tags read from inside the picture (XMP packet)"],
+            "{said:?}"
+        );
+    }
+
+    #[test]
+    fn unreadable_embedded_keywords_leave_a_note_not_a_skip() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        let mut bytes = embedded_fixture("xmp-exempi.jpg");
+        let at = bytes.windows(9).position(|w| w == b"<rdf:RDF ").unwrap();
+        bytes[at + 1] = b'!';
+        put(root, "pic.jpg", &bytes);
+        put(root, "pic.txt", b"pier\n");
+        let read = read_item(root, &only_candidate(root)).unwrap();
+        // The IPTC copy Exempi wrote beside the packet is still read.
+        assert_eq!(
+            read.item.tags,
+            ["pier", "harbour", "night-boats", "naïve-art"]
+        );
+        let said: Vec<&str> = read.notes.iter().map(|n| n.message.as_str()).collect();
+        assert_eq!(said.len(), 2, "{said:?}");
+        assert_eq!(said[0], "tags read from inside the picture (IPTC keywords)");
+        assert!(
+            said[1].starts_with("keywords inside the picture not read: its XMP packet"),
+            "{said:?}"
+        );
+    }
+
+    #[test]
+    fn rewritten_embedded_keywords_are_a_change() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        let pic = put(root, "pic.png", PNG);
+        let record = read_item(root, &only_candidate(root)).unwrap().item;
+        assert!(record.tags.is_empty());
+        std::fs::write(&pic, embedded_fixture("xmp-exempi.png")).unwrap();
+        assert!(!is_unchanged(&record, &only_candidate(root)));
+        let record = read_item(root, &only_candidate(root)).unwrap().item;
+        assert_eq!(record.tags, ["harbour", "night-boats", "naïve-art"]);
     }
 
     #[test]
