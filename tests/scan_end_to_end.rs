@@ -498,6 +498,19 @@ fn keywords_inside_pictures_are_tags_and_apply_never_writes_into_them() {
         indexed_tags(root)["harbour.jpg"],
         ["gulls", "harbour", "night-boats", "naïve-art"]
     );
+
+    // Removing a keyword kept inside the picture changes nothing, and says so.
+    let sheet =
+        "picture,tag,probability,kind,accept\nharbour.jpg,night boats,0.1,disputed,remove\n";
+    put(root, "remove.csv", sheet.as_bytes());
+    let out = tagweave(root, &["apply", "remove.csv", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr_of(&out));
+    let said = json(&out);
+    assert_eq!(said["not_in_sidecars"][0][1], "night-boats", "{said}");
+    assert_eq!(said["tags_removed"], 0, "{said}");
+    assert_eq!(std::fs::read(root.join("harbour.jpg")).unwrap(), harbour);
+    let text = stdout_of(&tagweave(root, &["apply", "remove.csv"]));
+    assert!(text.contains("never changes pictures"), "{text}");
 }
 
 /// A picture whose embedded metadata is damaged is still indexed (without those keywords),

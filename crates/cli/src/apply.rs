@@ -34,6 +34,9 @@ struct ApplyReport {
     tags_added: usize,
     tags_removed: usize,
     already_present: usize,
+    /// Tags asked to be removed that no sidecar of the picture holds (for example a keyword
+    /// kept inside the picture file, which tagweave never changes), by picture.
+    not_in_sidecars: Vec<(String, String)>,
     refused: Vec<(String, String)>,
     /// Accepted tags no picture of the collection carried yet (a typing slip, or a
     /// deliberately new tag), each with the known tag it is nearest to, if any.
@@ -103,6 +106,11 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
             }
         };
         report.already_present += plan.already_present.len();
+        report.not_in_sidecars.extend(
+            plan.not_present
+                .iter()
+                .map(|tag| (change.picture.clone(), tag.clone())),
+        );
         if plan.is_empty() {
             continue;
         }
@@ -144,6 +152,13 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
         );
         for (picture, reason) in &report.refused {
             println!("  not changed: {picture}: {reason}");
+        }
+        for (picture, tag) in &report.not_in_sidecars {
+            println!(
+                "  not removed: {picture}: no sidecar holds `{tag}`; if it is a keyword kept \
+                 inside the picture file, remove it with the program that wrote it (tagweave \
+                 never changes pictures)"
+            );
         }
         for new in &report.new_tags {
             println!(
