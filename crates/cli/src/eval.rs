@@ -245,16 +245,11 @@ fn simulate_order(
         &TaggingStrategy::ALL,
         &make,
         &mut |p| {
-            let ways = TaggingStrategy::ALL.len() + 1;
-            let way = std::iter::once(tagweave_eval::RANDOM)
-                .chain(TaggingStrategy::ALL.iter().map(|s| s.name()))
-                .position(|name| name == p.method)
-                .unwrap_or(0);
             progress.show(
                 "simulating tagging order (one training per batch and way)",
-                way * p.batches + p.batch,
-                ways * p.batches,
-            );
+                p.done,
+                p.total,
+            )
         },
     )?;
     progress.finish();

@@ -120,12 +120,12 @@ impl TaggingOrder {
     }
 }
 
-/// Reported before each refit.
+/// Reported before each refit: `done` of `total` refits (every way, every batch) are over.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct TaggingProgress<'a> {
     pub method: &'a str,
-    pub batch: usize,
-    pub batches: usize,
+    pub done: usize,
+    pub total: usize,
 }
 
 /// Runs the simulation for random picking and each of `strategies`, refitting a fresh
@@ -170,12 +170,19 @@ pub fn simulate_tagging_order(
         batches: &batches,
         make_method,
     };
+    let ways = std::iter::once(None).chain(strategies.iter().copied().map(Some));
+    let total = (strategies.len() + 1) * batches.len();
     let mut methods = BTreeMap::new();
-    let random = simulation.run(RANDOM, &order, None, on_progress)?;
-    methods.insert(RANDOM.to_string(), random);
-    for &strategy in strategies {
-        let curve = simulation.run(strategy.name(), &order, Some(strategy), on_progress)?;
-        methods.insert(strategy.name().to_string(), curve);
+    for (index, strategy) in ways.enumerate() {
+        let name = strategy.map_or(RANDOM, TaggingStrategy::name);
+        let curve = simulation.run(&order, strategy, &mut |batch| {
+            on_progress(TaggingProgress {
+                method: name,
+                done: index * batches.len() + batch,
+                total,
+            })
+        })?;
+        methods.insert(name.to_string(), curve);
     }
     Ok(TaggingOrder { batches, methods })
 }
@@ -193,12 +200,12 @@ struct Simulation<'a> {
 impl Simulation<'_> {
     /// `order`: the seeded random order; its first `batches[0]` pictures start tagged and,
     /// for random picking, each batch takes the next ones in it.
+    /// `before_refit(b)` is called before the refit after batch `b`.
     fn run(
         &self,
-        name: &str,
         order: &[usize],
         strategy: Option<TaggingStrategy>,
-        on_progress: &mut dyn FnMut(TaggingProgress),
+        before_refit: &mut dyn FnMut(usize),
     ) -> Result<TaggingCurve, EvalError> {
         let n = self.features.nrows();
         let mut tagged = vec![false; n];
@@ -207,11 +214,7 @@ impl Simulation<'_> {
             .for_each(|&i| tagged[i] = true);
         let mut curve = Vec::with_capacity(self.batches.len());
         for (b, &count) in self.batches.iter().enumerate() {
-            on_progress(TaggingProgress {
-                method: name,
-                batch: b,
-                batches: self.batches.len(),
-            });
+            before_refit(b);
             let (scaled, scores) = self.fit_and_score(&tagged)?;
             curve.push(self.untagged_lrap(&tagged, &scores)?);
             let Some(&next) = self.batches.get(b + 1) else {

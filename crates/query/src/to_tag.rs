@@ -2,16 +2,20 @@
 //! for the ways of choosing and their sources). Works before any training too: then the
 //! list is the most varied untagged pictures, chosen on the features alone.
 
+use std::borrow::Cow;
 use std::collections::HashSet;
 
+use ndarray::Array2;
+
 use serde::Serialize;
+use tagweave_collection::ItemRecord;
 use tagweave_store::{FeatureTable, Store};
 use tagweave_suggest::{
     choose_pictures_to_tag, unit_rows, PickReason, Standardiser, TaggingPool, TaggingStrategy,
-    MODEL_FORMAT,
+    TrainedModel, MODEL_FORMAT,
 };
 
-use crate::{Queries, Result};
+use crate::{Queries, QueryError, Result};
 
 /// One picture to tag next, and why.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -57,33 +61,49 @@ pub fn pictures_to_tag(
     strategy: TaggingStrategy,
     count: usize,
 ) -> Result<ToTagList> {
-    let trained = store.model(MODEL_FORMAT, |m: &tagweave_suggest::TrainedModel| m.format)?;
-    let queries = match (&trained, strategy.needs_scores()) {
-        (Some(_), true) => Some(Queries::open(store)?),
-        _ => None,
+    // Questions need the opened model, which already holds every picture's scaled features;
+    // farthest first alone only needs the features, scaled as the model would if there is one.
+    let queries = if strategy.needs_scores() {
+        match Queries::open(store) {
+            Ok(queries) => Some(queries),
+            Err(QueryError::NotTrained) => None,
+            Err(error) => return Err(error),
+        }
+    } else {
+        None
     };
-    let table = FeatureTable::load(store)?;
-    let tagged: Vec<bool> = table.items.iter().map(|i| !i.tags.is_empty()).collect();
-    let tagged_contents: HashSet<&str> = table
-        .items
+    let model = match queries {
+        Some(_) => None,
+        None => store.model(MODEL_FORMAT, |m: &TrainedModel| m.format)?,
+    };
+    let trained = queries.is_some() || model.is_some();
+    let table;
+    let (items, scaled): (&[ItemRecord], Cow<Array2<f32>>) = match &queries {
+        Some(q) => (&q.items, Cow::Borrowed(&q.scaled)),
+        None => {
+            table = FeatureTable::load(store)?;
+            let scaled = match &model {
+                Some(model) => model.scale(table.features.view())?,
+                None => Standardiser::fit(table.features.view()).apply(table.features.view()),
+            };
+            (&table.items, Cow::Owned(scaled))
+        }
+    };
+    let tagged: Vec<bool> = items.iter().map(|i| !i.tags.is_empty()).collect();
+    let tagged_contents: HashSet<&str> = items
         .iter()
         .filter(|i| !i.tags.is_empty())
         .map(|i| i.content_hash.as_str())
         .collect();
-    let excluded: Vec<bool> = table
-        .items
+    let excluded: Vec<bool> = items
         .iter()
         .map(|i| i.tags.is_empty() && tagged_contents.contains(i.content_hash.as_str()))
         .collect();
-    let scaled = match &trained {
-        Some(model) => model.scale(table.features.view())?,
-        None => Standardiser::fit(table.features.view()).apply(table.features.view()),
-    };
     let unit = unit_rows(scaled.view());
     let scores = match &queries {
         Some(q) => {
-            let rows: Vec<usize> = (0..table.items.len()).filter(|&r| !tagged[r]).collect();
-            let mut all = ndarray::Array2::zeros((table.items.len(), q.vocabulary().len()));
+            let rows: Vec<usize> = (0..items.len()).filter(|&r| !tagged[r]).collect();
+            let mut all = Array2::zeros((items.len(), q.vocabulary().len()));
             if !rows.is_empty() {
                 let some = q.suggest_rows(&rows)?;
                 for (&r, row) in rows.iter().zip(some.outer_iter()) {
@@ -104,7 +124,7 @@ pub fn pictures_to_tag(
     let pictures = choose_pictures_to_tag(&pool, strategy, count)
         .into_iter()
         .map(|pick| PictureToTag {
-            picture: table.items[pick.row].rel_path.clone(),
+            picture: items[pick.row].rel_path.clone(),
             reason: match pick.reason {
                 PickReason::Unlike { nearest } => ToTagReason::UnlikeTagged {
                     nearest_similarity: nearest,
@@ -122,7 +142,7 @@ pub fn pictures_to_tag(
         } else {
             TaggingStrategy::Unlike.name()
         },
-        trained: trained.is_some(),
+        trained,
         untagged: tagged.iter().filter(|&&t| !t).count(),
         pictures,
     })
