@@ -32,6 +32,8 @@ struct ApplyReport {
     sidecars_written: usize,
     sidecars_created: usize,
     tags_added: usize,
+    /// Of `tags_added`, the suggestions a person accepted, marked as such in the sidecar.
+    tags_marked_accepted: usize,
     tags_removed: usize,
     already_present: usize,
     /// Tags asked to be removed that no sidecar of the picture holds (for example a keyword
@@ -60,7 +62,7 @@ fn new_tags(changes: &[TagChange], vocabulary: &Vocabulary) -> Vec<NewTag> {
         .map(|(t, _)| t.as_str())
         .collect();
     let mut new: BTreeMap<String, usize> = BTreeMap::new();
-    for tag in changes.iter().flat_map(|c| &c.add) {
+    for tag in changes.iter().flat_map(|c| c.add.iter().chain(&c.accept)) {
         if let Some(normal) = normalize_tag(tag).filter(|t| !known.contains(t.as_str())) {
             *new.entry(normal).or_default() += 1;
         }
@@ -134,6 +136,7 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
             report.sidecars_written += 1;
             report.sidecars_created += usize::from(edit.created);
             report.tags_added += edit.added.len();
+            report.tags_marked_accepted += edit.marked.len();
             report.tags_removed += edit.removed.len();
         }
     }
@@ -141,10 +144,11 @@ pub fn run(args: &ApplyArgs) -> anyhow::Result<Outcome> {
         println!("{}", serde_json::to_string(&report)?);
     } else {
         println!(
-            "{} {} pictures: {} tags added, {} removed, {} sidecars written ({} new); {} accepted tags were already there",
+            "{} {} pictures: {} tags added ({} marked as accepted suggestions), {} removed, {} sidecars written ({} new); {} accepted tags were already there",
             if args.dry_run { "Dry run:" } else { "Done:" },
             report.pictures_changed,
             report.tags_added,
+            report.tags_marked_accepted,
             report.tags_removed,
             report.sidecars_written,
             report.sidecars_created,
@@ -205,7 +209,7 @@ mod tests {
         TagChange {
             picture: picture.into(),
             add: add.iter().map(|t| t.to_string()).collect(),
-            remove: Vec::new(),
+            ..TagChange::default()
         }
     }
 

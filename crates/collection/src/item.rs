@@ -1,6 +1,7 @@
 //! What the crawler knows about one picture: where it is, how to tell whether it changed,
 //! and the tags a person wrote beside it or inside it.
 
+use std::collections::HashSet;
 use std::io::ErrorKind;
 use std::path::Path;
 use std::time::UNIX_EPOCH;
@@ -66,6 +67,22 @@ pub struct ItemRecord {
     /// Normalised tags, de-duplicated, in order of first appearance: text sidecar, XMP
     /// sidecar, then the keywords kept inside the picture (its XMP packet, then IPTC).
     pub tags: Vec<String>,
+    /// The tags of `tags` that were suggestions a person accepted: marked so in every
+    /// sidecar that carries them (`sidecar::ACCEPTED_MARK`, `sidecar::ACCEPTED_PROPERTY`).
+    /// Every other tag a person wrote. Left out of the stored form when empty.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub accepted: Vec<String>,
+}
+
+impl ItemRecord {
+    /// The tags a person wrote: `tags` without the accepted suggestions.
+    pub fn person_tags(&self) -> Vec<String> {
+        self.tags
+            .iter()
+            .filter(|t| !self.accepted.contains(t))
+            .cloned()
+            .collect()
+    }
 }
 
 impl ImageFormat {
@@ -133,6 +150,8 @@ pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped
         .flat_map(|kind| candidate.sidecars.iter().filter(move |s| s.kind == kind));
     let mut sidecars = Vec::with_capacity(candidate.sidecars.len());
     let mut tags = Vec::new();
+    let mut marked = Vec::new();
+    let mut unmarked = HashSet::new();
     for sidecar in in_order {
         let path = root.join(&sidecar.rel_path);
         let bad = |reason| Skipped {
@@ -165,7 +184,14 @@ pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped
                 problem: other.to_string(),
             }),
         })?;
-        tags.extend(read);
+        for tag in &read.tags {
+            if read.accepted.contains(tag) {
+                marked.push(tag.clone());
+            } else {
+                unmarked.insert(tag.clone());
+            }
+        }
+        tags.extend(read.tags);
         sidecars.push(SidecarRef {
             rel_path: sidecar.rel_path.clone(),
             kind: sidecar.kind,
@@ -193,6 +219,12 @@ pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped
             ),
         });
     }
+    unmarked.extend(
+        embedded
+            .keywords
+            .iter()
+            .filter_map(|k| crate::normalize_tag(k)),
+    );
     tags.extend(embedded.keywords);
     if sidecars.len() > 1 {
         let names: Vec<&str> = sidecars
@@ -212,6 +244,10 @@ pub fn read_item(root: &Path, candidate: &Candidate) -> Result<ReadItem, Skipped
         content_hash,
         sidecars,
         tags: dedup_normalized(tags),
+        accepted: dedup_normalized(marked)
+            .into_iter()
+            .filter(|tag| !unmarked.contains(tag))
+            .collect(),
     };
     for tag in &item.tags {
         if let Some(c) = crate::misleading_char(tag) {
@@ -309,6 +345,31 @@ mod tests {
             "tags merged from pic.txt and pic.xmp"
         );
         assert!(is_unchanged(&read.item, &candidate));
+    }
+
+    #[test]
+    fn a_tag_is_an_accepted_suggestion_only_where_no_source_carries_it_unmarked() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        put(root, "p/pic.png", PNG);
+        put(root, "p/pic.xmp", XMP); // carries `pier` and `dusk`, unmarked
+        put(
+            root,
+            "p/pic.txt",
+            b"Harbour\nsea # accepted suggestion\ndusk # accepted suggestion\n",
+        );
+        let read = read_item(root, &only_candidate(root)).unwrap();
+        assert_eq!(read.item.tags, ["harbour", "sea", "dusk", "pier"]);
+        assert_eq!(read.item.accepted, ["sea"]);
+        assert_eq!(read.item.person_tags(), ["harbour", "dusk", "pier"]);
+        // Stored without the field when nothing is marked, and read back from such a record.
+        let plain = ItemRecord {
+            accepted: Vec::new(),
+            ..read.item.clone()
+        };
+        let json = serde_json::to_string(&plain).unwrap();
+        assert!(!json.contains("accepted"), "{json}");
+        assert_eq!(serde_json::from_str::<ItemRecord>(&json).unwrap(), plain);
     }
 
     fn embedded_fixture(name: &str) -> Vec<u8> {

@@ -7,13 +7,59 @@ use std::path::Path;
 use crate::error::{CollectionError, MAX_SIDECAR_BYTES, MAX_TEXT_LINE_BYTES};
 use crate::item::SidecarKind;
 
-pub use crate::xmp::parse_xmp;
+pub use crate::xmp::{
+    parse_xmp, parse_xmp_marked, ACCEPTED_PROPERTY, TAGWEAVE_XMP_NAMESPACE, TAGWEAVE_XMP_PREFIX,
+};
+
+/// The comment that marks the tags of a plain-text sidecar line as suggestions a person
+/// accepted (`sea  # accepted suggestion`). A comment, because every reader of the format
+/// already drops comments, so the file stays a plain tag list; on the tag's own line, so the
+/// mark goes wherever a person moves, sorts or deletes that line.
+pub const ACCEPTED_MARK: &str = "accepted suggestion";
+
+/// A sidecar's tags, and which of them it marks as suggestions a person accepted (the
+/// rest a person wrote).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct SidecarTags {
+    /// Normalised, de-duplicated, in file order.
+    pub tags: Vec<String>,
+    /// The tags of `tags` that the file marks, and nowhere carries unmarked.
+    pub accepted: Vec<String>,
+}
 
 /// Tags of a plain-text sidecar: one per line, commas also separate, `#` comments out the
 /// rest of the line. A leading byte-order mark is the file's and is skipped; one anywhere
 /// else is dropped from its tag by [`normalize_tag`](crate::normalize_tag).
 pub fn parse_text(text: &str) -> Vec<String> {
     dedup_normalized(text_spellings(text))
+}
+
+/// Tags of a plain-text sidecar (as [`parse_text`]) and those that only lines marked with
+/// [`ACCEPTED_MARK`] carry.
+pub fn parse_text_marked(text: &str) -> SidecarTags {
+    let body = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let (mut marked, mut plain) = (Vec::new(), Vec::new());
+    for line in body.lines() {
+        let (content, comment) = line.split_once('#').unwrap_or((line, ""));
+        if is_accepted_mark(comment) {
+            marked.extend(content.split(','));
+        } else {
+            plain.extend(content.split(','));
+        }
+    }
+    let plain: HashSet<String> = dedup_normalized(plain).into_iter().collect();
+    SidecarTags {
+        tags: parse_text(text),
+        accepted: dedup_normalized(marked)
+            .into_iter()
+            .filter(|tag| !plain.contains(tag))
+            .collect(),
+    }
+}
+
+/// Whether a line's comment (the text after its first `#`) is [`ACCEPTED_MARK`], in any case.
+pub fn is_accepted_mark(comment: &str) -> bool {
+    comment.trim().eq_ignore_ascii_case(ACCEPTED_MARK)
 }
 
 /// The tags of a plain-text sidecar as written (each piece [`parse_text`] reads, trimmed, in
@@ -33,7 +79,7 @@ pub fn text_spellings(text: &str) -> Vec<&str> {
 
 /// Reads and parses one sidecar, refusing files over [`MAX_SIDECAR_BYTES`] and (plain text)
 /// lines over [`MAX_TEXT_LINE_BYTES`]. Every error names the file.
-pub fn read_sidecar(path: &Path, kind: SidecarKind) -> Result<Vec<String>, CollectionError> {
+pub fn read_sidecar(path: &Path, kind: SidecarKind) -> Result<SidecarTags, CollectionError> {
     read_limited(path)
         .and_then(|bytes| match kind {
             SidecarKind::Text => {
@@ -46,9 +92,9 @@ pub fn read_sidecar(path: &Path, kind: SidecarKind) -> Result<Vec<String>, Colle
                         limit: MAX_TEXT_LINE_BYTES,
                     });
                 }
-                utf8_or_line_error(&bytes).map(parse_text)
+                utf8_or_line_error(&bytes).map(parse_text_marked)
             }
-            SidecarKind::Xmp => parse_xmp(&bytes),
+            SidecarKind::Xmp => parse_xmp_marked(&bytes),
         })
         .map_err(|problem| CollectionError::Sidecar {
             path: path.to_path_buf(),
@@ -132,7 +178,7 @@ mod tests {
         let without = dir.path().join("without.txt");
         std::fs::write(&with, b"\xEF\xBB\xBFharbour\r\nboats\r\n").unwrap();
         std::fs::write(&without, b"harbour\nboats\n").unwrap();
-        let read = |p: &Path| read_sidecar(p, SidecarKind::Text).unwrap();
+        let read = |p: &Path| read_sidecar(p, SidecarKind::Text).unwrap().tags;
         assert_eq!(read(&with), ["harbour", "boats"]);
         assert_eq!(read(&with), read(&without));
     }
@@ -176,7 +222,10 @@ mod tests {
 
         // Exactly at the limit is still accepted.
         std::fs::write(&long, vec![b'a'; MAX_TEXT_LINE_BYTES]).unwrap();
-        assert_eq!(read_sidecar(&long, SidecarKind::Text).unwrap().len(), 1);
+        assert_eq!(
+            read_sidecar(&long, SidecarKind::Text).unwrap().tags.len(),
+            1
+        );
     }
 
     #[test]
@@ -186,12 +235,28 @@ mod tests {
         assert!(err.to_string().contains("gone.txt"));
     }
 
+    #[test]
+    fn marked_lines_are_accepted_suggestions_and_still_plain_tags() {
+        let text = "# tags, one per line\nHarbour\nSea  # accepted suggestion\n\
+                    boats, night-sky # Accepted Suggestion\r\nfog # looked again in 2024\n";
+        let read = parse_text_marked(text);
+        assert_eq!(read.tags, parse_text(text));
+        assert_eq!(read.tags, ["harbour", "sea", "boats", "night-sky", "fog"]);
+        assert_eq!(read.accepted, ["sea", "boats", "night-sky"]);
+        // A person writing the tag again on a line of their own makes it theirs.
+        let claimed = parse_text_marked("sea # accepted suggestion\nSea\n");
+        assert_eq!(claimed.tags, ["sea"]);
+        assert!(claimed.accepted.is_empty());
+    }
+
     proptest! {
         #[test]
         fn parse_text_never_panics(text in any::<String>()) {
             for tag in parse_text(&text) {
                 prop_assert!(!tag.contains(',') && !tag.contains('#') && !tag.contains('\n'));
             }
+            let read = parse_text_marked(&text);
+            prop_assert!(read.accepted.iter().all(|t| read.tags.contains(t)));
         }
     }
 }

@@ -1,4 +1,5 @@
-//! Keywords from an XMP packet (ISO 16684-1): the items of the array in `dc:subject`.
+//! Keywords from an XMP packet (ISO 16684-1): the items of the array in `dc:subject`, and
+//! which of them tagweave's own property marks as suggestions a person accepted.
 //!
 //! Names are matched by namespace URI, never by prefix, because any prefix may be bound to
 //! any URI. Nothing declared in a DTD is ever expanded: a packet with a DOCTYPE is refused,
@@ -9,15 +10,27 @@ use quick_xml::name::ResolveResult;
 use quick_xml::NsReader;
 
 use crate::error::CollectionError;
-use crate::sidecar::{dedup_normalized, utf8_or_line_error};
+use crate::sidecar::{dedup_normalized, utf8_or_line_error, SidecarTags};
 
 const DC: &[u8] = b"http://purl.org/dc/elements/1.1/";
 const RDF: &[u8] = b"http://www.w3.org/1999/02/22-rdf-syntax-ns#";
 
+/// The namespace of tagweave's own XMP properties. The `.invalid` top-level name is reserved
+/// never to resolve (RFC 2606), so the URI can belong to no one else.
+pub const TAGWEAVE_XMP_NAMESPACE: &str = "https://tagweave.invalid/xmp/1.0/";
+/// The prefix written with [`TAGWEAVE_XMP_NAMESPACE`] (readers match the URI, not the prefix).
+pub const TAGWEAVE_XMP_PREFIX: &str = "tagweave";
+/// tagweave's property (an `rdf:Bag`, beside `dc:subject`) listing the keywords that were
+/// suggestions a person accepted; every other keyword of `dc:subject` is a person's own.
+pub const ACCEPTED_PROPERTY: &str = "acceptedSuggestions";
+
 /// Where an open element sits relative to the keyword array.
 #[derive(Clone, Copy, PartialEq, Eq)]
 enum Frame {
+    /// `dc:subject`.
     Subject,
+    /// tagweave's [`ACCEPTED_PROPERTY`].
+    Accepted,
     /// `rdf:Bag` (or `rdf:Seq`/`rdf:Alt`, accepted although keywords should be a bag).
     Array,
     /// `rdf:li`: its text is a keyword, unless it carries an `rdf:value` (qualified form).
@@ -37,12 +50,19 @@ struct ItemText {
 
 /// Keywords of the packet, normalised and de-duplicated in document order.
 pub fn parse_xmp(bytes: &[u8]) -> Result<Vec<String>, CollectionError> {
+    parse_xmp_marked(bytes).map(|read| read.tags)
+}
+
+/// Keywords of the packet (as [`parse_xmp`]) and those of them that tagweave's
+/// [`ACCEPTED_PROPERTY`] lists as accepted suggestions.
+pub fn parse_xmp_marked(bytes: &[u8]) -> Result<SidecarTags, CollectionError> {
     let text = utf8_or_line_error(bytes)?;
     let mut parser = Parser {
         reader: NsReader::from_str(text.strip_prefix('\u{feff}').unwrap_or(text)),
         stack: Vec::new(),
         item: ItemText::default(),
         keywords: Vec::new(),
+        marks: Vec::new(),
         root_closed: false,
     };
     loop {
@@ -57,13 +77,13 @@ pub fn parse_xmp(bytes: &[u8]) -> Result<Vec<String>, CollectionError> {
             }
             Event::Empty(start) => {
                 if parser.open(&start)? == Frame::Item {
-                    parser.keywords.push(std::mem::take(&mut parser.item));
+                    parser.item_done();
                 }
                 parser.root_closed |= parser.stack.is_empty();
             }
             Event::End(_) => {
                 if parser.stack.pop() == Some(Frame::Item) {
-                    parser.keywords.push(std::mem::take(&mut parser.item));
+                    parser.item_done();
                 }
                 parser.root_closed |= parser.stack.is_empty();
             }
@@ -90,11 +110,15 @@ pub fn parse_xmp(bytes: &[u8]) -> Result<Vec<String>, CollectionError> {
     if !parser.root_closed {
         return Err(parser.malformed("no element at all"));
     }
-    let texts = parser
-        .keywords
+    let texts = |items: Vec<ItemText>| {
+        dedup_normalized(items.into_iter().map(|k| k.value.unwrap_or(k.direct)))
+    };
+    let tags = texts(parser.keywords);
+    let accepted = texts(parser.marks)
         .into_iter()
-        .map(|k| k.value.unwrap_or(k.direct));
-    Ok(dedup_normalized(texts))
+        .filter(|tag| tags.contains(tag))
+        .collect();
+    Ok(SidecarTags { tags, accepted })
 }
 
 struct Parser<'i> {
@@ -102,10 +126,23 @@ struct Parser<'i> {
     stack: Vec<Frame>,
     item: ItemText,
     keywords: Vec<ItemText>,
+    /// Items of tagweave's list of accepted suggestions.
+    marks: Vec<ItemText>,
     root_closed: bool,
 }
 
 impl Parser<'_> {
+    /// Files the item just closed under the property it belongs to.
+    fn item_done(&mut self) {
+        let item = std::mem::take(&mut self.item);
+        let in_marks = self.stack.iter().any(|f| *f == Frame::Accepted);
+        if in_marks {
+            self.marks.push(item);
+        } else {
+            self.keywords.push(item);
+        }
+    }
+
     /// Checks a start (or empty) tag and says what it is; the caller decides whether to push it.
     fn open(&mut self, start: &BytesStart) -> Result<Frame, CollectionError> {
         if self.root_closed && self.stack.is_empty() {
@@ -191,7 +228,14 @@ impl Parser<'_> {
 fn classify(parent: Option<Frame>, ns: Option<&[u8]>, local: &[u8]) -> Frame {
     match (parent, ns, local) {
         (_, Some(DC), b"subject") => Frame::Subject,
-        (Some(Frame::Subject), Some(RDF), b"Bag" | b"Seq" | b"Alt") => Frame::Array,
+        (_, Some(ns), local)
+            if ns == TAGWEAVE_XMP_NAMESPACE.as_bytes() && local == ACCEPTED_PROPERTY.as_bytes() =>
+        {
+            Frame::Accepted
+        }
+        (Some(Frame::Subject | Frame::Accepted), Some(RDF), b"Bag" | b"Seq" | b"Alt") => {
+            Frame::Array
+        }
         (Some(Frame::Array), Some(RDF), b"li") => Frame::Item,
         (Some(Frame::Item), Some(RDF), b"Description") => Frame::ItemResource,
         (Some(Frame::Item | Frame::ItemResource), Some(RDF), b"value") => Frame::Value,
@@ -240,6 +284,34 @@ mod tests {
     #[test]
     fn reads_the_specification_layout() {
         assert_eq!(keywords(SPEC_PACKET), ["harbour", "fishing-boats"]);
+    }
+
+    #[test]
+    fn accepted_suggestions_are_read_by_namespace_and_stay_keywords() {
+        // Any prefix may be bound to the namespace; a mark for a keyword that dc:subject does
+        // not carry marks nothing.
+        let packet = r#"<rdf:RDF xmlns:rdf="http://www.w3.org/1999/02/22-rdf-syntax-ns#"
+            xmlns:dc="http://purl.org/dc/elements/1.1/"
+            xmlns:tw2="https://tagweave.invalid/xmp/1.0/">
+          <rdf:Description rdf:about="">
+            <dc:subject><rdf:Bag><rdf:li>Harbour</rdf:li><rdf:li>Sea</rdf:li></rdf:Bag></dc:subject>
+            <tw2:acceptedSuggestions><rdf:Bag><rdf:li>sea</rdf:li><rdf:li>fog</rdf:li>
+            </rdf:Bag></tw2:acceptedSuggestions>
+          </rdf:Description></rdf:RDF>"#;
+        let read = parse_xmp_marked(packet.as_bytes()).unwrap();
+        assert_eq!(read.tags, ["harbour", "sea"]);
+        assert_eq!(read.accepted, ["sea"]);
+        assert_eq!(keywords(packet), read.tags);
+        // The same local name in another namespace is not ours.
+        let foreign = packet.replace("https://tagweave.invalid/xmp/1.0/", "urn:other:1");
+        assert!(parse_xmp_marked(foreign.as_bytes())
+            .unwrap()
+            .accepted
+            .is_empty());
+        assert!(parse_xmp_marked(SPEC_PACKET.as_bytes())
+            .unwrap()
+            .accepted
+            .is_empty());
     }
 
     #[test]

@@ -724,6 +724,7 @@ pub(crate) mod tests {
             content_hash: String::new(),
             sidecars: vec![],
             tags: strings(tags),
+            accepted: Vec::new(),
         }
     }
 

@@ -743,6 +743,7 @@ impl App {
             } else {
                 vec![spelling.to_string()]
             },
+            ..TagChange::default()
         };
         let mut notes_by_id = self.notes();
         if let Some(link) = self.linked_sidecar(item) {

@@ -145,6 +145,7 @@ mod tests {
             content_hash: hash.into(),
             sidecars: Vec::new(),
             tags: Vec::new(),
+            accepted: Vec::new(),
         }
     }
 

@@ -13,6 +13,7 @@ fn item(rel_path: &str, tags: &[&str]) -> ItemRecord {
         content_hash: "00".into(),
         sidecars: vec![],
         tags: tags.iter().map(|t| t.to_string()).collect(),
+        accepted: Vec::new(),
     }
 }
 

@@ -5,7 +5,9 @@ use std::collections::{BTreeSet, HashMap, HashSet};
 use std::path::{Path, PathBuf};
 use std::sync::OnceLock;
 
-use tagweave_collection::sidecar::{parse_text, parse_xmp, read_sidecar, text_spellings};
+use tagweave_collection::sidecar::{
+    parse_text_marked, parse_xmp_marked, read_sidecar, text_spellings, SidecarTags,
+};
 use tagweave_collection::{
     crawl, normalize_tag, Candidate, CollectionError, CrawlOptions, SidecarKind, MAX_SIDECAR_BYTES,
     MAX_TEXT_LINE_BYTES,
@@ -16,6 +18,14 @@ use crate::sheet::TagChange;
 use crate::spelling::Spellings;
 use crate::text::{edit_text, text_problem, NEW_FILE_HEADER};
 use crate::xmp::{edit_xmp, xmp_problem, xmp_spellings};
+
+/// A tag to write into a sidecar.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub(crate) struct NewTag {
+    pub(crate) spelling: String,
+    /// A suggestion a person accepted (marked so in the file), not a tag they wrote.
+    pub(crate) suggested: bool,
+}
 
 /// New contents for one sidecar file, not yet written.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -34,6 +44,8 @@ pub struct SidecarEdit {
     pub after: Vec<u8>,
     /// Spellings written into this file.
     pub added: Vec<String>,
+    /// Of `added`, the suggestions a person accepted (marked as such in the file).
+    pub marked: Vec<String>,
     /// Normalised tags taken out of this file.
     pub removed: Vec<String>,
 }
@@ -162,7 +174,7 @@ impl Planner {
             let (bytes, tags) = read_current(&path, sidecar.kind)?;
             current.push((sidecar, path, bytes, tags));
         }
-        let carried: HashSet<&String> = current.iter().flat_map(|c| &c.3).collect();
+        let carried: HashSet<&String> = current.iter().flat_map(|c| &c.3.tags).collect();
 
         let mut plan = PicturePlan {
             picture: change.picture.clone(),
@@ -170,16 +182,18 @@ impl Planner {
             already_present: Vec::new(),
             not_present: Vec::new(),
         };
-        let mut add: Vec<(String, String)> = Vec::new();
-        for typed in &change.add {
+        // (normal, spelling, suggested); a tag both typed and accepted is the person's.
+        let mut add: Vec<(String, String, bool)> = Vec::new();
+        let typed = change.add.iter().map(|t| (t, false));
+        for (typed, suggested) in typed.chain(change.accept.iter().map(|t| (t, true))) {
             let Some(normal) = normalize_tag(typed) else {
                 continue;
             };
             if carried.contains(&normal) {
                 push_unique(&mut plan.already_present, normal);
-            } else if !add.iter().any(|(n, _)| *n == normal) {
-                if let Some(written) = self.spellings().to_write(typed) {
-                    add.push(written);
+            } else if !add.iter().any(|(n, _, _)| *n == normal) {
+                if let Some((normal, written)) = self.spellings().to_write(typed) {
+                    add.push((normal, written, suggested));
                 }
             }
         }
@@ -197,12 +211,24 @@ impl Planner {
         if add.is_empty() && remove.is_empty() {
             return Ok(plan);
         }
-        let spellings: Vec<String> = add.iter().map(|(_, s)| s.clone()).collect();
+        let spellings: Vec<String> = add.iter().map(|(_, s, _)| s.clone()).collect();
+        let marked: Vec<String> = add
+            .iter()
+            .filter(|(_, _, suggested)| *suggested)
+            .map(|(_, s, _)| s.clone())
+            .collect();
+        let new_tags: Vec<NewTag> = add
+            .iter()
+            .map(|(_, spelling, suggested)| NewTag {
+                spelling: spelling.clone(),
+                suggested: *suggested,
+            })
+            .collect();
 
         if current.is_empty() {
             let (sidecar_rel, path) = self.new_sidecar_name(candidate)?;
             let mut after = NEW_FILE_HEADER.to_string();
-            after.push_str(&edit_text("", &spellings, &HashSet::new()));
+            after.push_str(&edit_text("", &new_tags, &HashSet::new()));
             let edit = SidecarEdit {
                 picture: change.picture.clone(),
                 sidecar: path,
@@ -212,15 +238,17 @@ impl Planner {
                 before: Vec::new(),
                 after: after.into_bytes(),
                 added: spellings,
+                marked,
                 removed: Vec::new(),
             };
-            check_and_verify(&edit, &[], &add)?;
+            check_and_verify(&edit, &SidecarTags::default(), &add)?;
             plan.edits.push(edit);
             return Ok(plan);
         }
 
         for (sidecar, path, bytes, tags) in current {
             let removed: Vec<String> = tags
+                .tags
                 .iter()
                 .filter(|t| remove.contains(*t))
                 .cloned()
@@ -241,9 +269,9 @@ impl Planner {
             }
             let before = String::from_utf8_lossy(&bytes);
             let after = match sidecar.kind {
-                SidecarKind::Text => edit_text(&before, &spellings, &here_remove),
+                SidecarKind::Text => edit_text(&before, &new_tags, &here_remove),
                 SidecarKind::Xmp => {
-                    edit_xmp(&before, &spellings, &here_remove).map_err(|problem| {
+                    edit_xmp(&before, &new_tags, &here_remove).map_err(|problem| {
                         WritebackError::XmpNotEditable {
                             path: path.clone(),
                             problem,
@@ -260,6 +288,7 @@ impl Planner {
                 before: bytes,
                 after: after.into_bytes(),
                 added: spellings.clone(),
+                marked: marked.clone(),
                 removed,
             };
             check_and_verify(&edit, &tags, &add)?;
@@ -308,7 +337,7 @@ impl Planner {
 
 /// The sidecar's bytes and tags, read with the collection's own reader (so a broken sidecar
 /// fails with its usual message and is never written), from one consistent read.
-fn read_current(path: &Path, kind: SidecarKind) -> Result<(Vec<u8>, Vec<String>), WritebackError> {
+fn read_current(path: &Path, kind: SidecarKind) -> Result<(Vec<u8>, SidecarTags), WritebackError> {
     let tags = read_sidecar(path, kind)?;
     let bytes = std::fs::read(path).map_err(WritebackError::io(path, "read"))?;
     match parse_bytes(path, &bytes, kind) {
@@ -319,13 +348,13 @@ fn read_current(path: &Path, kind: SidecarKind) -> Result<(Vec<u8>, Vec<String>)
     }
 }
 
-/// The tags the collection would read from these bytes, with the same limits as
-/// [`read_sidecar`], so a file that could not be read back is never written.
+/// The tags (and accepted-suggestion marks) the collection would read from these bytes, with
+/// the same limits as [`read_sidecar`], so a file that could not be read back is never written.
 pub(crate) fn parse_bytes(
     path: &Path,
     bytes: &[u8],
     kind: SidecarKind,
-) -> Result<Vec<String>, CollectionError> {
+) -> Result<SidecarTags, CollectionError> {
     let parsed = if bytes.len() as u64 > MAX_SIDECAR_BYTES {
         Err(CollectionError::TooLarge {
             size: bytes.len() as u64,
@@ -333,7 +362,7 @@ pub(crate) fn parse_bytes(
         })
     } else {
         match kind {
-            SidecarKind::Xmp => parse_xmp(bytes),
+            SidecarKind::Xmp => parse_xmp_marked(bytes),
             SidecarKind::Text => match bytes
                 .split(|&b| b == b'\n')
                 .position(|l| l.len() > MAX_TEXT_LINE_BYTES)
@@ -342,14 +371,14 @@ pub(crate) fn parse_bytes(
                     line: line + 1,
                     limit: MAX_TEXT_LINE_BYTES,
                 }),
-                None => std::str::from_utf8(bytes).map(parse_text).map_err(|e| {
-                    CollectionError::NotUtf8 {
+                None => std::str::from_utf8(bytes)
+                    .map(parse_text_marked)
+                    .map_err(|e| CollectionError::NotUtf8 {
                         line: 1 + bytes[..e.valid_up_to()]
                             .iter()
                             .filter(|&&b| b == b'\n')
                             .count(),
-                    }
-                }),
+                    }),
             },
         }
     };
@@ -360,13 +389,14 @@ pub(crate) fn parse_bytes(
 }
 
 /// Refuses tags the file's format cannot hold, then reads the new bytes back and requires
-/// exactly `before` ∪ added − removed.
+/// exactly `before` ∪ added − removed, and the accepted-suggestion marks of `before` − removed
+/// ∪ the accepted suggestions added.
 fn check_and_verify(
     edit: &SidecarEdit,
-    before: &[String],
-    add: &[(String, String)],
+    before: &SidecarTags,
+    add: &[(String, String, bool)],
 ) -> Result<(), WritebackError> {
-    for (_, spelling) in add {
+    for (_, spelling, _) in add {
         let problem = if spelling.chars().any(char::is_control) {
             Some("it contains a control character (a line break or tab, perhaps); retype the tag")
         } else {
@@ -383,10 +413,17 @@ fn check_and_verify(
             });
         }
     }
-    let mut expected: BTreeSet<&str> = before.iter().map(String::as_str).collect();
-    expected.extend(add.iter().map(|(normal, _)| normal.as_str()));
+    let mut expected: BTreeSet<&str> = before.tags.iter().map(String::as_str).collect();
+    expected.extend(add.iter().map(|(normal, _, _)| normal.as_str()));
+    let mut expected_marks: BTreeSet<&str> = before.accepted.iter().map(String::as_str).collect();
+    expected_marks.extend(
+        add.iter()
+            .filter(|a| a.2)
+            .map(|(normal, _, _)| normal.as_str()),
+    );
     for gone in &edit.removed {
         expected.remove(gone.as_str());
+        expected_marks.remove(gone.as_str());
     }
     let unverified = |problem: String| WritebackError::Unverified {
         path: edit.sidecar.clone(),
@@ -394,7 +431,7 @@ fn check_and_verify(
     };
     let read_back = parse_bytes(&edit.sidecar, &edit.after, edit.kind)
         .map_err(|e| unverified(format!("it would not read back: {e}")))?;
-    let got: BTreeSet<&str> = read_back.iter().map(String::as_str).collect();
+    let got: BTreeSet<&str> = read_back.tags.iter().map(String::as_str).collect();
     if got != expected {
         let missing: Vec<&str> = expected.difference(&got).copied().collect();
         let extra: Vec<&str> = got.difference(&expected).copied().collect();
@@ -403,6 +440,14 @@ fn check_and_verify(
              (rdf:value) is never edited",
             missing.join(", "),
             extra.join(", ")
+        )));
+    }
+    let got_marks: BTreeSet<&str> = read_back.accepted.iter().map(String::as_str).collect();
+    if got_marks != expected_marks {
+        return Err(unverified(format!(
+            "its accepted suggestions would read back as [{}], not [{}]",
+            got_marks.into_iter().collect::<Vec<_>>().join(", "),
+            expected_marks.into_iter().collect::<Vec<_>>().join(", ")
         )));
     }
     Ok(())

@@ -89,11 +89,15 @@ pub struct SheetRow {
 }
 
 /// The tags to add to and remove from one picture.
-#[derive(Debug, Clone, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub struct TagChange {
     pub picture: String,
-    /// Spellings as in the sheet; one per normalised tag, sorted by normalised tag.
+    /// Tags a person wrote. Spellings as in the sheet; one per normalised tag, sorted by
+    /// normalised tag.
     pub add: Vec<String>,
+    /// Suggestions a person accepted: added like `add`, and marked in the sidecar as accepted
+    /// suggestions. Spellings as in the sheet; one per normalised tag, sorted by normalised tag.
+    pub accept: Vec<String>,
     /// Spellings as in the sheet; one per normalised tag, sorted by normalised tag.
     pub remove: Vec<String>,
 }
@@ -325,8 +329,9 @@ pub fn parse_sheet(path: &Path, bytes: &[u8]) -> Result<Vec<SheetRow>, Writeback
     Ok(rows)
 }
 
-/// Groups the decided rows per picture: accepted suggestions are added, disputed tags marked
-/// `remove` are removed, everything else changes nothing. Sorted by picture, each list sorted
+/// Groups the decided rows per picture: accepted suggestions are added (marked as such),
+/// tags typed into `to-tag` rows are added (a person's own), disputed tags marked `remove`
+/// are removed, everything else changes nothing. Sorted by picture, each list sorted
 /// and de-duplicated under [`normalize_tag`]. A tag both kept/added and removed for one picture
 /// is an error, never guessed at.
 pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, WritebackError> {
@@ -334,6 +339,7 @@ pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, Writeback
     struct Wish {
         spelling: String,
         add: bool,
+        accept: bool,
         keep: bool,
         remove: bool,
     }
@@ -357,7 +363,8 @@ pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, Writeback
                 ..Wish::default()
             });
         match (row.kind, row.decision) {
-            (RowKind::Suggested | RowKind::ToTag, Decision::Accept) => wish.add = true,
+            (RowKind::Suggested, Decision::Accept) => wish.accept = true,
+            (RowKind::ToTag, Decision::Accept) => wish.add = true,
             (RowKind::Disputed, Decision::Accept) => wish.keep = true,
             (RowKind::Disputed, Decision::Remove) => wish.remove = true,
             (RowKind::Suggested, Decision::Remove) => {
@@ -373,23 +380,25 @@ pub fn changes_from_sheet(rows: &[SheetRow]) -> Result<Vec<TagChange>, Writeback
     for (picture, wishes) in pictures {
         let mut change = TagChange {
             picture: picture.to_string(),
-            add: Vec::new(),
-            remove: Vec::new(),
+            ..TagChange::default()
         };
         for (normal, wish) in wishes {
-            if wish.remove && (wish.add || wish.keep) {
+            if wish.remove && (wish.add || wish.accept || wish.keep) {
                 return Err(WritebackError::Conflict {
                     picture: picture.to_string(),
                     tag: normal,
                 });
             }
+            // A tag a person typed is theirs, even where it was also suggested.
             if wish.add {
                 change.add.push(wish.spelling);
+            } else if wish.accept {
+                change.accept.push(wish.spelling);
             } else if wish.remove {
                 change.remove.push(wish.spelling);
             }
         }
-        if !change.add.is_empty() || !change.remove.is_empty() {
+        if !change.add.is_empty() || !change.accept.is_empty() || !change.remove.is_empty() {
             changes.push(change);
         }
     }
@@ -783,20 +792,31 @@ mod tests {
             row("a.png", "fog", Suggested, Reject),
             row("a.png", "mist", Suggested, Undecided),
             row("c.png", "old  town", Disputed, Remove),
+            row("d.png", "pier", ToTag, Accept),
+            row("d.png", "Sea", Suggested, Accept),
+            row("d.png", "sea", ToTag, Accept),
         ];
-        // by hand: y/n on disputed rows change nothing, so a.png has no change at all.
+        // by hand: y/n on disputed rows change nothing, so a.png has no change at all; a
+        // suggestion accepted is an accepted suggestion, a tag typed in is a person's own,
+        // and typing a suggested tag makes it the person's.
         assert_eq!(
             changes_from_sheet(&rows).unwrap(),
             [
                 TagChange {
                     picture: "b.png".into(),
-                    add: vec!["kelp".into(), "Zebra".into()],
+                    add: vec![],
+                    accept: vec!["kelp".into(), "Zebra".into()],
                     remove: vec!["gull".into()],
                 },
                 TagChange {
                     picture: "c.png".into(),
-                    add: vec![],
                     remove: vec!["old  town".into()],
+                    ..TagChange::default()
+                },
+                TagChange {
+                    picture: "d.png".into(),
+                    add: vec!["pier".into(), "Sea".into()],
+                    ..TagChange::default()
                 },
             ]
         );

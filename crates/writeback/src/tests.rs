@@ -33,6 +33,7 @@ fn change(picture: &str, add: &[&str], remove: &[&str]) -> TagChange {
         picture: picture.into(),
         add: add.iter().map(|t| t.to_string()).collect(),
         remove: remove.iter().map(|t| t.to_string()).collect(),
+        ..TagChange::default()
     }
 }
 
@@ -44,18 +45,22 @@ fn apply(root: &Path, change: &TagChange) -> PicturePlan {
 
 /// The picture's tags as a scan reads them: crawl, then the collection's item reader.
 fn tags_of(root: &Path, picture: &str) -> BTreeSet<String> {
+    record_of(root, picture).tags.into_iter().collect()
+}
+
+/// The picture's tags that a scan reads as accepted suggestions.
+fn accepted_of(root: &Path, picture: &str) -> BTreeSet<String> {
+    record_of(root, picture).accepted.into_iter().collect()
+}
+
+fn record_of(root: &Path, picture: &str) -> tagweave_collection::ItemRecord {
     let found = crawl(root, &CrawlOptions::default()).unwrap();
     let candidate = found
         .candidates
         .iter()
         .find(|c| c.rel_path == picture)
         .unwrap();
-    read_item(root, candidate)
-        .unwrap()
-        .item
-        .tags
-        .into_iter()
-        .collect()
+    read_item(root, candidate).unwrap().item
 }
 
 fn normals(tags: &[String]) -> BTreeSet<String> {
@@ -283,9 +288,9 @@ fn text_and_xmp_beside_one_picture_stay_in_step() {
     let plan = apply(root, &change("a.png", &["dawn", "GULL"], &["kelp"]));
     assert_eq!(plan.already_present, ["gull"]);
     assert_eq!(plan.edits.len(), 2);
-    assert_eq!(read_sidecar(&text, SidecarKind::Text).unwrap(), ["dawn"]);
+    assert_eq!(read_sidecar(&text, SidecarKind::Text).unwrap().tags, ["dawn"]);
     assert_eq!(
-        read_sidecar(&xmp, SidecarKind::Xmp).unwrap(),
+        read_sidecar(&xmp, SidecarKind::Xmp).unwrap().tags,
         ["gull", "dawn"]
     );
     assert_eq!(read(&text), "dawn\n");
@@ -452,9 +457,11 @@ fn tags(max: usize) -> impl Strategy<Value = Vec<String>> {
 }
 
 /// Applies `change`, then checks every promise: nothing lost, every accepted tag there,
-/// exactly before ∪ added − removed, and a second application changes nothing.
+/// exactly before ∪ added − removed, accepted suggestions marked as such and no other tag
+/// newly marked, and a second application changes nothing.
 fn check_apply(root: &Path, picture: &str, change: &TagChange) -> Result<(), TestCaseError> {
     let before = tags_of(root, picture);
+    let marked_before = accepted_of(root, picture);
     let snapshot = |root: &Path| -> Vec<(PathBuf, Vec<u8>)> {
         let mut files: Vec<_> = std::fs::read_dir(root)
             .unwrap()
@@ -479,7 +486,9 @@ fn check_apply(root: &Path, picture: &str, change: &TagChange) -> Result<(), Tes
     };
     commit_plan(&plan).map_err(|e| TestCaseError::fail(e.to_string()))?;
     let after = tags_of(root, picture);
-    let added = normals(&change.add);
+    let typed = normals(&change.add);
+    let accepted = normals(&change.accept);
+    let added: BTreeSet<String> = typed.union(&accepted).cloned().collect();
     let removed = normals(&change.remove);
     for tag in before.difference(&removed) {
         prop_assert!(after.contains(tag), "lost {}", tag);
@@ -493,6 +502,12 @@ fn check_apply(root: &Path, picture: &str, change: &TagChange) -> Result<(), Tes
         .cloned()
         .collect();
     prop_assert_eq!(&after, &expected);
+    let expected_marks: BTreeSet<String> = marked_before
+        .difference(&removed)
+        .chain(accepted.iter().filter(|t| !before.contains(*t) && !typed.contains(*t)))
+        .cloned()
+        .collect();
+    prop_assert_eq!(accepted_of(root, picture), expected_marks);
     let again = plan_edit(root, change).map_err(|e| TestCaseError::fail(e.to_string()))?;
     prop_assert!(
         again.is_empty(),
@@ -512,9 +527,13 @@ fn change_for(before: &[String], add: Vec<String>, picks: &[bool]) -> TagChange 
         .map(|(t, _)| t.to_uppercase())
         .filter(|t| normalize_tag(t).is_some_and(|n| !add_normals.contains(&n)))
         .collect();
+    // Every other new tag is an accepted suggestion, the rest typed by a person.
+    let (accept, add): (Vec<(usize, String)>, Vec<(usize, String)>) =
+        add.into_iter().enumerate().partition(|(i, _)| i % 2 == 1);
     TagChange {
         picture: "p.png".into(),
-        add,
+        add: add.into_iter().map(|(_, t)| t).collect(),
+        accept: accept.into_iter().map(|(_, t)| t).collect(),
         remove,
     }
 }
@@ -698,4 +717,53 @@ fn the_spelling_most_pictures_use_is_written() {
     // sea: b and c = 2 pictures; Sea: c and d = 2; SEA: a = 1. Tie → "Sea" < "sea".
     let plan = plan_edit(root, &change("e.png", &["sea"], &[])).unwrap();
     assert_eq!(plan.edits[0].added, ["Sea"]);
+}
+
+#[test]
+fn accepted_suggestions_join_the_bag_an_independent_writer_made() {
+    // source: breakwater.xmp written by Exempi 2.6.3 (python-xmp-toolkit 2.1.0) with
+    // dc:subject {Harbour, Sea} and tagweave's accepted-suggestion bag {Sea}
+    // (tests/fixtures/xmp-exempi/README.md).
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path();
+    put(root, "breakwater.jpg", JPEG);
+    let before = exempi_fixture("breakwater.xmp");
+    let sidecar = put(root, "breakwater.xmp", &before);
+    assert_eq!(
+        accepted_of(root, "breakwater.jpg"),
+        ["sea".to_string()].into()
+    );
+    let plan = plan_edit(
+        root,
+        &TagChange {
+            picture: "breakwater.jpg".into(),
+            add: vec!["Pier".into()],
+            accept: vec!["Gulls".into()],
+            remove: vec!["sea".into()],
+        },
+    )
+    .unwrap();
+    assert_eq!(plan.edits[0].marked, ["Gulls"]);
+    commit_plan(&plan).unwrap();
+    // by hand: `Sea` leaves both bags; `Pier` and `Gulls` join dc:subject, `Gulls` alone
+    // joins the accepted bag, each indented like its neighbours; the rest is byte for byte.
+    let expected = String::from_utf8(before)
+        .unwrap()
+        .replace(
+            "     <rdf:li>Harbour</rdf:li>\n     <rdf:li>Sea</rdf:li>\n",
+            "     <rdf:li>Harbour</rdf:li>\n     <rdf:li>Pier</rdf:li>\n     <rdf:li>Gulls</rdf:li>\n",
+        )
+        .replace(
+            "   <tagweave:acceptedSuggestions>\n    <rdf:Bag>\n     <rdf:li>Sea</rdf:li>\n",
+            "   <tagweave:acceptedSuggestions>\n    <rdf:Bag>\n     <rdf:li>Gulls</rdf:li>\n",
+        );
+    assert_eq!(read(&sidecar), expected);
+    assert_eq!(
+        tags_of(root, "breakwater.jpg"),
+        ["harbour", "pier", "gulls"].map(String::from).into()
+    );
+    assert_eq!(
+        accepted_of(root, "breakwater.jpg"),
+        ["gulls".to_string()].into()
+    );
 }

@@ -2,7 +2,10 @@
 
 use std::collections::HashSet;
 
+use tagweave_collection::sidecar::{is_accepted_mark, ACCEPTED_MARK};
 use tagweave_collection::{normalize_tag, MAX_TEXT_LINE_BYTES};
+
+use crate::plan::NewTag;
 
 /// First line of a text sidecar this crate creates. A comment keeps the file from ever
 /// starting with a tag whose first bytes look like a picture signature (a tag "BMX" starts
@@ -24,19 +27,22 @@ pub(crate) fn text_problem(tag: &str) -> Option<&'static str> {
 
 /// The new file contents: lines whose tags are all in `remove` dropped (a line holding other
 /// tags or a comment too keeps those), then one line per tag of `add`, in the file's own
-/// line-ending style, after a final line end if the file lacked one.
+/// line-ending style, after a final line end if the file lacked one. An accepted suggestion's
+/// line ends with the comment `# accepted suggestion` (`sidecar::ACCEPTED_MARK`).
 ///
-/// A dropped line leaves nothing behind, not even an empty line. Should a dropped first
+/// A dropped line leaves nothing behind, not even an empty line or its accepted-suggestion
+/// mark. Should a dropped first
 /// line leave the file starting with text that could pass for a picture signature (a tag
 /// "BMX" starts like a BMP file), the comment of [`NEW_FILE_HEADER`] goes first instead.
-pub(crate) fn edit_text(before: &str, add: &[String], remove: &HashSet<String>) -> String {
+pub(crate) fn edit_text(before: &str, add: &[NewTag], remove: &HashSet<String>) -> String {
     let (bom, body) = match before.strip_prefix('\u{feff}') {
         Some(rest) => ("\u{feff}", rest),
         None => ("", before),
     };
     let newline = line_ending(body);
-    let mut out =
-        String::with_capacity(before.len() + add.iter().map(|t| t.len() + 2).sum::<usize>());
+    let mut out = String::with_capacity(
+        before.len() + add.iter().map(|t| t.spelling.len() + 24).sum::<usize>(),
+    );
     out.push_str(bom);
     let mut dropped_first = false;
     for (index, line) in body.split_inclusive('\n').enumerate() {
@@ -59,7 +65,11 @@ pub(crate) fn edit_text(before: &str, add: &[String], remove: &HashSet<String>) 
             out.push_str(newline);
         }
         for tag in add {
-            out.push_str(tag.trim());
+            out.push_str(tag.spelling.trim());
+            if tag.suggested {
+                out.push_str(" # ");
+                out.push_str(ACCEPTED_MARK);
+            }
             out.push_str(newline);
         }
     }
@@ -112,7 +122,8 @@ fn strip_tags(content: &str, remove: &HashSet<String>) -> Kept {
     }
     let kept: Vec<&str> = pieces.iter().copied().filter(|p| !doomed(p)).collect();
     if kept.iter().all(|p| normalize_tag(p).is_none()) {
-        return if comment.is_empty() {
+        let mark_only = comment.strip_prefix('#').is_some_and(is_accepted_mark);
+        return if comment.is_empty() || mark_only {
             Kept::Nothing
         } else {
             Kept::Rewritten(comment.to_string())
@@ -140,8 +151,46 @@ mod tests {
         tags.iter().map(|t| t.to_string()).collect()
     }
 
-    fn adds(tags: &[&str]) -> Vec<String> {
-        tags.iter().map(|t| t.to_string()).collect()
+    fn adds(tags: &[&str]) -> Vec<NewTag> {
+        tags.iter()
+            .map(|t| NewTag {
+                spelling: t.to_string(),
+                suggested: false,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn accepted_suggestions_carry_their_mark_and_lose_it_with_the_tag() {
+        let add = [
+            NewTag {
+                spelling: "Sea".into(),
+                suggested: true,
+            },
+            NewTag {
+                spelling: "pier".into(),
+                suggested: false,
+            },
+        ];
+        let after = edit_text("harbour\r\n", &add, &set(&[]));
+        // by hand: the file's own line ends; the mark on the accepted suggestion's line only.
+        assert_eq!(after, "harbour\r\nSea # accepted suggestion\r\npier\r\n");
+        let read = tagweave_collection::sidecar::parse_text_marked(&after);
+        assert_eq!(read.tags, ["harbour", "sea", "pier"]);
+        assert_eq!(read.accepted, ["sea"]);
+        // Removing the tag takes its mark along; another comment would stay.
+        assert_eq!(
+            edit_text(&after, &[], &set(&["sea"])),
+            "harbour\r\npier\r\n"
+        );
+        assert_eq!(
+            edit_text(
+                "a # Accepted Suggestion\nb # seen twice\n",
+                &[],
+                &set(&["a", "b"])
+            ),
+            "# seen twice\n"
+        );
     }
 
     #[test]

@@ -1,5 +1,7 @@
 //! Editing the keywords of an XMP packet (`dc:subject`, an `rdf:Bag` of `rdf:li`) by splicing
 //! bytes: new items go in, removed items come out, every other byte stays where it was.
+//! Accepted suggestions also go into tagweave's own bag beside it
+//! (`sidecar::ACCEPTED_PROPERTY`), which is edited the same way.
 //!
 //! Names are matched by namespace URI, as the collection's reader does. Forms this module does
 //! not edit are refused with a reason, never rewritten: a packet marked read-only, a
@@ -15,6 +17,11 @@ use quick_xml::events::{BytesStart, Event};
 use quick_xml::name::{PrefixDeclaration, ResolveResult};
 use quick_xml::NsReader;
 use tagweave_collection::normalize_tag;
+use tagweave_collection::sidecar::{
+    ACCEPTED_PROPERTY, TAGWEAVE_XMP_NAMESPACE, TAGWEAVE_XMP_PREFIX,
+};
+
+use crate::plan::NewTag;
 
 const DC: &[u8] = b"http://purl.org/dc/elements/1.1/";
 const RDF: &[u8] = b"http://www.w3.org/1999/02/22-rdf-syntax-ns#";
@@ -29,11 +36,13 @@ pub(crate) fn xmp_problem(tag: &str) -> Option<&'static str> {
 }
 
 /// The packet with `add` appended to its first keyword array (or a new `dc:subject` in its
-/// first `rdf:Description`) and every plain item that normalises into `remove` taken out.
-/// The error text says why the packet cannot be edited safely.
+/// first `rdf:Description`), the accepted suggestions among them also to tagweave's bag of
+/// accepted suggestions (made the same way when missing), and every plain item that
+/// normalises into `remove` taken out of both. The error text says why the packet cannot be
+/// edited safely.
 pub(crate) fn edit_xmp(
     before: &str,
-    add: &[String],
+    add: &[NewTag],
     remove: &HashSet<String>,
 ) -> Result<String, String> {
     let (bom, body) = match before.strip_prefix('\u{feff}') {
@@ -59,8 +68,24 @@ pub(crate) fn edit_xmp(
             }
         }
     }
-    if !add.is_empty() {
-        edits.push(addition(&packet, &layout, add)?);
+    let mut new_properties = Vec::new();
+    let all: Vec<&str> = add.iter().map(|t| t.spelling.as_str()).collect();
+    let suggested: Vec<&str> = add
+        .iter()
+        .filter(|t| t.suggested)
+        .map(|t| t.spelling.as_str())
+        .collect();
+    for (which, spellings) in [(Which::Keywords, all), (Which::Accepted, suggested)] {
+        if spellings.is_empty() {
+            continue;
+        }
+        match addition(&packet, &layout, which, &spellings)? {
+            Insert::At(range, text) => edits.push((range, text)),
+            Insert::NewProperty(block) => new_properties.extend(block),
+        }
+    }
+    if !new_properties.is_empty() {
+        edits.push(into_first_description(&packet, &layout, &new_properties)?);
     }
     splice(body, bom, edits)
 }
@@ -76,6 +101,7 @@ pub(crate) fn xmp_spellings(text: &str) -> Vec<String> {
     packet
         .subjects
         .iter()
+        .filter(|s| s.which == Which::Keywords)
         .filter_map(|s| s.array.as_ref())
         .flat_map(|array| &array.items)
         .filter(|item| item.plain)
@@ -85,12 +111,40 @@ pub(crate) fn xmp_spellings(text: &str) -> Vec<String> {
         .collect()
 }
 
-/// Where the new keywords go, and their text.
+/// Which bag of the packet an edit is about.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Which {
+    /// `dc:subject`: the keywords.
+    Keywords,
+    /// tagweave's bag of the keywords that were suggestions a person accepted.
+    Accepted,
+}
+
+impl Which {
+    /// The property's name as messages give it.
+    fn name(self) -> String {
+        match self {
+            Which::Keywords => "dc:subject".to_string(),
+            Which::Accepted => format!("{TAGWEAVE_XMP_PREFIX}:{ACCEPTED_PROPERTY}"),
+        }
+    }
+}
+
+/// Where new items go.
+enum Insert {
+    /// Into the property's existing array.
+    At(Range<usize>, String),
+    /// A whole new property element (lines with their depth), for the first `rdf:Description`.
+    NewProperty(Vec<(usize, String)>),
+}
+
+/// Where the new items of one property go, and their text.
 fn addition(
     packet: &Packet,
     layout: &Layout,
-    add: &[String],
-) -> Result<(Range<usize>, String), String> {
+    which: Which,
+    add: &[&str],
+) -> Result<Insert, String> {
     let items = |li: &str| -> Vec<(usize, String)> {
         add.iter()
             .map(|tag| {
@@ -99,21 +153,21 @@ fn addition(
             })
             .collect()
     };
-    if let Some(subject) = packet.subjects.first() {
+    if let Some(subject) = packet.subjects.iter().find(|s| s.which == which) {
         if let Some(problem) = &subject.problem {
             return Err(problem.clone());
         }
         let Some(array) = &subject.array else {
-            return Err("dc:subject holds no rdf:Bag".into());
+            return Err(format!("{} holds no rdf:Bag", which.name()));
         };
         if array.kind == b"Alt" {
-            return Err(
-                "the keywords are an rdf:Alt (a choice between alternatives), not an rdf:Bag"
-                    .into(),
-            );
+            return Err(format!(
+                "{} is an rdf:Alt (a choice between alternatives), not an rdf:Bag",
+                which.name()
+            ));
         }
         let li = format!("{}li", prefix_of(&array.qname));
-        return Ok(match &array.end {
+        let (range, text) = match &array.end {
             Some(end) => {
                 let indent = array
                     .items
@@ -122,24 +176,42 @@ fn addition(
                 layout.before_close(end.start, indent, &items(&li))
             }
             None => layout.expand_empty(&array.start, &array.qname, &items(&li)),
-        });
+        };
+        return Ok(Insert::At(range, text));
     }
-    if packet.descriptions.iter().any(|d| d.subject_attribute) {
+    if which == Which::Keywords && packet.descriptions.iter().any(|d| d.subject_attribute) {
         return Err("dc:subject is written as an attribute of rdf:Description".into());
     }
     let Some(description) = packet.descriptions.first() else {
-        return Err("there is no rdf:Description inside rdf:RDF to hold dc:subject".into());
+        return Err(format!(
+            "there is no rdf:Description inside rdf:RDF to hold {}",
+            which.name()
+        ));
     };
     let rdf = prefix_of(&description.qname);
-    let (open, close) = match &description.dc_prefix {
-        Some(p) => (format!("<{p}:subject>"), format!("</{p}:subject>")),
-        None => (
-            format!(
-                "<dc:subject xmlns:dc=\"{}\">",
-                std::str::from_utf8(DC).unwrap_or_default()
-            ),
-            "</dc:subject>".to_string(),
+    let (prefix, local, namespace) = match which {
+        Which::Keywords => (&description.dc_prefix, "subject", DC),
+        Which::Accepted => (
+            &description.own_prefix,
+            ACCEPTED_PROPERTY,
+            TAGWEAVE_XMP_NAMESPACE.as_bytes(),
         ),
+    };
+    let (open, close) = match prefix {
+        Some(p) => (format!("<{p}:{local}>"), format!("</{p}:{local}>")),
+        None => {
+            let p = match which {
+                Which::Keywords => "dc",
+                Which::Accepted => TAGWEAVE_XMP_PREFIX,
+            };
+            (
+                format!(
+                    "<{p}:{local} xmlns:{p}=\"{}\">",
+                    std::str::from_utf8(namespace).unwrap_or_default()
+                ),
+                format!("</{p}:{local}>"),
+            )
+        }
     };
     let mut block = vec![(0, open), (1, format!("<{rdf}Bag>"))];
     block.extend(
@@ -149,9 +221,22 @@ fn addition(
     );
     block.push((1, format!("</{rdf}Bag>")));
     block.push((0, close));
+    Ok(Insert::NewProperty(block))
+}
+
+/// New property elements placed at the end of the first `rdf:Description`.
+fn into_first_description(
+    packet: &Packet,
+    layout: &Layout,
+    block: &[(usize, String)],
+) -> Result<(Range<usize>, String), String> {
+    let description = packet
+        .descriptions
+        .first()
+        .ok_or("there is no rdf:Description inside rdf:RDF")?;
     Ok(match &description.end {
-        Some(end) => layout.before_close(end.start, None, &block),
-        None => layout.expand_empty(&description.start, &description.qname, &block),
+        Some(end) => layout.before_close(end.start, None, block),
+        None => layout.expand_empty(&description.start, &description.qname, block),
     })
 }
 
@@ -284,7 +369,9 @@ struct Packet {
     read_only: bool,
 }
 
+/// `dc:subject`, or tagweave's bag of accepted suggestions.
 struct Subject {
+    which: Which,
     array: Option<Array>,
     /// Why new keywords cannot go here.
     problem: Option<String>,
@@ -313,6 +400,8 @@ struct Description {
     end: Option<Range<usize>>,
     /// A prefix bound to the Dublin Core namespace where the description is.
     dc_prefix: Option<String>,
+    /// A prefix bound to tagweave's namespace where the description is.
+    own_prefix: Option<String>,
     subject_attribute: bool,
 }
 
@@ -424,36 +513,56 @@ impl Scanner<'_> {
             }
             (_, Some(RDF), b"RDF") => Frame::Rdf,
             (Some(Frame::Rdf), Some(RDF), b"Description") => {
-                let dc_prefix =
+                let prefix_for = |namespace: &[u8]| {
                     self.reader
                         .resolver()
                         .bindings()
                         .find_map(|(prefix, ns)| match prefix {
-                            PrefixDeclaration::Named(p) if ns.into_inner() == DC => {
+                            PrefixDeclaration::Named(p) if ns.into_inner() == namespace => {
                                 Some(String::from_utf8_lossy(p).into_owned())
                             }
                             _ => None,
-                        });
+                        })
+                };
+                let dc_prefix = prefix_for(DC);
+                let own_prefix = prefix_for(TAGWEAVE_XMP_NAMESPACE.as_bytes());
                 self.packet.descriptions.push(Description {
                     qname,
                     start: span.clone(),
                     end: None,
                     dc_prefix,
+                    own_prefix,
                     subject_attribute: attributes
                         .iter()
                         .any(|(ns, local)| ns.as_deref() == Some(DC) && local == b"subject"),
                 });
                 Frame::Description(self.packet.descriptions.len() - 1)
             }
-            (_, Some(DC), b"subject") => {
+            (_, Some(namespace), local)
+                if (namespace == DC && local == b"subject")
+                    || (namespace == TAGWEAVE_XMP_NAMESPACE.as_bytes()
+                        && local == ACCEPTED_PROPERTY.as_bytes()) =>
+            {
+                let which = if namespace == DC {
+                    Which::Keywords
+                } else {
+                    Which::Accepted
+                };
                 let problem = if empty {
-                    Some("dc:subject is a self-closing element, not an rdf:Bag".to_string())
+                    Some(format!(
+                        "{} is a self-closing element, not an rdf:Bag",
+                        which.name()
+                    ))
                 } else if !attributes.is_empty() {
-                    Some("dc:subject carries attributes (such as rdf:parseType)".to_string())
+                    Some(format!(
+                        "{} carries attributes (such as rdf:parseType)",
+                        which.name()
+                    ))
                 } else {
                     None
                 };
                 self.packet.subjects.push(Subject {
+                    which,
                     array: None,
                     problem,
                 });
@@ -462,9 +571,10 @@ impl Scanner<'_> {
             (Some(Frame::Subject(s)), Some(RDF), kind @ (b"Bag" | b"Seq" | b"Alt")) => {
                 let subject = &mut self.packet.subjects[s];
                 if subject.array.is_some() {
+                    let name = subject.which.name();
                     subject
                         .problem
-                        .get_or_insert_with(|| "dc:subject holds more than one array".into());
+                        .get_or_insert_with(|| format!("{name} holds more than one array"));
                 }
                 subject.array = Some(Array {
                     kind: match kind {
@@ -480,8 +590,10 @@ impl Scanner<'_> {
                 Frame::Array(s)
             }
             (Some(Frame::Subject(s)), _, _) => {
-                self.packet.subjects[s].problem.get_or_insert_with(|| {
-                    "dc:subject holds something other than one rdf:Bag".into()
+                let subject = &mut self.packet.subjects[s];
+                let name = subject.which.name();
+                subject.problem.get_or_insert_with(|| {
+                    format!("{name} holds something other than one rdf:Bag")
                 });
                 Frame::Other
             }
@@ -599,7 +711,59 @@ mod tests {
 </x:xmpmeta>
 <?xpacket end=\"w\"?>";
 
-    fn strings(tags: &[&str]) -> Vec<String> {
+    fn strings(tags: &[&str]) -> Vec<NewTag> {
+        tags.iter()
+            .map(|t| NewTag {
+                spelling: t.to_string(),
+                suggested: false,
+            })
+            .collect()
+    }
+
+    fn accepted(tags: &[&str]) -> Vec<NewTag> {
+        tags.iter()
+            .map(|t| NewTag {
+                spelling: t.to_string(),
+                suggested: true,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn accepted_suggestions_go_into_our_own_bag_too() {
+        let mut add = strings(&["pier"]);
+        add.extend(accepted(&["Sea"]));
+        let after = edit_xmp(SPEC_PACKET, &add, &HashSet::new()).unwrap();
+        // by hand: both keywords appended to dc:subject; tagweave's bag made, with its
+        // namespace declared, at the end of the description.
+        assert!(after.contains(
+            "          <rdf:li>fishing  boats</rdf:li>\n          <rdf:li>pier</rdf:li>\n          <rdf:li>Sea</rdf:li>\n        </rdf:Bag>"
+        ), "{after}");
+        assert!(after.contains(
+            "      <tagweave:acceptedSuggestions xmlns:tagweave=\"https://tagweave.invalid/xmp/1.0/\">\n        <rdf:Bag>\n          <rdf:li>Sea</rdf:li>\n        </rdf:Bag>\n      </tagweave:acceptedSuggestions>\n    </rdf:Description>"
+        ), "{after}");
+        let read = tagweave_collection::sidecar::parse_xmp_marked(after.as_bytes()).unwrap();
+        assert_eq!(read.tags, ["harbour", "fishing-boats", "pier", "sea"]);
+        assert_eq!(read.accepted, ["sea"]);
+        // A second accepted suggestion joins the bag; removing one takes it out of both.
+        let again = edit_xmp(&after, &accepted(&["gull"]), &set(&["sea"])).unwrap();
+        let read = tagweave_collection::sidecar::parse_xmp_marked(again.as_bytes()).unwrap();
+        assert_eq!(read.tags, ["harbour", "fishing-boats", "pier", "gull"]);
+        assert_eq!(read.accepted, ["gull"]);
+        assert_eq!(again.matches("acceptedSuggestions xmlns").count(), 1);
+        // A packet with neither property gets both, in one description.
+        let bare =
+            format!("<rdf:RDF xmlns:rdf=\"{RDF_URI}\"><rdf:Description rdf:about=\"\"/></rdf:RDF>");
+        let both = edit_xmp(&bare, &accepted(&["kelp"]), &HashSet::new()).unwrap();
+        let read = tagweave_collection::sidecar::parse_xmp_marked(both.as_bytes()).unwrap();
+        assert_eq!(
+            (read.tags, read.accepted),
+            (strs(&["kelp"]), strs(&["kelp"]))
+        );
+        assert!(parse_xmp(both.as_bytes()).is_ok());
+    }
+
+    fn strs(tags: &[&str]) -> Vec<String> {
         tags.iter().map(|t| t.to_string()).collect()
     }
 
