@@ -534,8 +534,24 @@ fn apply_writes_accepted_tags_and_removes_a_false_one_and_nothing_else() {
         blank(std::fs::read_to_string(&original).unwrap()),
         "the removed tag leaves no empty line"
     );
+    // Accepted suggestions are marked as such in the sidecars, and the scan tells them apart.
+    assert_eq!(done["tags_marked_accepted"], written, "{done}");
     let rescan = succeeded(&tagweave(folder, &["scan", ".", "--json"]));
     assert_eq!(rescan["untagged"], truth.len() - tagged - accepted.len());
+    assert_eq!(rescan["accepted_suggestions"], written, "{rescan}");
+    assert_eq!(
+        rescan["tagged_only_by_suggestions"],
+        accepted.len(),
+        "{rescan}"
+    );
+    let (picture, tags) = accepted.iter().next().unwrap();
+    let sidecar = std::fs::read_to_string(folder.join(picture).with_extension("txt")).unwrap();
+    for tag in tags {
+        assert!(
+            sidecar.contains(&format!("{tag} # accepted suggestion")),
+            "{sidecar}"
+        );
+    }
     // every tag a person wrote is still there, plus the accepted ones, minus the removed one
     let tags_now = tags_by_picture(folder);
     for row in truth.values() {

@@ -364,6 +364,7 @@ pub fn form_value(value: &str) -> String {
 pub fn text_sidecar_tags(path: &Path) -> Vec<String> {
     tagweave_collection::sidecar::read_sidecar(path, tagweave_collection::SidecarKind::Text)
         .unwrap_or_else(|e| panic!("{}: {e}", path.display()))
+        .tags
 }
 
 /// The text sidecar beside a picture (`STEM.txt`).

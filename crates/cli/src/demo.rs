@@ -5,6 +5,8 @@ use anyhow::{bail, Context};
 use crate::ask::{self, AuditArgs, FindArgs, RankArgs, ShiftArgs, SuggestArgs};
 use crate::exit::Outcome;
 use crate::scan::{open_for_scan, print_summary, scan_with_progress, ScanArgs};
+use tagweave_indexer::TrainRunOptions;
+
 use crate::train::{print_summary as print_train_summary, train_with_progress};
 use crate::StoreArgs;
 
@@ -45,7 +47,7 @@ pub fn run(args: &DemoArgs) -> anyhow::Result<Outcome> {
     crate::tags::print_table(&store.vocabulary()?, 15);
     println!();
     println!("== Step 2: learn one shared code for pictures and tags");
-    let (trained, curves) = train_with_progress(&store, 7)?;
+    let (trained, curves) = train_with_progress(&store, &TrainRunOptions::default())?;
     print_train_summary(&trained, &curves);
     let store_dir = store.dir().to_path_buf();
     drop(store);

@@ -4,6 +4,8 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
+use serde::Serialize;
+use tagweave_collection::ItemRecord;
 use tagweave_eval::{
     run_experiment, simulate_tagging_order, Collection, EvalOptions, JointScorer, Progress,
     TagScorer, TaggingOrder, TaggingOrderOptions,
@@ -45,6 +47,11 @@ pub struct EvalArgs {
     /// training per batch and way.
     #[arg(long)]
     pub tagging_order: bool,
+    /// Also count tags that were suggestions a person accepted (marked so in the sidecars)
+    /// as the truth to score against. Left out by default: the model would be scored against
+    /// what it once suggested itself.
+    #[arg(long)]
+    pub with_accepted_suggestions: bool,
     /// Print one JSON object instead of a table.
     #[arg(long, conflicts_with = "markdown")]
     pub json: bool,
@@ -112,6 +119,7 @@ impl EvalArgs {
             train_fraction: 0.75,
             known_mislabels,
             tagging_order: false,
+            with_accepted_suggestions: false,
             json: false,
             markdown: false,
             tag_layer: TagLayerChoice::Binary,
@@ -140,7 +148,8 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
     let store = open_for_scan(&scan_args)?;
     scan_with_progress(&store, &scan_args.options())?;
     let table = FeatureTable::load(&store)?;
-    let tagged = table.items.iter().filter(|i| !i.tags.is_empty()).count();
+    let (tags, left_out) = truth_tags(&table.items, args.with_accepted_suggestions);
+    let tagged = tags.iter().filter(|t| !t.is_empty()).count();
     if tagged < MIN_TAGGED {
         bail!(
             "{} has only {tagged} tagged pictures, too few to hold some back and measure; \
@@ -176,7 +185,6 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         Vec::new()
     };
     let variants: Vec<_> = variants.iter().map(|v| v.view()).collect();
-    let tags: Vec<Vec<String>> = table.items.iter().map(|i| i.tags.clone()).collect();
     let keys: Vec<String> = table.items.iter().map(|i| i.content_hash.clone()).collect();
     let collection = Collection {
         features: table.features.view(),
@@ -215,14 +223,49 @@ pub fn run(args: &EvalArgs) -> anyhow::Result<Outcome> {
         report.tagging_order = Some(simulate_order(&collection, args.seed, &joint)?);
     }
     if args.json {
-        println!("{}", serde_json::to_string(&report)?);
+        #[derive(Serialize)]
+        struct WithProvenance<'a> {
+            /// Tags left out of the truth because a person accepted them as suggestions.
+            accepted_suggestions_left_out: usize,
+            #[serde(flatten)]
+            report: &'a tagweave_eval::Report,
+        }
+        let json = WithProvenance {
+            accepted_suggestions_left_out: left_out,
+            report: &report,
+        };
+        println!("{}", serde_json::to_string(&json)?);
     } else if args.markdown {
         print!("{}", report.to_markdown());
     } else {
+        if left_out > 0 {
+            println!(
+                "{left_out} tags were suggestions a person accepted; they are left out of \
+                 what is scored (add --with-accepted-suggestions to count them)."
+            );
+        }
         print!("{}", report.to_table());
         print!("{EVAL_LEGEND}");
     }
     Ok(Outcome::Done)
+}
+
+/// Each item's tags to learn from and score against, and how many accepted suggestions were
+/// left out of them (none with `with_accepted`).
+fn truth_tags(items: &[ItemRecord], with_accepted: bool) -> (Vec<Vec<String>>, usize) {
+    let tags: Vec<Vec<String>> = items
+        .iter()
+        .map(|i| {
+            if with_accepted {
+                i.tags.clone()
+            } else {
+                i.person_tags()
+            }
+        })
+        .collect();
+    let all: usize = items.iter().map(|i| i.tags.len()).sum();
+    let kept: usize = tags.iter().map(Vec::len).sum();
+    (tags, all - kept)
 }
 
 /// The tagging-order simulation for the product's suggester, with every way of choosing.
@@ -364,6 +407,37 @@ mod tests {
 
     fn strings(v: &[&str]) -> Vec<String> {
         v.iter().map(|s| s.to_string()).collect()
+    }
+
+    #[test]
+    fn accepted_suggestions_are_left_out_of_the_truth_unless_asked() {
+        let item = |tags: &[&str], accepted: &[&str]| ItemRecord {
+            id: String::new(),
+            rel_path: String::new(),
+            format: tagweave_collection::ImageFormat::Png,
+            stamp: tagweave_collection::FileStamp {
+                size: 0,
+                mtime_ns: 0,
+            },
+            content_hash: String::new(),
+            sidecars: Vec::new(),
+            tags: strings(tags),
+            accepted: strings(accepted),
+        };
+        let items = [
+            item(&["harbour", "sea", "night"], &["sea"]),
+            item(&["boats"], &["boats"]),
+            item(&["fog"], &[]),
+        ];
+        let (person, left_out) = truth_tags(&items, false);
+        assert_eq!(
+            person,
+            [strings(&["harbour", "night"]), vec![], strings(&["fog"])]
+        );
+        assert_eq!(left_out, 2);
+        let (all, none) = truth_tags(&items, true);
+        assert_eq!(all[0], strings(&["harbour", "sea", "night"]));
+        assert_eq!(none, 0);
     }
 
     #[test]

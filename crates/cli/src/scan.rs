@@ -186,6 +186,13 @@ pub fn print_summary(store: &Store, report: &ScanReport, verbose: bool) {
         report.items, report.tagged, report.untagged
     );
     println!("  tags      {:>6}  distinct", report.tags);
+    if report.accepted_suggestions > 0 {
+        println!(
+            "  accepted  {:>6}  tags were suggestions a person accepted ({} pictures carry \
+             no other tag)",
+            report.accepted_suggestions, report.tagged_only_by_suggestions
+        );
+    }
     println!(
         "  changes   {:>6}  added, {} refreshed, {} unchanged, {} removed",
         report.added, report.refreshed, report.unchanged, report.removed

@@ -24,11 +24,20 @@ pub struct TrainArgs {
     /// Seed for every random choice of training (same seed, same model).
     #[arg(long, default_value_t = 7)]
     pub seed: u64,
+    /// Learn only from the tags people wrote, leaving out suggestions a person accepted
+    /// (marked so in the sidecars by `apply` and the review page).
+    #[arg(long)]
+    pub person_tags_only: bool,
 }
 
 pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
     let store = store_path::open_existing(args.store.store.as_deref())?;
-    let (report, curve_path) = train_with_progress(&store, args.seed)?;
+    let options = TrainRunOptions {
+        seed: args.seed,
+        person_tags_only: args.person_tags_only,
+        ..TrainRunOptions::default()
+    };
+    let (report, curve_path) = train_with_progress(&store, &options)?;
     if args.json {
         let mut value = serde_json::to_value(&report)?;
         value["curves"] = serde_json::json!(curve_path);
@@ -43,14 +52,13 @@ pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
 }
 
 /// Trains, shows progress, writes the curve picture; returns the report and its path.
-pub fn train_with_progress(store: &Store, seed: u64) -> anyhow::Result<(TrainReport, PathBuf)> {
+pub fn train_with_progress(
+    store: &Store,
+    options: &TrainRunOptions,
+) -> anyhow::Result<(TrainReport, PathBuf)> {
     let progress = progress::Progress::new();
-    let options = TrainRunOptions {
-        seed,
-        ..TrainRunOptions::default()
-    };
     let mut stages = TrainStages::new(options.joint.pretrain_epochs, options.joint.max_epochs);
-    let report = tagweave_indexer::train(store, &options, &mut |event| {
+    let report = tagweave_indexer::train(store, options, &mut |event| {
         for shown in stages.on(&event) {
             match shown {
                 Shown::Stage { stage, done, total } => progress.show(&stage, done, total),
@@ -193,6 +201,13 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
         "Trained on {} tagged pictures ({} tags) in {:.1} s; {} untagged pictures coded too",
         report.pictures, report.tags, report.seconds, report.untagged
     );
+    if report.accepted_suggestions > 0 {
+        println!(
+            "  {} of the tags learned from were suggestions a person accepted \
+             (`--person-tags-only` leaves them out)",
+            report.accepted_suggestions
+        );
+    }
     let [image, tags, shared] = report.layers;
     println!("  layers      image {image} units, tags {tags} units, shared {shared} units");
     let pretrain: Vec<String> = report

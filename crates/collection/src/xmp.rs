@@ -135,7 +135,7 @@ impl Parser<'_> {
     /// Files the item just closed under the property it belongs to.
     fn item_done(&mut self) {
         let item = std::mem::take(&mut self.item);
-        let in_marks = self.stack.iter().any(|f| *f == Frame::Accepted);
+        let in_marks = self.stack.contains(&Frame::Accepted);
         if in_marks {
             self.marks.push(item);
         } else {

@@ -85,6 +85,11 @@ pub struct ScanReport {
     pub items: usize,
     pub tagged: usize,
     pub untagged: usize,
+    /// Tags on pictures that were suggestions a person accepted (marked so in the
+    /// sidecars); the rest a person wrote.
+    pub accepted_suggestions: usize,
+    /// Of `tagged`, pictures whose every tag is an accepted suggestion.
+    pub tagged_only_by_suggestions: usize,
     /// Distinct tags over all items.
     pub tags: usize,
     pub added: usize,
@@ -219,6 +224,11 @@ pub fn scan(
         items: items.len(),
         tagged,
         untagged: items.len() - tagged,
+        accepted_suggestions: items.iter().map(|item| item.accepted.len()).sum(),
+        tagged_only_by_suggestions: items
+            .iter()
+            .filter(|item| !item.tags.is_empty() && item.accepted.len() == item.tags.len())
+            .count(),
         tags: Vocabulary::from_tag_lists(items.iter().map(|item| item.tags.as_slice())).len(),
         added: now.iter().filter(|rel| !was(rel)).count(),
         refreshed: now

@@ -28,6 +28,8 @@ const CODE_BATCH: usize = 256;
 pub struct TrainRunOptions {
     pub seed: u64,
     pub joint: JointOptions,
+    /// Learn only from tags a person wrote, leaving out suggestions a person accepted.
+    pub person_tags_only: bool,
 }
 
 impl Default for TrainRunOptions {
@@ -35,6 +37,7 @@ impl Default for TrainRunOptions {
         TrainRunOptions {
             seed: 7,
             joint: JointOptions::default(),
+            person_tags_only: false,
         }
     }
 }
@@ -66,6 +69,9 @@ pub struct TrainReport {
     /// Pictures without tags (coded, not learned from).
     pub untagged: usize,
     pub tags: usize,
+    /// Tags learned from that were suggestions a person accepted (0 with
+    /// `person_tags_only`); the rest a person wrote.
+    pub accepted_suggestions: usize,
     /// Hidden units: image pathway, tag pathway, shared layer.
     pub layers: [usize; 3],
     pub epochs: usize,
@@ -94,7 +100,14 @@ pub fn train(
     progress: &mut dyn FnMut(TrainProgress),
 ) -> Result<TrainReport, IndexError> {
     let started = Instant::now();
-    let table = FeatureTable::load(store)?;
+    let mut table = FeatureTable::load(store)?;
+    if options.person_tags_only {
+        for item in &mut table.items {
+            item.tags = item.person_tags();
+            item.accepted.clear();
+        }
+    }
+    let accepted_suggestions = table.items.iter().map(|i| i.accepted.len()).sum();
     let tagged: Vec<&[String]> = table
         .items
         .iter()
@@ -158,6 +171,7 @@ pub fn train(
         pictures: data.rows.len(),
         without_variants,
         untagged: table.items.len() - data.rows.len(),
+        accepted_suggestions,
         tags: trained.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
         epochs: trained.suggester.epochs,

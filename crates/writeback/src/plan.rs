@@ -27,6 +27,20 @@ pub(crate) struct NewTag {
     pub(crate) suggested: bool,
 }
 
+#[cfg(test)]
+impl NewTag {
+    /// Each of `spellings`, a suggestion accepted or not as `suggested` says.
+    pub(crate) fn all(spellings: &[&str], suggested: bool) -> Vec<NewTag> {
+        spellings
+            .iter()
+            .map(|s| NewTag {
+                spelling: s.to_string(),
+                suggested,
+            })
+            .collect()
+    }
+}
+
 /// New contents for one sidecar file, not yet written.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct SidecarEdit {

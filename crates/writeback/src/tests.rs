@@ -288,7 +288,10 @@ fn text_and_xmp_beside_one_picture_stay_in_step() {
     let plan = apply(root, &change("a.png", &["dawn", "GULL"], &["kelp"]));
     assert_eq!(plan.already_present, ["gull"]);
     assert_eq!(plan.edits.len(), 2);
-    assert_eq!(read_sidecar(&text, SidecarKind::Text).unwrap().tags, ["dawn"]);
+    assert_eq!(
+        read_sidecar(&text, SidecarKind::Text).unwrap().tags,
+        ["dawn"]
+    );
     assert_eq!(
         read_sidecar(&xmp, SidecarKind::Xmp).unwrap().tags,
         ["gull", "dawn"]
@@ -504,7 +507,11 @@ fn check_apply(root: &Path, picture: &str, change: &TagChange) -> Result<(), Tes
     prop_assert_eq!(&after, &expected);
     let expected_marks: BTreeSet<String> = marked_before
         .difference(&removed)
-        .chain(accepted.iter().filter(|t| !before.contains(*t) && !typed.contains(*t)))
+        .chain(
+            accepted
+                .iter()
+                .filter(|t| !before.contains(*t) && !typed.contains(*t)),
+        )
         .cloned()
         .collect();
     prop_assert_eq!(accepted_of(root, picture), expected_marks);
@@ -528,12 +535,12 @@ fn change_for(before: &[String], add: Vec<String>, picks: &[bool]) -> TagChange 
         .filter(|t| normalize_tag(t).is_some_and(|n| !add_normals.contains(&n)))
         .collect();
     // Every other new tag is an accepted suggestion, the rest typed by a person.
-    let (accept, add): (Vec<(usize, String)>, Vec<(usize, String)>) =
-        add.into_iter().enumerate().partition(|(i, _)| i % 2 == 1);
+    let accept = add.iter().skip(1).step_by(2).cloned().collect();
+    let add = add.iter().step_by(2).cloned().collect();
     TagChange {
         picture: "p.png".into(),
-        add: add.into_iter().map(|(_, t)| t).collect(),
-        accept: accept.into_iter().map(|(_, t)| t).collect(),
+        add,
+        accept,
         remove,
     }
 }

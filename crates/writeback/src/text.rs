@@ -152,26 +152,13 @@ mod tests {
     }
 
     fn adds(tags: &[&str]) -> Vec<NewTag> {
-        tags.iter()
-            .map(|t| NewTag {
-                spelling: t.to_string(),
-                suggested: false,
-            })
-            .collect()
+        NewTag::all(tags, false)
     }
 
     #[test]
     fn accepted_suggestions_carry_their_mark_and_lose_it_with_the_tag() {
-        let add = [
-            NewTag {
-                spelling: "Sea".into(),
-                suggested: true,
-            },
-            NewTag {
-                spelling: "pier".into(),
-                suggested: false,
-            },
-        ];
+        let mut add = NewTag::all(&["Sea"], true);
+        add.extend(NewTag::all(&["pier"], false));
         let after = edit_text("harbour\r\n", &add, &set(&[]));
         // by hand: the file's own line ends; the mark on the accepted suggestion's line only.
         assert_eq!(after, "harbour\r\nSea # accepted suggestion\r\npier\r\n");

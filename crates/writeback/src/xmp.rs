@@ -712,21 +712,11 @@ mod tests {
 <?xpacket end=\"w\"?>";
 
     fn strings(tags: &[&str]) -> Vec<NewTag> {
-        tags.iter()
-            .map(|t| NewTag {
-                spelling: t.to_string(),
-                suggested: false,
-            })
-            .collect()
+        NewTag::all(tags, false)
     }
 
     fn accepted(tags: &[&str]) -> Vec<NewTag> {
-        tags.iter()
-            .map(|t| NewTag {
-                spelling: t.to_string(),
-                suggested: true,
-            })
-            .collect()
+        NewTag::all(tags, true)
     }
 
     #[test]
