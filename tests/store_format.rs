@@ -11,14 +11,20 @@ use std::time::Instant;
 use common::*;
 use tagweave_store::FORMAT_VERSION;
 
-/// The committed store and the version it was written in.
-const FIXTURE_VERSION: u32 = 1;
+/// The committed store of the current version.
+const FIXTURE_VERSION: u32 = 2;
+/// Committed stores of earlier versions, each to be refused with the way out.
+const OLDER_FIXTURES: [u32; 1] = [1];
 /// `.gitignore` keeps every `.tagweave/` out of git, so the committed store sits under this
 /// name and is put in place as `.tagweave` in each test's copy.
 const FIXTURE_STORE: &str = "dot-tagweave";
 
 fn fixture_dir() -> PathBuf {
-    repo_root().join(format!("tests/fixtures/store-format-{FIXTURE_VERSION}"))
+    fixture_of(FIXTURE_VERSION)
+}
+
+fn fixture_of(version: u32) -> PathBuf {
+    repo_root().join(format!("tests/fixtures/store-format-{version}"))
 }
 
 /// Three small pictures with text and XMP sidecars (deterministic bytes).
@@ -123,7 +129,35 @@ fn a_store_of_another_format_version_is_refused_with_the_way_out() {
 }
 
 #[test]
-fn the_committed_store_of_format_1_still_reads() {
+fn committed_stores_of_older_formats_are_refused_with_the_way_out() {
+    let _serial = one_at_a_time();
+    for version in OLDER_FIXTURES {
+        let temp = tempfile::tempdir().unwrap();
+        let root = temp.path().join("collection");
+        copy_all(&fixture_of(version), &root);
+        let sidecars = sidecar_snapshot(&root);
+        for args in [&["scan", "."][..], &["tags"], &["find", "harbour"]] {
+            let out = tagweave(&root, args);
+            assert_eq!(out.status.code(), Some(1), "{args:?}");
+            let message = stderr_of(&out);
+            assert!(
+                message.contains(&format!(
+                    "was written in format version {version}, this tagweave reads version \
+                     {FORMAT_VERSION}; rebuild it from the pictures and sidecars with \
+                     `tagweave scan FOLDER --rebuild`"
+                )),
+                "{args:?}: {message}"
+            );
+        }
+        let rebuilt = tagweave(&root, &["scan", ".", "--rebuild", "--json"]);
+        assert_eq!(rebuilt.status.code(), Some(0), "{}", stderr_of(&rebuilt));
+        assert_eq!(json(&rebuilt)["items"], 3);
+        assert!(sidecar_snapshot(&root) == sidecars, "no sidecar touched");
+    }
+}
+
+#[test]
+fn the_committed_store_of_the_current_format_still_reads() {
     let _serial = one_at_a_time();
     let started = Instant::now();
     let fixture = fixture_dir();

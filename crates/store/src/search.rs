@@ -535,7 +535,7 @@ fn encode_row(code: &[f32], thresholds: &[f32], out: &mut [u8], hash: &mut [u64]
 /// A probability in [0, 1] as the nearest of 256 evenly spaced levels.
 #[inline(always)]
 fn quantise(v: f32) -> u8 {
-    (v * 255.0).round() as u8
+    crate::packing::unit_byte(v)
 }
 
 fn check_shape(dim: usize, thresholds: &[f32]) -> Result<()> {

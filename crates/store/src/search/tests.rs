@@ -468,15 +468,27 @@ fn vectors_of_kind_returns_only_that_kind_in_id_order_and_loads() {
         .collect::<Result<_>>()
         .unwrap();
     rows.reverse();
-    assert_eq!(read, rows);
+    // Codes are kept as the bytes the search uses: round(v · 255) / 255.
+    let on_the_byte_grid: Vec<(String, Vec<f32>)> = rows
+        .iter()
+        .map(|(id, code)| {
+            let grid = code.iter().map(|v| (v * 255.0).round() / 255.0).collect();
+            (id.clone(), grid)
+        })
+        .collect();
+    assert_eq!(read, on_the_byte_grid);
     assert_eq!(store.vectors_of_kind("features").count(), 1);
     assert_eq!(store.vectors_of_kind("nothing").count(), 0);
 
     let thresholds = medians(&codes, dim);
     let loaded = CodeIndex::load(&store, "code", &thresholds).unwrap();
+    let grid_codes: Vec<f32> = on_the_byte_grid
+        .iter()
+        .flat_map(|(_, code)| code.iter().copied())
+        .collect();
     assert_eq!(
         loaded,
-        CodeIndex::build(ids(n), &codes, dim, &thresholds).unwrap()
+        CodeIndex::build(ids(n), &grid_codes, dim, &thresholds).unwrap()
     );
     assert!(
         CodeIndex::load(&store, "features", &thresholds).is_err(),
