@@ -579,7 +579,10 @@ fn place(served: &Served, target: &str) -> Place {
     assert_eq!(answer.status, 200, "{target}: {}", answer.text());
     assert_eq!(answer.content_type(), "text/html; charset=utf-8");
     let part = answer.text();
-    assert!(part.starts_with("<section class=\"one"), "a fragment: {part}");
+    assert!(
+        part.starts_with("<section class=\"one"),
+        "a fragment: {part}"
+    );
     let id = attr_values(&part, "section class=\"one", "data-id")[0].clone();
     let picture = attr_values(&part, "class=\"large\"", "alt")[0].clone();
     let at = part.find("class=\"where\">").unwrap() + "class=\"where\">".len();
@@ -617,7 +620,10 @@ fn the_one_by_one_walk_goes_untagged_first_and_accepts_what_it_counted() {
     // The page loads one script, from this server, under a policy that allows only that.
     let page = served.get("/one-by-one");
     let text = assert_page(&page, 200);
-    assert!(text.contains("<script src=\"/queue.js\" defer></script>"), "{text}");
+    assert!(
+        text.contains("<script src=\"/queue.js\" defer></script>"),
+        "{text}"
+    );
     assert_eq!(text.matches("<script").count(), 1, "nothing inline");
     assert!(text.contains("<kbd>j or →</kbd>"), "the keys are shown");
     let script = served.get("/queue.js");
@@ -650,7 +656,9 @@ fn the_one_by_one_walk_goes_untagged_first_and_accepts_what_it_counted() {
         .collect();
     assert!(!untagged_in_walk.is_empty());
     assert!(
-        walk.iter().skip(untagged_in_walk.len()).all(|p| !p.untagged),
+        walk.iter()
+            .skip(untagged_in_walk.len())
+            .all(|p| !p.untagged),
         "untagged before partly tagged"
     );
     let untagged_truth: BTreeSet<&str> = truth
@@ -670,7 +678,10 @@ fn the_one_by_one_walk_goes_untagged_first_and_accepts_what_it_counted() {
         assert_eq!(p.id, served.id_of(&p.picture));
     }
     // Past either end: the nearest place.
-    assert_eq!(place(&served, "/one-by-one/part?at=0").picture, walk[0].picture);
+    assert_eq!(
+        place(&served, "/one-by-one/part?at=0").picture,
+        walk[0].picture
+    );
     let last = format!("/one-by-one/part?at={}", walk.len() + 5);
     assert_eq!(place(&served, &last).picture, walk[walk.len() - 1].picture);
 
@@ -752,7 +763,10 @@ fn the_one_by_one_walk_goes_untagged_first_and_accepts_what_it_counted() {
         &format!("token={token}&back=one-by-one&at={at}&tag=anything"),
     );
     assert_eq!(plain.status, 303);
-    assert_eq!(plain.header("Location"), Some(format!("/one-by-one?at={at}").as_str()));
+    assert_eq!(
+        plain.header("Location"),
+        Some(format!("/one-by-one?at={at}").as_str())
+    );
 }
 
 #[test]

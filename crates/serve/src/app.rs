@@ -661,7 +661,10 @@ impl App {
             let rows: Vec<usize> = (0..items.len()).filter(|&r| tagged[r]).collect();
             let mut strongest = vec![0.0; items.len()];
             if !rows.is_empty() {
-                let probabilities = self.queries.suggest_rows(&rows).map_err(|e| e.to_string())?;
+                let probabilities = self
+                    .queries
+                    .suggest_rows(&rows)
+                    .map_err(|e| e.to_string())?;
                 for (&row, p) in rows.iter().zip(probabilities.outer_iter()) {
                     strongest[row] = self
                         .queries
@@ -1103,7 +1106,10 @@ mod tests {
             "/one-by-one?at=12"
         );
         assert_eq!(
-            back_link(&f("back=one-by-one&at=%2F%2Fevil.example"), "00000000000000ab"),
+            back_link(
+                &f("back=one-by-one&at=%2F%2Fevil.example"),
+                "00000000000000ab"
+            ),
             "/one-by-one?at=1"
         );
     }

@@ -772,9 +772,9 @@ pub fn one_part(content: &PictureContent, step: &Step) -> String {
 
 pub fn one_by_one(content: &OneByOneContent) -> Page {
     let mut body = format!(
-        "<section class=\"ask\"><h1>One by one</h1><p class=\"hint\">The {u} untagged \
-         pictures first, then the {p} tagged ones the model would add tags to, the likeliest \
-         additions first. Accept or reject each suggestion, or all above a threshold.</p>\
+        "<section class=\"ask\"><h1>One by one</h1><p class=\"hint\">First the untagged \
+         pictures ({u}), then tagged ones the model would add a tag to ({p}), likeliest \
+         addition first. Accept or reject each suggestion, or all above a threshold.</p>\
          <dl class=\"keys\">",
         u = content.untagged,
         p = content.partly,
@@ -976,8 +976,14 @@ mod tests {
         assert_eq!(threshold_from("-3", true), Some(0));
         assert_eq!(threshold_from("NaN", true), None);
         assert_eq!(threshold_from("seventy", false), None);
-        assert_eq!(accept_all_label(3, 70, true), "accept 3 tags at or above 70 %");
-        assert_eq!(accept_all_label(1, 70, false), "accept 1 tag scoring 0.70 or more");
+        assert_eq!(
+            accept_all_label(3, 70, true),
+            "accept 3 tags at or above 70 %"
+        );
+        assert_eq!(
+            accept_all_label(1, 70, false),
+            "accept 1 tag scoring 0.70 or more"
+        );
     }
 
     #[test]
@@ -999,7 +1005,10 @@ mod tests {
             .map(|rest| rest.split('"').next().unwrap())
             .collect();
         assert_eq!(adds, vec!["night", "&quot;sea", "harbour"]);
-        assert!(form.contains(">accept 3 tags at or above 70 %</button>"), "{form}");
+        assert!(
+            form.contains(">accept 3 tags at or above 70 %</button>"),
+            "{form}"
+        );
         // Each suggestion tells the script its shown strength; forms come back here.
         assert!(part.contains("data-tag=\"night\" data-hundredths=\"83\""));
         assert!(part.contains("name=\"back\" value=\"one-by-one\""));
@@ -1024,7 +1033,10 @@ mod tests {
             current: None,
         })
         .body;
-        assert!(page.contains("<script src=\"/queue.js\" defer></script>"), "{page}");
+        assert!(
+            page.contains("<script src=\"/queue.js\" defer></script>"),
+            "{page}"
+        );
         assert!(page.contains("<kbd>a</kbd>") && page.contains("Nothing to go through"));
     }
 
