@@ -614,10 +614,10 @@ fn sidecar_tags_of(root: &Path, picture: &str) -> Vec<String> {
 }
 
 /// The one-by-one page driven by its keys: mark the second suggestion and accept it with
-/// "a", go on with "j", back with "k" and on again, then accept every suggestion above a
-/// threshold typed into its box (where "k" must not move the page). Each decision must be
-/// one POST, the page never reloaded, and the sidecars must carry exactly what was
-/// accepted.
+/// "a", go on with "j", back with "k" and on again, accept every suggestion above a
+/// threshold typed into its box (where "k" must not move the page), reject one with "r".
+/// Each decision must be one POST, the page never reloaded, and the sidecars must carry
+/// exactly what was accepted.
 fn walk_one_by_one(tab: &mut Browser, served: &Served, root: &Path) -> PathBuf {
     let started = Instant::now();
     tab.call("Network.enable", serde_json::json!({}));
@@ -745,15 +745,30 @@ fn walk_one_by_one(tab: &mut Browser, served: &Served, root: &Path) -> PathBuf {
     ));
     let shot = tab.screenshot("one-by-one.png");
 
-    // The same document all along, two POSTs for two decisions, and on disk exactly what
-    // was accepted.
+    // Down and up again, and "r": the marked (first) suggestion is set aside, nothing
+    // written.
+    let left = suggested(tab);
+    tab.eval("document.activeElement.blur()");
+    tab.press("ArrowDown");
+    tab.press("ArrowUp");
+    tab.press("r");
+    tab.wait_for(&format!(
+        "!Array.from(document.querySelectorAll('li.suggestion')).some(li => li.dataset.tag === {})",
+        serde_json::json!(left[0])
+    ));
+    // (The next suggestion below the list may move up into it.)
+    let now = suggested(tab);
+    assert!(now.starts_with(&left[1..]), "{now:?} after {left:?}");
+
+    // The same document all along, three POSTs for three decisions, and on disk exactly
+    // what was accepted.
     assert_eq!(tab.eval("window.sameDocument").as_str(), Some("yes"));
     let posts: Vec<&String> = tab
         .events
         .iter()
         .filter(|e| e.starts_with("POST "))
         .collect();
-    assert_eq!(posts.len(), 2, "{posts:?}");
+    assert_eq!(posts.len(), 3, "{posts:?}");
     assert!(
         !tab.events.iter().any(|e| e == "Page.frameNavigated"),
         "the page never reloaded: {:?}",

@@ -14,6 +14,11 @@
   let busy = false;
 
   const part = () => slot.querySelector("section.one");
+  // The threshold box of the shown picture, if it has one.
+  const aboveBox = () => {
+    const one = part();
+    return one && one.querySelector("input[name=above]");
+  };
   const suggestions = () => Array.from(slot.querySelectorAll("li.suggestion"));
   const say = (text) => {
     if (status) {
@@ -30,8 +35,7 @@
 
   // How the accept-all threshold reads, in hundredths (as the server counts).
   function threshold() {
-    const one = part();
-    const input = one && one.querySelector("input[name=above]");
+    const input = aboveBox();
     if (!input) {
       return null;
     }
@@ -39,7 +43,7 @@
     if (!Number.isFinite(value)) {
       return null;
     }
-    const calibrated = one.dataset.calibrated === "1";
+    const calibrated = part().dataset.calibrated === "1";
     const scaled = calibrated ? value : value * 100;
     return Math.max(0, Math.min(100, Math.round(scaled)));
   }
@@ -98,74 +102,64 @@
     );
   }
 
-  // One decision, one request: the form as the browser would send it, asking for the
-  // picture's fragment back.
-  async function send(form, button) {
+  // One request at a time: on success `done` gets the answer's text; a refusal's words
+  // or the failure are said instead.
+  async function exchange(address, options, done, failing) {
     if (busy) {
       return;
     }
     busy = true;
-    const body = new URLSearchParams(new FormData(form, button));
-    body.append("answer", "part");
-    const above = part() && part().querySelector("input[name=above]");
-    if (above) {
-      body.append("above", above.value);
-    }
-    const what = form.dataset.action || "accept all";
-    const tag = form.dataset.tag;
     try {
-      const answer = await fetch(form.action, {
-        method: "POST",
-        body,
-        credentials: "same-origin",
-        redirect: "error",
-      });
+      const answer = await fetch(address, { credentials: "same-origin", ...options });
       const text = await answer.text();
       if (answer.ok) {
-        place(text);
-        recount();
-        say(tag ? what + "ed: " + tag : "accepted " + body.getAll("add").join(", "));
+        done(text);
       } else {
         say(problem(text, answer.status));
       }
     } catch (error) {
-      say("Not sent: " + error.message);
+      say(failing + error.message);
     } finally {
       busy = false;
     }
   }
 
-  // Another picture of the walk (not a decision: a plain GET of its fragment).
-  async function go(href, remember) {
-    if (busy) {
-      return;
+  // One decision, one request: the form as the browser would send it, asking for the
+  // picture's fragment back.
+  function send(form, button) {
+    const body = new URLSearchParams(new FormData(form, button));
+    body.append("answer", "part");
+    const above = aboveBox();
+    if (above) {
+      body.append("above", above.value);
     }
-    busy = true;
+    const tag = form.dataset.tag;
+    const said = tag
+      ? form.dataset.action + "ed: " + tag
+      : "accepted " + body.getAll("add").join(", ");
+    const options = { method: "POST", body, redirect: "error" };
+    exchange(form.action, options, (text) => {
+      place(text);
+      recount();
+      say(said);
+    }, "Not sent: ");
+  }
+
+  // Another picture of the walk (not a decision: a plain GET of its fragment).
+  function go(href, remember) {
     const url = new URL(href, location.href);
-    const above = part() && part().querySelector("input[name=above]");
+    const above = aboveBox();
     if (above) {
       url.searchParams.set("above", above.value);
     }
-    try {
-      const answer = await fetch("/one-by-one/part" + url.search, {
-        credentials: "same-origin",
-      });
-      const text = await answer.text();
-      if (answer.ok) {
-        marked = 0;
-        place(text);
-        if (remember) {
-          history.pushState(null, "", url.pathname + url.search);
-        }
-        say("");
-      } else {
-        say(problem(text, answer.status));
+    exchange("/one-by-one/part" + url.search, {}, (text) => {
+      marked = 0;
+      place(text);
+      if (remember) {
+        history.pushState(null, "", url.pathname + url.search);
       }
-    } catch (error) {
-      say("Not loaded: " + error.message);
-    } finally {
-      busy = false;
-    }
+      say("");
+    }, "Not loaded: ");
   }
 
   function follow(which) {
