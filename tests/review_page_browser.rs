@@ -303,9 +303,61 @@ impl Browser {
                 assert!(answer.get("error").is_none(), "{method}: {answer}");
                 return answer["result"].clone();
             }
-            if let Some(event) = answer["method"].as_str() {
-                self.events.push(event.to_string());
+            self.note(&answer);
+        }
+    }
+
+    /// Keeps an event's name; a request the page sends is kept as "METHOD URL" too.
+    fn note(&mut self, event: &serde_json::Value) {
+        let Some(name) = event["method"].as_str() else {
+            return;
+        };
+        self.events.push(name.to_string());
+        if name == "Network.requestWillBeSent" {
+            let request = &event["params"]["request"];
+            self.events.push(format!(
+                "{} {}",
+                request["method"].as_str().unwrap_or(""),
+                request["url"].as_str().unwrap_or("")
+            ));
+        }
+    }
+
+    /// Presses one key as a keyboard does (down, up), into whatever has the focus.
+    fn press(&mut self, key: &str) {
+        // source: UI Events KeyboardEvent code values and Windows virtual-key codes
+        // (from memory): letters are their upper-case ASCII, arrows 37–40.
+        let (code, vk, text) = match key {
+            "ArrowLeft" => ("ArrowLeft".to_string(), 37, ""),
+            "ArrowUp" => ("ArrowUp".to_string(), 38, ""),
+            "ArrowRight" => ("ArrowRight".to_string(), 39, ""),
+            "ArrowDown" => ("ArrowDown".to_string(), 40, ""),
+            letter => (
+                format!("Key{}", letter.to_ascii_uppercase()),
+                letter.to_ascii_uppercase().as_bytes()[0],
+                letter,
+            ),
+        };
+        for kind in ["keyDown", "keyUp"] {
+            let mut event = serde_json::json!({
+                "type": kind, "key": key, "code": code, "windowsVirtualKeyCode": vk,
+            });
+            if kind == "keyDown" && !text.is_empty() {
+                event["text"] = serde_json::json!(text);
             }
+            self.call("Input.dispatchKeyEvent", event);
+        }
+    }
+
+    /// Waits (10 s at most) until a script expression is true in the page.
+    fn wait_for(&mut self, expression: &str) {
+        let started = Instant::now();
+        while self.eval(expression) != serde_json::Value::Bool(true) {
+            assert!(
+                started.elapsed() < Duration::from_secs(10),
+                "not so within 10 s: {expression}"
+            );
+            std::thread::sleep(Duration::from_millis(25));
         }
     }
 
@@ -321,9 +373,7 @@ impl Browser {
             );
             let text = ws_receive(&mut self.socket).expect("the browser reports");
             let event: serde_json::Value = serde_json::from_str(&text).unwrap();
-            if let Some(name) = event["method"].as_str() {
-                self.events.push(name.to_string());
-            }
+            self.note(&event);
         }
     }
 
@@ -530,6 +580,8 @@ fn open_search_and_accept_in_a_real_browser() {
     let page = tab.dom();
     assert!(page.matches("class=\"entry\"").count() >= 10, "{page}");
     let review_shot = tab.screenshot("review.png");
+
+    let walk_shot = walk_one_by_one(&mut tab, &served, root);
     drop(tab);
 
     // Another browser (another profile: no pass) gets nothing, not even with the address
@@ -542,10 +594,195 @@ fn open_search_and_accept_in_a_real_browser() {
     assert!(!other.contains("class=\"card\""), "{other}");
 
     eprintln!(
-        "screenshots: {}, {}, {} ({:.1} s)",
+        "screenshots: {}, {}, {}, {} ({:.1} s)",
         search_shot.display(),
         picture_shot.display(),
         review_shot.display(),
+        walk_shot.display(),
         started.elapsed().as_secs_f64()
     );
+}
+
+/// The tags of a picture's text sidecar (`STEM.txt` or `NAME.EXT.txt`), none without one.
+fn sidecar_tags_of(root: &Path, picture: &str) -> Vec<String> {
+    let by_stem = text_sidecar_of(root, picture);
+    let by_name = root.join(format!("{picture}.txt"));
+    match [by_stem, by_name].into_iter().find(|p| p.is_file()) {
+        Some(path) => text_sidecar_tags(&path),
+        None => Vec::new(),
+    }
+}
+
+/// The one-by-one page driven by its keys: mark the second suggestion and accept it with
+/// "a", go on with "j", back with "k" and on again, accept every suggestion above a
+/// threshold typed into its box (where "k" must not move the page), reject one with "r".
+/// Each decision must be one POST, the page never reloaded, and the sidecars must carry
+/// exactly what was accepted.
+fn walk_one_by_one(tab: &mut Browser, served: &Served, root: &Path) -> PathBuf {
+    let started = Instant::now();
+    tab.call("Network.enable", serde_json::json!({}));
+    tab.open(&format!("{}one-by-one", served.url));
+    // The script ran under the page's policy, and a mark of ours is set on this document.
+    assert_eq!(
+        tab.eval("document.documentElement.dataset.keys").as_str(),
+        Some("on"),
+        "the script loaded"
+    );
+    tab.eval("window.sameDocument = 'yes'");
+    tab.events.clear();
+    let shown = |tab: &mut Browser, what: &str| -> String {
+        tab.eval(&format!(
+            "document.querySelector('section.one').dataset.{what}"
+        ))
+        .as_str()
+        .unwrap()
+        .to_string()
+    };
+    let picture_at = |tab: &mut Browser| -> String {
+        tab.eval("document.querySelector('section.one img.large').alt")
+            .as_str()
+            .unwrap()
+            .to_string()
+    };
+    let suggested = |tab: &mut Browser| -> Vec<String> {
+        tab.eval("Array.from(document.querySelectorAll('li.suggestion')).map(li => li.dataset.tag)")
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|t| t.as_str().unwrap().to_string())
+            .collect()
+    };
+
+    // First place: mark the second suggestion, accept it.
+    assert_eq!(shown(tab, "at"), "1");
+    let first = picture_at(tab);
+    let first_before = sidecar_tags_of(root, &first);
+    let offered = suggested(tab);
+    assert!(offered.len() >= 2, "{offered:?}");
+    tab.press("ArrowDown");
+    assert_eq!(
+        tab.eval("document.querySelector('li.suggestion.marked').dataset.tag")
+            .as_str(),
+        Some(offered[1].as_str())
+    );
+    tab.press("a");
+    let accepted = offered[1].clone();
+    tab.wait_for(&format!(
+        "Array.from(document.querySelectorAll('li.current')).some(li => li.dataset.tag === {})",
+        serde_json::json!(accepted)
+    ));
+    assert!(!suggested(tab).contains(&accepted));
+
+    // On, back, on again.
+    tab.press("j");
+    tab.wait_for("document.querySelector('section.one').dataset.at === '2'");
+    // The address follows (without a load), so a reload or a link shows the same place.
+    let address = tab.eval("location.pathname + location.search");
+    assert!(
+        address
+            .as_str()
+            .is_some_and(|a| a.starts_with("/one-by-one?at=2&above=")),
+        "{address}"
+    );
+    tab.press("k");
+    tab.wait_for("document.querySelector('section.one').dataset.at === '1'");
+    assert_eq!(picture_at(tab), first);
+    tab.press("ArrowRight");
+    tab.wait_for("document.querySelector('section.one').dataset.at === '2'");
+    let second = picture_at(tab);
+    let second_before = sidecar_tags_of(root, &second);
+
+    // Type a threshold that takes two or more suggestions; "k" typed there moves nothing.
+    let levels: Vec<u64> = tab
+        .eval("Array.from(document.querySelectorAll('li.suggestion')).map(li => Number(li.dataset.hundredths))")
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|h| h.as_u64().unwrap())
+        .collect();
+    assert!(levels.len() >= 2, "{levels:?}");
+    let above = levels[1];
+    let expected: Vec<String> = suggested(tab)
+        .into_iter()
+        .zip(&levels)
+        .filter(|(_, &h)| h >= above)
+        .map(|(t, _)| t)
+        .collect();
+    let calibrated = shown(tab, "calibrated") == "1";
+    let typed = if calibrated {
+        above.to_string()
+    } else {
+        format!("{:.2}", above as f64 / 100.0)
+    };
+    tab.eval("document.querySelector('input[name=above]').focus()");
+    tab.press("k");
+    assert_eq!(
+        shown(tab, "at"),
+        "2",
+        "keys typed into the box are the box's"
+    );
+    tab.eval("document.querySelector('input[name=above]').select()");
+    tab.call("Input.insertText", serde_json::json!({ "text": typed }));
+    let label = tab
+        .eval("document.querySelector('form.all-above button').textContent")
+        .as_str()
+        .unwrap()
+        .to_string();
+    let count = expected.len();
+    let tags = if count == 1 { "tag" } else { "tags" };
+    let wanted = if calibrated {
+        format!("accept {count} {tags} at or above {above} %")
+    } else {
+        format!("accept {count} {tags} scoring {typed} or more")
+    };
+    assert_eq!(label, wanted, "the count is shown before anything is sent");
+    let posts_before = tab.events.iter().filter(|e| e.starts_with("POST ")).count();
+    assert_eq!(posts_before, 1, "one POST for the one decision so far");
+    tab.eval("document.querySelector('form.all-above button').click()");
+    tab.wait_for(&format!(
+        "{}.every(t => Array.from(document.querySelectorAll('li.current')).some(li => li.dataset.tag === t))",
+        serde_json::json!(expected)
+    ));
+    let shot = tab.screenshot("one-by-one.png");
+
+    // Down and up again, and "r": the marked (first) suggestion is set aside, nothing
+    // written.
+    let left = suggested(tab);
+    tab.eval("document.activeElement.blur()");
+    tab.press("ArrowDown");
+    tab.press("ArrowUp");
+    tab.press("r");
+    tab.wait_for(&format!(
+        "!Array.from(document.querySelectorAll('li.suggestion')).some(li => li.dataset.tag === {})",
+        serde_json::json!(left[0])
+    ));
+    // (The next suggestion below the list may move up into it.)
+    let now = suggested(tab);
+    assert!(now.starts_with(&left[1..]), "{now:?} after {left:?}");
+
+    // The same document all along, three POSTs for three decisions, and on disk exactly
+    // what was accepted.
+    assert_eq!(tab.eval("window.sameDocument").as_str(), Some("yes"));
+    let posts: Vec<&String> = tab
+        .events
+        .iter()
+        .filter(|e| e.starts_with("POST "))
+        .collect();
+    assert_eq!(posts.len(), 3, "{posts:?}");
+    assert!(
+        !tab.events.iter().any(|e| e == "Page.frameNavigated"),
+        "the page never reloaded: {:?}",
+        tab.events
+    );
+    let mut first_after = first_before.clone();
+    first_after.push(accepted.clone());
+    assert_eq!(sidecar_tags_of(root, &first), first_after, "{first}");
+    let mut second_after = second_before.clone();
+    second_after.extend(expected.iter().cloned());
+    assert_eq!(sidecar_tags_of(root, &second), second_after, "{second}");
+    eprintln!(
+        "one by one: {first} +{accepted}; {second} +{expected:?} ({:.1} s)",
+        started.elapsed().as_secs_f64()
+    );
+    shot
 }

@@ -403,6 +403,13 @@ fn changes_need_this_runs_token_and_go_through_the_safe_write() {
         expected.iter().collect::<BTreeSet<_>>(),
         "source: TRUTH.csv written_tags + the accepted tag"
     );
+    // Sent without `from=suggestion` (as "add a tag of your own" sends it): the person's.
+    let read = tagweave_collection::sidecar::read_sidecar(
+        &sidecar,
+        tagweave_collection::SidecarKind::Text,
+    )
+    .unwrap();
+    assert!(read.accepted.is_empty(), "{:?}", read.accepted);
     let original = sidecar.with_extension("txt.orig");
     assert_eq!(std::fs::read(&original).unwrap(), before, "original kept");
     assert!(page.contains(&format!("Added “{missing}”")), "{page}");
@@ -536,6 +543,8 @@ fn read_only_refuses_every_change() {
         "/".to_string(),
         format!("/picture/{id}"),
         "/review".to_string(),
+        "/one-by-one".to_string(),
+        "/one-by-one?at=2".to_string(),
     ] {
         let page = assert_page(&served.get(&target), 200);
         assert!(page.contains("--read-only"), "{target}");
@@ -558,6 +567,237 @@ fn read_only_refuses_every_change() {
     // Looking still works, and still makes thumbnails (a cache, not a change).
     assert_eq!(served.get(&format!("/picture/{id}/thumbnail")).status, 200);
     assert_eq!(sidecar_snapshot(root), snapshot, "no sidecar changed");
+}
+
+/// One place of the one-by-one walk, read from its fragment.
+struct Place {
+    id: String,
+    picture: String,
+    untagged: bool,
+    total: usize,
+    suggested: Vec<String>,
+    /// The tags the accept-all form carries, and the count its button says.
+    accept_all: Vec<String>,
+    said: Option<usize>,
+}
+
+fn place(served: &Served, target: &str) -> Place {
+    let answer = served.get(target);
+    assert_eq!(answer.status, 200, "{target}: {}", answer.text());
+    assert_eq!(answer.content_type(), "text/html; charset=utf-8");
+    let part = answer.text();
+    assert!(
+        part.starts_with("<section class=\"one"),
+        "a fragment: {part}"
+    );
+    let id = attr_values(&part, "section class=\"one", "data-id")[0].clone();
+    let picture = attr_values(&part, "class=\"large\"", "alt")[0].clone();
+    let at = part.find("class=\"where\">").unwrap() + "class=\"where\">".len();
+    let place_words = &part[at..at + part[at..].find('<').unwrap()];
+    // "2 of 57 · untagged"
+    let total = place_words.split(' ').nth(2).unwrap().parse().unwrap();
+    let form = part
+        .find("class=\"all-above\"")
+        .map(|at| &part[at..at + part[at..].find("</form>").unwrap()]);
+    let accept_all = form
+        .map(|f| attr_values(f, "name=\"add\"", "value"))
+        .unwrap_or_default();
+    let said = form.map(|f| {
+        let words = &f[f.find("accept ").unwrap() + "accept ".len()..];
+        words.split(' ').next().unwrap().parse().unwrap()
+    });
+    Place {
+        id,
+        picture,
+        untagged: place_words.ends_with("· untagged"),
+        total,
+        suggested: attr_values(&part, "class=\"suggestion\"", "data-tag"),
+        accept_all,
+        said,
+    }
+}
+
+#[test]
+fn the_one_by_one_walk_goes_untagged_first_and_accepts_what_it_counted() {
+    let folder = trained_copy();
+    let root = folder.path();
+    let truth = truth();
+    let served = Served::start(root, &[]);
+
+    // The page loads one script, from this server, under a policy that allows only that.
+    let page = served.get("/one-by-one");
+    let text = assert_page(&page, 200);
+    assert!(
+        text.contains("<script src=\"/queue.js\" defer></script>"),
+        "{text}"
+    );
+    assert_eq!(text.matches("<script").count(), 1, "nothing inline");
+    assert!(text.contains("<kbd>j or →</kbd>"), "the keys are shown");
+    let script = served.get("/queue.js");
+    assert_eq!(script.status, 200);
+    // source: RFC 9239 §6 — text/javascript.
+    assert_eq!(script.content_type(), "text/javascript; charset=utf-8");
+    assert_eq!(script.header("X-Content-Type-Options"), Some("nosniff"));
+    assert!(script.text().contains("addEventListener(\"keydown\""));
+    for answer in [&page, &script] {
+        let policy = answer.header("Content-Security-Policy").unwrap();
+        assert!(policy.contains("script-src 'self';"), "{policy}");
+        assert!(policy.contains("connect-src 'self';"), "{policy}");
+        assert!(!policy.contains("unsafe"), "{policy}");
+    }
+    // Without the pass, neither the script nor a place of the walk.
+    for target in ["/queue.js", "/one-by-one/part?at=1"] {
+        assert_eq!(request(served.port, "GET", target, &[], b"").status, 403);
+    }
+
+    // Every place, in order: all the untagged pictures, then partly tagged ones.
+    // source: TRUTH.csv written_tags — the untagged pictures are those without any.
+    let first = place(&served, "/one-by-one/part?at=1");
+    let walk: Vec<Place> = (1..=first.total)
+        .map(|at| place(&served, &format!("/one-by-one/part?at={at}")))
+        .collect();
+    let untagged_in_walk: BTreeSet<&str> = walk
+        .iter()
+        .take_while(|p| p.untagged)
+        .map(|p| p.picture.as_str())
+        .collect();
+    assert!(!untagged_in_walk.is_empty());
+    assert!(
+        walk.iter()
+            .skip(untagged_in_walk.len())
+            .all(|p| !p.untagged),
+        "untagged before partly tagged"
+    );
+    let untagged_truth: BTreeSet<&str> = truth
+        .values()
+        .filter(|r| r.written_tags.is_empty())
+        .map(|r| r.file.as_str())
+        .collect();
+    assert_eq!(untagged_in_walk, untagged_truth);
+    let partly = &walk[untagged_in_walk.len()..];
+    assert!(!partly.is_empty(), "the model would add tags to some");
+    for p in partly {
+        assert!(!truth[&p.picture].written_tags.is_empty(), "{}", p.picture);
+        assert!(!p.suggested.is_empty(), "{}", p.picture);
+    }
+    for p in &walk {
+        assert_eq!(p.said, Some(p.accept_all.len()), "{}", p.picture);
+        assert_eq!(p.id, served.id_of(&p.picture));
+    }
+    // Past either end: the nearest place.
+    assert_eq!(
+        place(&served, "/one-by-one/part?at=0").picture,
+        walk[0].picture
+    );
+    let last = format!("/one-by-one/part?at={}", walk.len() + 5);
+    assert_eq!(place(&served, &last).picture, walk[walk.len() - 1].picture);
+
+    // A partly tagged picture with a text sidecar, and a threshold low enough to take
+    // two or more of its suggestions.
+    let (at, chosen) = walk
+        .iter()
+        .enumerate()
+        .skip(untagged_in_walk.len())
+        .map(|(i, p)| (i + 1, p))
+        .find(|(_, p)| truth[&p.picture].sidecar == "txt" && p.suggested.len() >= 3)
+        .expect("a partly tagged picture with a text sidecar");
+    let low = place(&served, &format!("/one-by-one/part?at={at}&above=1"));
+    assert!(low.accept_all.len() >= 2, "{:?}", low.accept_all);
+    let token = served.token(&chosen.id);
+    let target = format!("/picture/{}/tags", chosen.id);
+    let adds: String = low
+        .accept_all
+        .iter()
+        .map(|t| format!("&add={}", form_value(t)))
+        .collect();
+    // The page's forms say the tags they send are suggestions accepted, not typed.
+    let fragment = served
+        .get(&format!("/one-by-one/part?at={at}&above=1"))
+        .text();
+    assert!(
+        fragment.contains("<input type=\"hidden\" name=\"from\" value=\"suggestion\">"),
+        "{fragment}"
+    );
+    let decision =
+        format!("token={token}&back=one-by-one&at={at}&answer=part&from=suggestion{adds}");
+    let sidecar = text_sidecar_of(root, &chosen.picture);
+    let before = text_sidecar_tags(&sidecar);
+
+    // Without the token, or without the pass, nothing is written.
+    let no_token = decision.replace(&format!("token={token}&"), "");
+    assert_eq!(served.post(&target, &no_token).status, 403);
+    let origin = served.origin();
+    let no_pass = request(
+        served.port,
+        "POST",
+        &target,
+        &[
+            ("Content-Type", "application/x-www-form-urlencoded"),
+            ("Origin", &origin),
+        ],
+        decision.as_bytes(),
+    );
+    assert_eq!(no_pass.status, 403);
+    assert_eq!(text_sidecar_tags(&sidecar), before);
+
+    // One request accepts them all, and answers with the picture's new fragment.
+    let answer = served.post(&target, &decision);
+    assert_eq!(answer.status, 200, "{}", answer.text());
+    let part = answer.text();
+    assert!(part.starts_with("<section class=\"one"), "{part}");
+    let mut expected = before.clone();
+    expected.extend(low.accept_all.iter().cloned());
+    assert_eq!(
+        text_sidecar_tags(&sidecar),
+        expected,
+        "the sidecar gained exactly the counted tags"
+    );
+    let marked = tagweave_collection::sidecar::read_sidecar(
+        &sidecar,
+        tagweave_collection::SidecarKind::Text,
+    )
+    .unwrap()
+    .accepted;
+    let counted: Vec<String> = low
+        .accept_all
+        .iter()
+        .filter_map(|t| tagweave_collection::normalize_tag(t))
+        .collect();
+    assert_eq!(
+        marked, counted,
+        "marked in the sidecar as accepted suggestions"
+    );
+    let now = attr_values(&part, "class=\"current\"", "data-tag");
+    for tag in &low.accept_all {
+        assert!(now.contains(tag), "{tag} shown as carried: {now:?}");
+    }
+    assert!(attr_values(&part, "class=\"suggestion\"", "data-tag")
+        .iter()
+        .all(|t| !low.accept_all.contains(t)));
+    // Rejecting answers in place too (no redirect, nothing written).
+    let after = place(&served, &format!("/one-by-one/part?at={at}"));
+    if let Some(tag) = after.suggested.first() {
+        let answer = served.post(
+            &format!("/picture/{}/set-aside", chosen.id),
+            &format!(
+                "token={token}&back=one-by-one&at={at}&answer=part&tag={}",
+                form_value(tag)
+            ),
+        );
+        assert_eq!(answer.status, 200, "{}", answer.text());
+        assert!(!attr_values(&answer.text(), "class=\"suggestion\"", "data-tag").contains(tag));
+        assert_eq!(text_sidecar_tags(&sidecar), expected);
+    }
+    // Without the script the same forms lead back to the walk at the same place.
+    let plain = served.post(
+        &format!("/picture/{}/set-aside", chosen.id),
+        &format!("token={token}&back=one-by-one&at={at}&tag=anything"),
+    );
+    assert_eq!(plain.status, 303);
+    assert_eq!(
+        plain.header("Location"),
+        Some(format!("/one-by-one?at={at}").as_str())
+    );
 }
 
 #[test]

@@ -16,7 +16,7 @@ use crate::guard::{
     site_allowed, Secret, PASS_COOKIE,
 };
 use crate::ids::PageIds;
-use crate::pages::{self, Card, Page, Written};
+use crate::pages::{self, Card, Page, Written, FROM_SUGGESTION};
 use crate::renditions::{Rendition, Renditions};
 use crate::text::{first, pairs, tag_words};
 use crate::ServeError;
@@ -64,9 +64,14 @@ pub struct Reply {
 const HTML: &str = "text/html; charset=utf-8";
 const CSS: &str = "text/css; charset=utf-8";
 const JPEG: &str = "image/jpeg";
+/// source: RFC 9239 §6 (text/javascript is the one type for scripts).
+const JS: &str = "text/javascript; charset=utf-8";
 
 /// Our own look, embedded in the binary.
 const STYLE: &str = include_str!("assets/style.css");
+/// The one-by-one page's keys and in-place decisions, embedded too; the page works
+/// without it.
+const SCRIPT: &str = include_str!("assets/queue.js");
 
 /// Pictures in a grid unless the address asks for another number.
 const GRID: usize = 24;
@@ -77,6 +82,13 @@ const SUGGESTIONS: usize = 8;
 const QUEUE_PAGE: usize = 20;
 /// Longest tag accepted from a form (in characters).
 const TAG_MAX: usize = 100;
+/// Most tags one form may accept together (a picture lists `SUGGESTIONS`).
+const TAGS_AT_ONCE: usize = 32;
+/// A tagged picture joins the one-by-one walk when a tag it does not carry gets at least
+/// this strength.
+const PROPOSE_AT: f32 = 0.5;
+/// The accept-all threshold before a person moves it, in hundredths.
+const ABOVE: u32 = 70;
 
 impl Reply {
     pub(crate) fn new(status: u16, content_type: &'static str, body: Vec<u8>) -> Reply {
@@ -123,9 +135,31 @@ pub(crate) struct App {
     hosts: Vec<String>,
     renditions: Renditions,
     audit: OnceLock<Result<Vec<Dispute>, String>>,
+    /// The one-by-one walk, worked out on first use and kept in its order for the run.
+    walk: OnceLock<Result<Walk, String>>,
     /// What was done to each picture (by id) since this server started. Its lock also
     /// serialises writes, so two clicks never plan from the same old bytes.
     notes: Mutex<HashMap<String, PictureNotes>>,
+}
+
+/// The pictures of the one-by-one walk, as rows: the untagged ones first.
+struct Walk {
+    rows: Vec<usize>,
+    untagged: usize,
+}
+
+/// The order of the one-by-one walk: untagged pictures in index order, then tagged ones
+/// whose strongest suggestion of a tag they do not carry reaches [`PROPOSE_AT`], strongest
+/// first (ties in index order). `strongest_other[r]` is read for tagged rows only.
+fn walk_order(tagged: &[bool], strongest_other: &[f32]) -> Walk {
+    let mut rows: Vec<usize> = (0..tagged.len()).filter(|&r| !tagged[r]).collect();
+    let untagged = rows.len();
+    let mut partly: Vec<usize> = (0..tagged.len())
+        .filter(|&r| tagged[r] && strongest_other[r] >= PROPOSE_AT)
+        .collect();
+    partly.sort_by(|&a, &b| strongest_other[b].total_cmp(&strongest_other[a]));
+    rows.extend(partly);
+    Walk { rows, untagged }
 }
 
 /// A routed request that needs an indexed picture.
@@ -172,6 +206,7 @@ impl App {
             read_only,
             hosts: loopback_hosts(port),
             audit: OnceLock::new(),
+            walk: OnceLock::new(),
             notes: Mutex::new(HashMap::new()),
             store,
             queries,
@@ -227,11 +262,10 @@ impl App {
         match segments.as_slice() {
             [""] => self.get_only(request, || self.search(&query)),
             ["review"] => self.get_only(request, || self.review(&query)),
-            ["style.css"] => self.get_only(request, || {
-                let mut reply = Reply::new(200, CSS, STYLE.as_bytes().to_vec());
-                reply.max_age = Some(3600);
-                reply
-            }),
+            ["one-by-one"] => self.get_only(request, || self.one_by_one(&query, false)),
+            ["one-by-one", "part"] => self.get_only(request, || self.one_by_one(&query, true)),
+            ["style.css"] => self.get_only(request, || asset(CSS, STYLE)),
+            ["queue.js"] => self.get_only(request, || asset(JS, SCRIPT)),
             ["picture", id] => self.picture_route(request, id, PictureRoute::Page, &query),
             ["picture", id, "thumbnail"] => {
                 self.picture_route(request, id, PictureRoute::Thumbnail, &query)
@@ -557,14 +591,23 @@ impl App {
     }
 
     fn picture(&self, row: usize) -> Reply {
+        match self.picture_content(row) {
+            Ok(content) => self.page(200, pages::picture(&content)),
+            Err(reply) => reply,
+        }
+    }
+
+    /// A picture as it stands now: its tags (with this run's writes), its suggestions
+    /// (less those set aside), and how far to trust their numbers.
+    fn picture_content(&self, row: usize) -> Result<pages::PictureContent<'_>, Reply> {
         let item = self.item(row);
         let probabilities = match self.queries.suggest_rows(&[row]) {
             Ok(p) => p.row(0).to_vec(),
-            Err(error) => return self.failed(&error),
+            Err(error) => return Err(self.failed(&error)),
         };
         let shares = match self.queries.neighbour_shares(&[row]) {
             Ok(s) => s.row(0).to_vec(),
-            Err(error) => return self.failed(&error),
+            Err(error) => return Err(self.failed(&error)),
         };
         let vocabulary = self.queries.vocabulary();
         let share_of = |tag: &str| {
@@ -608,7 +651,96 @@ impl App {
             changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),
         };
         drop(notes_by_id);
-        self.page(200, pages::picture(&content))
+        Ok(content)
+    }
+
+    fn walk(&self) -> &Result<Walk, String> {
+        self.walk.get_or_init(|| {
+            let items = self.queries.items();
+            let tagged: Vec<bool> = items.iter().map(|i| !i.tags.is_empty()).collect();
+            let rows: Vec<usize> = (0..items.len()).filter(|&r| tagged[r]).collect();
+            let mut strongest = vec![0.0; items.len()];
+            if !rows.is_empty() {
+                let probabilities = self
+                    .queries
+                    .suggest_rows(&rows)
+                    .map_err(|e| e.to_string())?;
+                for (&row, p) in rows.iter().zip(probabilities.outer_iter()) {
+                    strongest[row] = self
+                        .queries
+                        .tag_scores(&p.to_vec(), &items[row].tags)
+                        .into_iter()
+                        .find(|s| !s.carried)
+                        .map_or(0.0, |s| s.probability);
+                }
+            }
+            Ok(walk_order(&tagged, &strongest))
+        })
+    }
+
+    /// The one-by-one walk at the place the address asks for (`at`, from 1): the whole
+    /// page, or (`part`) just the picture's fragment for the page's script.
+    fn one_by_one(&self, query: &[(String, String)], part: bool) -> Reply {
+        let walk = match self.walk() {
+            Ok(w) => w,
+            Err(error) => return self.failed(error),
+        };
+        let calibrated = self.queries.all_calibrated();
+        let above = first(query, "above")
+            .and_then(|typed| pages::threshold_from(typed, calibrated))
+            .unwrap_or(ABOVE);
+        let total = walk.rows.len();
+        let at = first(query, "at")
+            .and_then(|a| a.parse::<usize>().ok())
+            .unwrap_or(1)
+            .clamp(1, total.max(1));
+        let current = match walk.rows.get(at - 1) {
+            Some(&row) => match self.picture_content(row) {
+                Ok(mut content) => {
+                    // One kind of number along the whole walk, so the threshold keeps
+                    // its meaning from picture to picture.
+                    content.calibrated = calibrated;
+                    let step = pages::Step {
+                        at,
+                        total,
+                        untagged: at <= walk.untagged,
+                        above,
+                    };
+                    Some((content, step))
+                }
+                Err(reply) => return reply,
+            },
+            None => None,
+        };
+        if part {
+            return match current {
+                Some((content, step)) => {
+                    Reply::new(200, HTML, pages::one_part(&content, &step).into_bytes())
+                }
+                None => self.not_found(),
+            };
+        }
+        let content = pages::OneByOneContent {
+            untagged: walk.untagged,
+            partly: total - walk.untagged,
+            current,
+        };
+        self.page(200, pages::one_by_one(&content))
+    }
+
+    /// After a decision sent by the one-by-one page's script (`answer=part`): the
+    /// picture's fragment as it stands now, instead of a page to go back from.
+    fn fragment_after(&self, row: usize, form: &[(String, String)]) -> Option<Reply> {
+        if first(form, "answer") != Some("part") {
+            return None;
+        }
+        let walk = self.walk().as_ref().ok()?;
+        let at = walk.rows.iter().position(|&r| r == row)? + 1;
+        let mut query = vec![("at".to_string(), at.to_string())];
+        if let Some(above) = first(form, "above") {
+            query.push(("above".to_string(), above.to_string()));
+        }
+        Some(self.one_by_one(&query, true))
     }
 
     /// The token to put in forms, or `None` when the page must offer no changes.
@@ -699,51 +831,68 @@ impl App {
         }
     }
 
-    /// Writes one accepted or removed tag into the picture's sidecars, the way `apply`
-    /// does, and shows what was written.
+    /// Writes accepted tags (one, or several accepted together) or one removed tag into
+    /// the picture's sidecars, the way `apply` does, and shows what was written.
     fn change_tags(&self, row: usize, form: &[(String, String)]) -> Reply {
         let item = self.item(row);
-        let add = first(form, "add").map(str::trim).filter(|t| !t.is_empty());
-        let remove = first(form, "remove")
-            .map(str::trim)
-            .filter(|t| !t.is_empty());
-        let (spelling, adding) = match (add, remove) {
-            (Some(t), None) => (t, true),
-            (None, Some(t)) => (t, false),
+        let values = |name: &str| -> Vec<&str> {
+            form.iter()
+                .filter(|(k, _)| k == name)
+                .map(|(_, v)| v.trim())
+                .filter(|t| !t.is_empty())
+                .collect()
+        };
+        let (add, remove) = (values("add"), values("remove"));
+        let (spellings, adding) = match (add.len(), remove.len()) {
+            (1..=TAGS_AT_ONCE, 0) => (add, true),
+            (0, 1) => (remove, false),
             _ => {
                 return self.message(
                     400,
                     "Which tag?",
-                    "Send exactly one tag, to add or to remove.",
+                    &format!(
+                        "Send one tag to remove, or 1 to {TAGS_AT_ONCE} tags to add, \
+                         and not both."
+                    ),
                 )
             }
         };
-        let normal = match normalize_tag(spelling) {
-            Some(n) if n.chars().count() <= TAG_MAX => n,
-            _ => {
-                return self.message(
-                    400,
-                    "Not a tag",
-                    &format!("A tag has 1 to {TAG_MAX} characters besides spaces."),
-                )
+        let mut normals: Vec<String> = Vec::new();
+        for spelling in &spellings {
+            let normal = match normalize_tag(spelling) {
+                Some(n) if n.chars().count() <= TAG_MAX => n,
+                _ => {
+                    return self.message(
+                        400,
+                        "Not a tag",
+                        &format!("A tag has 1 to {TAG_MAX} characters besides spaces."),
+                    )
+                }
+            };
+            if let Some(refusal) = self.refuse_misleading(spelling) {
+                return refusal;
             }
-        };
-        if let Some(refusal) = self.refuse_misleading(spelling) {
-            return refusal;
+            if !normals.contains(&normal) {
+                normals.push(normal);
+            }
         }
+        let spellings: Vec<String> = spellings.iter().map(|t| t.to_string()).collect();
+        // Accepting what the page suggested is marked as such in the sidecar; a tag typed in
+        // ("a tag of your own") is the person's.
+        let suggested = first(form, "from") == Some(FROM_SUGGESTION);
         let change = TagChange {
             picture: item.rel_path.clone(),
-            add: if adding {
-                vec![spelling.to_string()]
+            add: if adding && !suggested {
+                spellings.clone()
             } else {
                 Vec::new()
             },
-            remove: if adding {
-                Vec::new()
+            accept: if adding && suggested {
+                spellings.clone()
             } else {
-                vec![spelling.to_string()]
+                Vec::new()
             },
-            ..TagChange::default()
+            remove: if adding { Vec::new() } else { spellings },
         };
         let mut notes_by_id = self.notes();
         if let Some(link) = self.linked_sidecar(item) {
@@ -795,17 +944,22 @@ impl App {
             Err(error) => return self.message(409, "Not written", &error.to_string()),
         };
         let notes = notes_by_id.entry(item.id.clone()).or_default();
-        if adding {
-            notes.removed.remove(&normal);
-            notes.added.insert(normal.clone());
-        } else {
-            notes.added.remove(&normal);
-            notes.removed.insert(normal.clone());
+        for normal in &normals {
+            if adding {
+                notes.removed.remove(normal);
+                notes.added.insert(normal.clone());
+            } else {
+                notes.added.remove(normal);
+                notes.removed.insert(normal.clone());
+            }
         }
         drop(notes_by_id);
+        if let Some(reply) = self.fragment_after(row, form) {
+            return reply;
+        }
         let written = Written {
             card: self.card(row, None, None),
-            tag: normal,
+            tags: normals,
             adding,
             edits: plan
                 .edits
@@ -842,6 +996,9 @@ impl App {
             .or_default()
             .set_aside
             .insert(tag);
+        if let Some(reply) = self.fragment_after(row, form) {
+            return reply;
+        }
         let mut reply = Reply::new(303, HTML, Vec::new());
         reply.location = Some(back_link(form, &self.page_ids[row]));
         reply
@@ -895,6 +1052,13 @@ impl App {
     }
 }
 
+/// One of our embedded files, which a browser may keep for an hour.
+fn asset(content_type: &'static str, text: &str) -> Reply {
+    let mut reply = Reply::new(200, content_type, text.as_bytes().to_vec());
+    reply.max_age = Some(3600);
+    reply
+}
+
 fn form(body: &[u8]) -> Vec<(String, String)> {
     pairs(&String::from_utf8_lossy(body))
 }
@@ -906,16 +1070,18 @@ fn limit_of(query: &[(String, String)]) -> usize {
         .clamp(1, GRID_MAX)
 }
 
-/// Where a form's "back" goes: the review queue (at its page) or the picture's page.
-/// Built from a fixed word, a number and the id, never echoed from the request.
+/// Where a form's "back" goes: the review queue (at its page), the one-by-one walk (at
+/// its place) or the picture's page. Built from a fixed word, a number and the id, never
+/// echoed from the request.
 fn back_link(form: &[(String, String)], id: &str) -> String {
+    let number = |name: &str| {
+        first(form, name)
+            .and_then(|p| p.parse::<usize>().ok())
+            .unwrap_or(1)
+    };
     match first(form, "back") {
-        Some("review") => {
-            let page = first(form, "page")
-                .and_then(|p| p.parse::<usize>().ok())
-                .unwrap_or(1);
-            format!("/review?page={page}")
-        }
+        Some("one-by-one") => format!("/one-by-one?at={}", number("at")),
+        Some("review") => format!("/review?page={}", number("page")),
         _ => format!("/picture/{id}"),
     }
 }
@@ -943,6 +1109,34 @@ mod tests {
             back_link(&f(""), "00000000000000ab"),
             "/picture/00000000000000ab"
         );
+        assert_eq!(
+            back_link(&f("back=one-by-one&at=12"), "00000000000000ab"),
+            "/one-by-one?at=12"
+        );
+        assert_eq!(
+            back_link(
+                &f("back=one-by-one&at=%2F%2Fevil.example"),
+                "00000000000000ab"
+            ),
+            "/one-by-one?at=1"
+        );
+    }
+
+    #[test]
+    fn the_walk_puts_untagged_first_then_the_likeliest_additions() {
+        // Rows 1 and 4 are untagged; of the tagged ones, row 3 has the strongest
+        // suggestion, row 0 the next, row 2 none that reaches PROPOSE_AT, row 5 ties row 0.
+        let tagged = [true, false, true, true, false, true];
+        let strongest = [0.6, 0.99, 0.3, 0.9, 0.0, 0.6];
+        let walk = walk_order(&tagged, &strongest);
+        assert_eq!(walk.rows, vec![1, 4, 3, 0, 5]);
+        assert_eq!(walk.untagged, 2);
+        // Exactly at the bar is in; just below is out.
+        let walk = walk_order(&[true, true], &[PROPOSE_AT, PROPOSE_AT - 1e-3]);
+        assert_eq!(walk.rows, vec![0]);
+        assert_eq!(walk.untagged, 0);
+        let walk = walk_order(&[], &[]);
+        assert!(walk.rows.is_empty());
     }
 
     #[test]

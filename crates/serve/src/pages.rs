@@ -90,7 +90,8 @@ pub struct WrittenFile {
 
 pub struct Written {
     pub card: Card,
-    pub tag: String,
+    /// The tags asked for (normalised): one, or several accepted together.
+    pub tags: Vec<String>,
     pub adding: bool,
     pub edits: Vec<WrittenFile>,
     /// True when the picture already was as asked (nothing to write).
@@ -118,7 +119,8 @@ pub fn layout(page: &Page, read_only: bool, root: Option<&str>) -> String {
          <title>{title} · tagweave</title>\n<link rel=\"stylesheet\" href=\"/style.css\">\n\
          <link rel=\"icon\" href=\"data:,\">\n</head>\n<body>\n\
          <header class=\"bar\"><a class=\"brand\" href=\"/\">tagweave</a>\
-         <nav><a href=\"/\">Search</a><a href=\"/review\">Review queue</a></nav>\
+         <nav><a href=\"/\">Search</a><a href=\"/one-by-one\">One by one</a>\
+         <a href=\"/review\">Review queue</a></nav>\
          {root}</header>\n\
          {banner}\n<main>\n{body}\n</main>\n\
          <footer>Suggestions are the model's guesses for you to judge. Nothing is written \
@@ -315,6 +317,10 @@ pub fn like(content: &LikeContent) -> Page {
 }
 
 /// A one-button form that posts a change with this run's token.
+/// The value of the `from` field that says the tags sent are suggestions the person accepted
+/// (the sidecar marks them so), not tags they typed.
+pub(crate) const FROM_SUGGESTION: &str = "suggestion";
+
 fn button_form(
     token: &str,
     id: &str,
@@ -332,10 +338,15 @@ fn button_form(
         _ if field == "remove" => ("tags", "choice"),
         _ => ("tags", "accept"),
     };
+    let from = if field == "add" {
+        format!("<input type=\"hidden\" name=\"from\" value=\"{FROM_SUGGESTION}\">")
+    } else {
+        String::new()
+    };
     format!(
         "<form method=\"post\" action=\"/picture/{id}/{path}\" class=\"inline\" \
          data-action=\"{label}\" data-tag=\"{tag}\">\
-         <input type=\"hidden\" name=\"token\" value=\"{token}\">{back}\
+         <input type=\"hidden\" name=\"token\" value=\"{token}\">{back}{from}\
          <button class=\"{class}\" name=\"{field}\" value=\"{tag}\">{label}</button></form>",
         tag = html(tag),
         token = html(token),
@@ -355,6 +366,82 @@ fn strength(p: f32, calibrated: bool) -> String {
         format!("{p:.2}")
     }
 }
+
+/// The suggestions of a picture as list items, each with its accept and reject forms
+/// (carrying `back`), its strength, and that strength in hundredths for the page's script.
+fn suggestion_items(content: &PictureContent, back: &str) -> String {
+    let id = &content.id;
+    let mut out = String::new();
+    for (tag, p) in &content.suggestions {
+        let buttons = content
+            .token
+            .map(|t| {
+                button_form(t, id, "tags", "add", tag, "accept", back)
+                    + &button_form(t, id, "set-aside", "tag", tag, "reject", back)
+            })
+            .unwrap_or_default();
+        let _ = write!(
+            out,
+            "<li class=\"suggestion\" data-tag=\"{t}\" data-hundredths=\"{h}\"><span class=\"tagname\">{t}</span>\
+             <meter min=\"0\" max=\"1\" value=\"{p:.3}\"></meter><span class=\"prob\">{pc}</span>{buttons}</li>",
+            t = html(tag),
+            h = hundredths(*p),
+            pc = strength(*p, content.calibrated),
+        );
+    }
+    out
+}
+
+/// A strength as shown, in hundredths (83 for "83 %" or "0.83"): what a threshold is
+/// compared with, so that what is counted is what the page shows.
+pub fn hundredths(p: f32) -> u32 {
+    (p.clamp(0.0, 1.0) * 100.0).round() as u32
+}
+
+/// The suggestions that "accept all at or above" takes: those shown at `above` hundredths
+/// or more, in the order shown.
+pub fn at_or_above(suggestions: &[(String, f32)], above: u32) -> Vec<&str> {
+    suggestions
+        .iter()
+        .filter(|(_, p)| hundredths(*p) >= above)
+        .map(|(t, _)| t.as_str())
+        .collect()
+}
+
+/// The threshold as a person types it: a percentage when the numbers are calibrated
+/// probabilities, else a score between 0 and 1. `None` when it is not a number.
+pub fn threshold_from(typed: &str, calibrated: bool) -> Option<u32> {
+    let value: f32 = typed.trim().parse().ok().filter(|v: &f32| v.is_finite())?;
+    let scaled = if calibrated { value } else { value * 100.0 };
+    Some(scaled.round().clamp(0.0, 100.0) as u32)
+}
+
+/// The threshold written back as a person types it.
+fn threshold_typed(above: u32, calibrated: bool) -> String {
+    if calibrated {
+        above.to_string()
+    } else {
+        format!("{:.2}", f64::from(above) / 100.0)
+    }
+}
+
+/// The accept-all button's words; the page's script says the same as the threshold moves.
+pub fn accept_all_label(count: usize, above: u32, calibrated: bool) -> String {
+    let tags = if count == 1 { "tag" } else { "tags" };
+    if calibrated {
+        format!("accept {count} {tags} at or above {above} %")
+    } else {
+        format!(
+            "accept {count} {tags} scoring {} or more",
+            threshold_typed(above, false)
+        )
+    }
+}
+
+/// Said of a picture less like any tagged picture than those are like each other.
+const UNLIKE_NOTE: &str = "<p class=\"problem\">Unlike this collection: this picture is less \
+     like any tagged picture than the tagged pictures are like each other, so the suggestions \
+     below are guesses.</p>";
 
 /// Said under numbers that are not calibrated probabilities.
 const SCORES_NOTE: &str = "<p class=\"hint\">Scores, not probabilities: higher is likelier, \
@@ -410,32 +497,13 @@ pub fn picture(content: &PictureContent) -> Page {
         let _ = write!(body, "<p class=\"written\">{SCAN_NOTE}</p>");
     }
     if content.unlike_collection {
-        body.push_str(
-            "<p class=\"problem\">Unlike this collection: this picture is less like any tagged \
-             picture than the tagged pictures are like each other, so the suggestions below are \
-             guesses.</p>",
-        );
+        body.push_str(UNLIKE_NOTE);
     }
     body.push_str("<h2>Suggested</h2><ul class=\"suggestions\">");
     if content.suggestions.is_empty() {
         body.push_str("<li class=\"empty\">nothing more to suggest</li>");
     }
-    for (tag, p) in &content.suggestions {
-        let buttons = content
-            .token
-            .map(|t| {
-                button_form(t, id, "tags", "add", tag, "accept", "")
-                    + &button_form(t, id, "set-aside", "tag", tag, "reject", "")
-            })
-            .unwrap_or_default();
-        let _ = write!(
-            body,
-            "<li class=\"suggestion\" data-tag=\"{t}\"><span class=\"tagname\">{t}</span>\
-             <meter min=\"0\" max=\"1\" value=\"{p:.3}\"></meter><span class=\"prob\">{pc}</span>{buttons}</li>",
-            t = html(tag),
-            pc = strength(*p, content.calibrated),
-        );
-    }
+    body.push_str(&suggestion_items(content, ""));
     body.push_str("</ul>");
     if !content.calibrated && !content.suggestions.is_empty() {
         body.push_str(SCORES_NOTE);
@@ -570,9 +638,185 @@ pub fn review(content: &QueueContent) -> Page {
     }
 }
 
+/// Where a picture stands in the one-by-one walk.
+pub struct Step {
+    /// Its place in the walk, from 1.
+    pub at: usize,
+    pub total: usize,
+    /// Untagged (else it carries tags and the model would add more).
+    pub untagged: bool,
+    /// The accept-all threshold, in hundredths.
+    pub above: u32,
+}
+
+/// The one-by-one page: how many pictures of each kind it walks through, and the one at
+/// the current place (none when there is nothing to go through).
+pub struct OneByOneContent<'a> {
+    pub untagged: usize,
+    pub partly: usize,
+    pub current: Option<(PictureContent<'a>, Step)>,
+}
+
+/// The keys of the one-by-one page, as its legend shows them.
+const KEYS: [(&str, &str); 5] = [
+    ("j or →", "next picture"),
+    ("k or ←", "previous picture"),
+    ("↓ ↑", "move between suggestions"),
+    ("a", "accept the marked suggestion"),
+    ("r", "reject it"),
+];
+
+fn step_href(at: usize, above: u32, calibrated: bool) -> String {
+    format!(
+        "/one-by-one?at={at}&amp;above={}",
+        threshold_typed(above, calibrated)
+    )
+}
+
+/// One picture of the walk: a fragment the page's script may put in place of the last.
+/// Its forms work without the script too (they come back to this place).
+pub fn one_part(content: &PictureContent, step: &Step) -> String {
+    let id = &content.id;
+    let calibrated = content.calibrated;
+    let back = format!(
+        "<input type=\"hidden\" name=\"back\" value=\"one-by-one\">\
+         <input type=\"hidden\" name=\"at\" value=\"{}\">",
+        step.at
+    );
+    let mut out = format!(
+        "<section class=\"one picture\" data-at=\"{at}\" data-id=\"{id}\" data-calibrated=\"{cal}\">\
+         <figure><img class=\"large\" src=\"/picture/{id}/large\" alt=\"{alt}\">\
+         <figcaption><a href=\"{href}\">{alt}</a></figcaption></figure><div class=\"side\">\
+         <nav class=\"steps\">",
+        at = step.at,
+        cal = u8::from(calibrated),
+        alt = html(&content.picture),
+        href = picture_href(id),
+    );
+    if step.at > 1 {
+        let _ = write!(
+            out,
+            "<a href=\"{}\" data-go=\"previous\" rel=\"prev\">← previous</a>",
+            step_href(step.at - 1, step.above, calibrated)
+        );
+    }
+    let _ = write!(
+        out,
+        "<span class=\"where\">{} of {} · {}</span>",
+        step.at,
+        step.total,
+        if step.untagged {
+            "untagged"
+        } else {
+            "partly tagged"
+        }
+    );
+    if step.at < step.total {
+        let _ = write!(
+            out,
+            "<a href=\"{}\" data-go=\"next\" rel=\"next\">next →</a>",
+            step_href(step.at + 1, step.above, calibrated)
+        );
+    }
+    out.push_str("</nav><h2>Tags now</h2><ul class=\"tags\">");
+    if content.tags.is_empty() {
+        out.push_str("<li class=\"empty\">none</li>");
+    }
+    for (tag, written, _) in &content.tags {
+        let _ = write!(
+            out,
+            "<li class=\"current\" data-tag=\"{t}\"><span class=\"tagname\">{t}</span>{fresh}</li>",
+            t = html(tag),
+            fresh = if *written {
+                "<span class=\"note\">written now, not yet indexed</span>"
+            } else {
+                ""
+            },
+        );
+    }
+    out.push_str("</ul>");
+    if content.unlike_collection {
+        out.push_str(UNLIKE_NOTE);
+    }
+    out.push_str("<h2>Suggested</h2><ul class=\"suggestions\">");
+    if content.suggestions.is_empty() {
+        out.push_str("<li class=\"empty\">nothing more to suggest</li>");
+    }
+    out.push_str(&suggestion_items(content, &back));
+    out.push_str("</ul>");
+    if !calibrated && !content.suggestions.is_empty() {
+        out.push_str(SCORES_NOTE);
+    }
+    if let Some(token) = content.token.filter(|_| !content.suggestions.is_empty()) {
+        let (words, bounds, unit) = if calibrated {
+            ("at or above", "min=\"0\" max=\"100\" step=\"1\"", " %")
+        } else {
+            ("scoring at least", "min=\"0\" max=\"1\" step=\"0.01\"", "")
+        };
+        let taken = at_or_above(&content.suggestions, step.above);
+        let adds: String = taken
+            .iter()
+            .map(|t| format!("<input type=\"hidden\" name=\"add\" value=\"{}\">", html(t)))
+            .collect();
+        let _ = write!(
+            out,
+            "<div class=\"all\"><form method=\"get\" action=\"/one-by-one\" class=\"above\">\
+             <input type=\"hidden\" name=\"at\" value=\"{at}\">\
+             <label>Accept every suggestion {words} <input name=\"above\" type=\"number\" \
+             {bounds} value=\"{typed}\">{unit}</label>\
+             <button class=\"quiet\" type=\"submit\">count</button></form>\
+             <form method=\"post\" action=\"/picture/{id}/tags\" class=\"all-above\">\
+             <input type=\"hidden\" name=\"token\" value=\"{token}\">{back}\
+             <input type=\"hidden\" name=\"from\" value=\"{FROM_SUGGESTION}\">{adds}\
+             <button class=\"accept\" type=\"submit\"{off}>{label}</button></form></div>",
+            at = step.at,
+            typed = threshold_typed(step.above, calibrated),
+            token = html(token),
+            off = if taken.is_empty() { " disabled" } else { "" },
+            label = accept_all_label(taken.len(), step.above, calibrated),
+        );
+    }
+    out.push_str("</div></section>");
+    out
+}
+
+pub fn one_by_one(content: &OneByOneContent) -> Page {
+    let mut body = format!(
+        "<section class=\"ask\"><h1>One by one</h1><p class=\"hint\">First the untagged \
+         pictures ({u}), then tagged ones the model would add a tag to ({p}), likeliest \
+         addition first. Accept or reject each suggestion, or all above a threshold.</p>\
+         <dl class=\"keys\">",
+        u = content.untagged,
+        p = content.partly,
+    );
+    for (key, meaning) in KEYS {
+        let _ = write!(body, "<dt><kbd>{key}</kbd></dt><dd>{meaning}</dd>");
+    }
+    body.push_str("</dl></section>\n<p id=\"one-status\" class=\"status\" role=\"status\"></p>");
+    body.push_str("<div id=\"one-slot\">");
+    match &content.current {
+        Some((picture, step)) => body.push_str(&one_part(picture, step)),
+        None => body.push_str(
+            "<p class=\"empty\">Nothing to go through: every picture carries tags, and the \
+             model would add none.</p>",
+        ),
+    }
+    body.push_str("</div>\n<script src=\"/queue.js\" defer></script>");
+    Page {
+        title: "One by one".into(),
+        body,
+    }
+}
+
 pub fn written(content: &Written) -> Page {
     let card = &content.card;
     let verb = if content.adding { "Added" } else { "Removed" };
+    let quoted = content
+        .tags
+        .iter()
+        .map(|t| format!("“{}”", html(t)))
+        .collect::<Vec<_>>()
+        .join(", ");
     let mut body = format!(
         "<section class=\"done\"><a href=\"/picture/{id}\"><img src=\"/picture/{id}/thumbnail\" \
          alt=\"{alt}\"></a><div>",
@@ -587,9 +831,8 @@ pub fn written(content: &Written) -> Page {
         };
         let _ = write!(
             body,
-            "<h1>Nothing to write</h1><p><code>{alt}</code> {state} <b>{tag}</b>{why}.</p>",
+            "<h1>Nothing to write</h1><p><code>{alt}</code> {state} <b>{quoted}</b>{why}.</p>",
             alt = html(&card.picture),
-            tag = html(&content.tag),
             why = if content.already {
                 ""
             } else {
@@ -599,8 +842,7 @@ pub fn written(content: &Written) -> Page {
     } else {
         let _ = write!(
             body,
-            "<h1>{verb} “{tag}”</h1><p>Picture <code>{alt}</code>.</p>",
-            tag = html(&content.tag),
+            "<h1>{verb} {quoted}</h1><p>Picture <code>{alt}</code>.</p>",
             alt = html(&card.picture),
         );
         for file in &content.edits {
@@ -630,7 +872,7 @@ pub fn written(content: &Written) -> Page {
         id = card.id,
     );
     Page {
-        title: format!("{verb} {}", content.tag),
+        title: format!("{verb} {}", content.tags.join(", ")),
         body,
     }
 }
@@ -700,6 +942,112 @@ mod tests {
         let page = layout(&picture(&content), false, Some("/x"));
         assert!(page.contains("method=\"post\""));
         assert!(page.contains("name=\"token\" value=\"abc\""));
+    }
+
+    fn walk_picture(calibrated: bool, token: Option<&str>) -> PictureContent<'_> {
+        PictureContent {
+            id: "0123456789abcdef".into(),
+            picture: "odd/<b>.jpg".into(),
+            sidecars: vec![],
+            tags: vec![("<i>x</i>".into(), true, None)],
+            suggestions: vec![
+                ("night".into(), 0.834),
+                ("\"sea".into(), 0.695),
+                ("harbour".into(), 0.704),
+                ("snow".into(), 0.2),
+            ],
+            calibrated,
+            unlike_collection: false,
+            vocabulary: &[],
+            token,
+            changed: false,
+        }
+    }
+
+    #[test]
+    fn accept_all_counts_what_the_page_shows() {
+        let suggestions = walk_picture(true, None).suggestions;
+        // 0.695 shows as "70 %" (hundredths round half up, as the script's Math.round),
+        // so it counts at 70; 0.2 does not.
+        assert_eq!(hundredths(0.695), 70);
+        assert_eq!(hundredths(0.704), 70);
+        assert_eq!(hundredths(1.5), 100);
+        assert_eq!(
+            at_or_above(&suggestions, 70),
+            vec!["night", "\"sea", "harbour"]
+        );
+        assert_eq!(at_or_above(&suggestions, 71), vec!["night"]);
+        assert_eq!(at_or_above(&suggestions, 84), Vec::<&str>::new());
+        assert_eq!(at_or_above(&suggestions, 0).len(), 4);
+        // A threshold is typed as a percentage when calibrated, else as a score.
+        assert_eq!(threshold_from("70", true), Some(70));
+        assert_eq!(threshold_from("0.7", false), Some(70));
+        assert_eq!(threshold_from(" 150 ", true), Some(100));
+        assert_eq!(threshold_from("-3", true), Some(0));
+        assert_eq!(threshold_from("NaN", true), None);
+        assert_eq!(threshold_from("seventy", false), None);
+        assert_eq!(
+            accept_all_label(3, 70, true),
+            "accept 3 tags at or above 70 %"
+        );
+        assert_eq!(
+            accept_all_label(1, 70, false),
+            "accept 1 tag scoring 0.70 or more"
+        );
+    }
+
+    #[test]
+    fn a_walk_fragment_offers_the_counted_tags_and_escapes_them() {
+        let step = Step {
+            at: 2,
+            total: 5,
+            untagged: false,
+            above: 70,
+        };
+        let part = one_part(&walk_picture(true, Some("t")), &step);
+        assert!(!part.contains("<b>") && !part.contains("<i>"), "{part}");
+        // The accept-all form carries exactly the three counted tags, escaped.
+        let form = &part[part.find("class=\"all-above\"").unwrap()..];
+        let form = &form[..form.find("</form>").unwrap()];
+        let adds: Vec<&str> = form
+            .split("name=\"add\" value=\"")
+            .skip(1)
+            .map(|rest| rest.split('"').next().unwrap())
+            .collect();
+        assert_eq!(adds, vec!["night", "&quot;sea", "harbour"]);
+        assert!(
+            form.contains(">accept 3 tags at or above 70 %</button>"),
+            "{form}"
+        );
+        // Each suggestion tells the script its shown strength; forms come back here.
+        assert!(part.contains("data-tag=\"night\" data-hundredths=\"83\""));
+        assert!(part.contains("name=\"back\" value=\"one-by-one\""));
+        assert!(part.contains("name=\"at\" value=\"2\""));
+        assert!(part.contains("href=\"/one-by-one?at=1&amp;above=70\" data-go=\"previous\""));
+        assert!(part.contains("href=\"/one-by-one?at=3&amp;above=70\" data-go=\"next\""));
+        // Scores: the threshold is a score and says so; read-only: no forms at all.
+        let scores = one_part(&walk_picture(false, None), &step);
+        assert!(!scores.contains("<form"), "{scores}");
+        assert!(scores.contains("Scores, not probabilities"));
+        let scores = one_part(&walk_picture(false, Some("t")), &step);
+        assert!(scores.contains("scoring at least"), "{scores}");
+        assert!(scores.contains("value=\"0.70\""), "{scores}");
+        // The first and last places have no link past the end.
+        let last = Step { at: 5, ..step };
+        let last = one_part(&walk_picture(true, Some("t")), &last);
+        assert!(!last.contains("data-go=\"next\"") && last.contains("data-go=\"previous\""));
+        // The page loads its script from our own address, and shows the keys.
+        let page = one_by_one(&OneByOneContent {
+            untagged: 1,
+            partly: 4,
+            current: None,
+        })
+        .body;
+        assert!(
+            page.contains("<script src=\"/queue.js\" defer></script>"),
+            "{page}"
+        );
+        assert!(page.contains("<kbd>a</kbd>") && page.contains("Nothing to go through"));
     }
 
     // Without a calibration a number is a score, never a percentage; a picture unlike the
