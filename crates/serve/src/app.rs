@@ -976,6 +976,12 @@ impl App {
                 })
                 .collect(),
             already: !plan.already_present.is_empty() || !plan.not_present.is_empty(),
+            inside_picture: plan
+                .not_present
+                .iter()
+                .filter(|tag| !adding && item.tags.contains(tag))
+                .cloned()
+                .collect(),
             back: back_link(form, &self.page_ids[row]),
         };
         self.page(200, pages::written(&written))

@@ -96,6 +96,9 @@ pub struct Written {
     pub edits: Vec<WrittenFile>,
     /// True when the picture already was as asked (nothing to write).
     pub already: bool,
+    /// Tags asked to be removed that only the picture file itself holds (a keyword kept
+    /// inside it), which tagweave never changes.
+    pub inside_picture: Vec<String>,
     pub back: String,
 }
 
@@ -823,7 +826,21 @@ pub fn written(content: &Written) -> Page {
         id = card.id,
         alt = html(&card.picture),
     );
-    if content.edits.is_empty() {
+    if content.edits.is_empty() && !content.inside_picture.is_empty() {
+        let kept = content
+            .inside_picture
+            .iter()
+            .map(|t| format!("“{}”", html(t)))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let _ = write!(
+            body,
+            "<h1>Not removed</h1><p>No sidecar of <code>{alt}</code> holds <b>{kept}</b>: it is \
+             a keyword kept inside the picture file, and tagweave never changes pictures. \
+             Remove it with the program that wrote it, then run <code>tagweave scan</code>.</p>",
+            alt = html(&card.picture),
+        );
+    } else if content.edits.is_empty() {
         let state = if content.adding {
             "already carries"
         } else {
@@ -889,6 +906,31 @@ mod tests {
             untagged: false,
             similarity: Some(0.5),
         }
+    }
+
+    #[test]
+    fn removing_a_keyword_kept_inside_the_picture_says_where_it_is() {
+        let written = |inside_picture: Vec<String>| {
+            written(&Written {
+                card: card("harbour/night.jpg"),
+                tags: vec!["night".into()],
+                adding: false,
+                edits: Vec::new(),
+                already: true,
+                inside_picture,
+                back: "/".into(),
+            })
+            .body
+        };
+        let inside = written(vec!["night".into()]);
+        assert!(inside.contains("<h1>Not removed</h1>"), "{inside}");
+        assert!(
+            inside.contains("keyword kept inside the picture file"),
+            "{inside}"
+        );
+        let absent = written(Vec::new());
+        assert!(absent.contains("<h1>Nothing to write</h1>"), "{absent}");
+        assert!(absent.contains("does not carry"), "{absent}");
     }
 
     #[test]
