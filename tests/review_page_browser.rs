@@ -572,7 +572,7 @@ fn open_search_and_accept_in_a_real_browser() {
     let page = tab.dom();
     let now = attr_values(&page, "class=\"current\"", "data-tag");
     assert!(now.contains(&tag), "{now:?}");
-    assert!(page.contains("run <code>tagweave scan</code> to index the new tags"));
+    assert!(page.contains("tagweave commands in another terminal see the new tags now"));
     let picture_shot = tab.screenshot("picture.png");
 
     // The review queue renders too.

@@ -6,7 +6,9 @@ use anyhow::Context;
 use tagweave_store::{Store, StoreError, DEFAULT_DIR_NAME};
 
 /// `--store PATH` when given (a store folder, or a collection folder holding one in
-/// `.tagweave/`), else the nearest `.tagweave/` here or above.
+/// `.tagweave/`), else the nearest `.tagweave/` here or above. Waits a moment
+/// ([`tagweave_store::PATIENCE`]) for another process that holds it, such as the review
+/// page writing a decision.
 pub fn open_existing(explicit: Option<&Path>) -> anyhow::Result<Store> {
     let dir = match explicit {
         Some(dir) => store_in(dir),
@@ -15,7 +17,7 @@ pub fn open_existing(explicit: Option<&Path>) -> anyhow::Result<Store> {
             Store::locate(&here).ok_or(StoreError::NotFound { start: here })?
         }
     };
-    Ok(Store::open(&dir)?)
+    Ok(Store::open_patiently(&dir, tagweave_store::PATIENCE)?)
 }
 
 /// The store a scan of `folder` writes to: `--store PATH`, else `FOLDER/.tagweave`. A

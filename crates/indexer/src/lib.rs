@@ -112,6 +112,40 @@ pub struct ScanReport {
     pub notes: Vec<Note>,
 }
 
+/// Reads again the records of `pictures` (relative paths) after their sidecars were
+/// written — by the review page — so the next query sees the new tags without a scan.
+/// Only the tags and sidecar list can change this way: a picture whose bytes changed too,
+/// or that is not indexed, is left for the next scan (its features would be stale).
+/// Returns how many records were refreshed.
+pub fn refresh_records(store: &Store, pictures: &[String]) -> Result<usize, IndexError> {
+    let wanted: HashSet<&str> = pictures.iter().map(String::as_str).collect();
+    let root = store.collection_root().to_path_buf();
+    let found = crawl(
+        &root,
+        &CrawlOptions {
+            skip_dirs: vec![store.dir().to_path_buf()],
+            ..CrawlOptions::default()
+        },
+    )?;
+    let mut fresh = Vec::new();
+    for candidate in found
+        .candidates
+        .iter()
+        .filter(|c| wanted.contains(c.rel_path.as_str()))
+    {
+        let Some(known) = store.item(&tagweave_collection::item_id(&candidate.rel_path))? else {
+            continue;
+        };
+        if let Ok(read) = read_item(&root, candidate) {
+            if read.item.content_hash == known.content_hash {
+                fresh.push(read.item);
+            }
+        }
+    }
+    store.update_items(&fresh, &[])?;
+    Ok(fresh.len())
+}
+
 /// Brings the store up to date with the folder it indexes.
 pub fn scan(
     store: &Store,
@@ -299,6 +333,47 @@ pub(crate) mod tests {
         assert!(!second.features.learned, "the stored extractor is reused");
         let table = tagweave_store::FeatureTable::load(&store).unwrap();
         assert_eq!(table.features.dim(), (10, second.features.dimension));
+    }
+
+    #[test]
+    fn refreshed_records_carry_new_sidecar_tags_and_keep_their_features() {
+        let temp = tempfile::tempdir().unwrap();
+        small_collection(temp.path(), 4);
+        let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
+        scan(&store, &quick_options(), &|_| {}).unwrap();
+        let mut items = store.items().unwrap();
+        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+        let (first, second) = (&items[0], &items[1]);
+        let features_before = store.vector(tagweave_store::FEATURES, &first.id).unwrap();
+        // A sidecar edited (as the review page writes one) and a picture whose bytes changed.
+        let sidecar = temp.path().join(&first.rel_path).with_extension("txt");
+        let mut text = std::fs::read_to_string(&sidecar).unwrap_or_default();
+        text.push_str("gull # accepted suggestion\n");
+        std::fs::write(&sidecar, text).unwrap();
+        let changed = temp.path().join(&second.rel_path);
+        let mut bytes = std::fs::read(&changed).unwrap();
+        bytes.push(0);
+        std::fs::write(&changed, bytes).unwrap();
+
+        let names = [
+            first.rel_path.clone(),
+            second.rel_path.clone(),
+            "gone.png".into(),
+        ];
+        assert_eq!(refresh_records(&store, &names).unwrap(), 1);
+        let now = store.item(&first.id).unwrap().unwrap();
+        assert!(now.tags.contains(&"gull".to_string()), "{:?}", now.tags);
+        assert_eq!(now.accepted, ["gull"]);
+        assert_eq!(
+            store.vector(tagweave_store::FEATURES, &first.id).unwrap(),
+            features_before,
+            "same bytes, same features"
+        );
+        assert_eq!(
+            store.item(&second.id).unwrap().unwrap(),
+            *second,
+            "a picture whose bytes changed waits for the scan"
+        );
     }
 
     #[test]

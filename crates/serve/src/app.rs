@@ -117,8 +117,10 @@ struct PictureNotes {
 
 /// The running review page.
 pub(crate) struct App {
-    /// Held for the server's life: its lock keeps a scan from reading sidecars mid-change.
-    store: Store,
+    /// The store's folder. The store itself is opened only to write one decision (its
+    /// lock keeps a scan from reading sidecars mid-change), so other tagweave commands
+    /// work beside the page.
+    store_dir: PathBuf,
     queries: Queries,
     root: PathBuf,
     /// Each row's page id (see [`crate::ids`]), and back.
@@ -174,7 +176,7 @@ enum PictureRoute {
 
 impl App {
     pub(crate) fn new(
-        store: Store,
+        store: &Store,
         queries: Queries,
         ids: PageIds,
         port: u16,
@@ -208,7 +210,7 @@ impl App {
             audit: OnceLock::new(),
             walk: OnceLock::new(),
             notes: Mutex::new(HashMap::new()),
-            store,
+            store_dir: store.dir().to_path_buf(),
             queries,
         }
     }
@@ -910,10 +912,17 @@ impl App {
                 ),
             );
         }
+        // Held from planning to the index's refresh, as `apply` holds it.
+        let store = match Store::open_patiently(&self.store_dir, tagweave_store::PATIENCE) {
+            Ok(store) => store,
+            Err(error) => {
+                return self.message(503, "Not written, the index is busy", &error.to_string())
+            }
+        };
         let planned = Planner::new(
             &self.root,
             &CrawlOptions {
-                skip_dirs: vec![self.store.dir().to_path_buf()],
+                skip_dirs: vec![self.store_dir.clone()],
                 ..CrawlOptions::default()
             },
         )
@@ -943,6 +952,11 @@ impl App {
             Ok(plan) => plan,
             Err(error) => return self.message(409, "Not written", &error.to_string()),
         };
+        // The next query from any terminal sees the new tags without a scan.
+        let indexed = plan.is_empty()
+            || tagweave_indexer::refresh_records(&store, std::slice::from_ref(&item.rel_path))
+                .is_ok_and(|refreshed| refreshed == 1);
+        drop(store);
         let notes = notes_by_id.entry(item.id.clone()).or_default();
         for normal in &normals {
             if adding {
@@ -976,6 +990,7 @@ impl App {
                 })
                 .collect(),
             already: !plan.already_present.is_empty() || !plan.not_present.is_empty(),
+            indexed,
             inside_picture: plan
                 .not_present
                 .iter()

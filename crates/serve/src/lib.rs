@@ -116,8 +116,9 @@ pub struct ReviewServer {
 }
 
 impl ReviewServer {
-    /// Opens the trained model of `store` (which stays open, and locked, while the server
-    /// lives), then binds 127.0.0.1 on the chosen port.
+    /// Opens the trained model of `store`, then lets the store go (so other tagweave
+    /// commands work beside the page; each decision written takes it again for a moment)
+    /// and binds 127.0.0.1 on the chosen port.
     pub fn start(store: Store, options: &ServeOptions) -> Result<ReviewServer, ServeError> {
         let queries = Queries::open(&store)?;
         let wanted = SocketAddr::from((Ipv4Addr::LOCALHOST, options.port));
@@ -128,7 +129,8 @@ impl ReviewServer {
         let listener = TcpListener::bind(wanted).map_err(bind_error)?;
         let address = listener.local_addr().map_err(bind_error)?;
         let ids = PageIds::open(store.dir())?;
-        let app = App::new(store, queries, ids, address.port(), options.read_only);
+        let app = App::new(&store, queries, ids, address.port(), options.read_only);
+        drop(store);
         Ok(ReviewServer {
             listener,
             app: Arc::new(app),

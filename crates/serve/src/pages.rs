@@ -99,13 +99,18 @@ pub struct Written {
     /// Tags asked to be removed that only the picture file itself holds (a keyword kept
     /// inside it), which tagweave never changes.
     pub inside_picture: Vec<String>,
+    /// Whether the index now holds the new tags (else a scan must read them).
+    pub indexed: bool,
     pub back: String,
 }
 
-/// Note shown wherever tags were written: the index is not rescanned by the page.
+/// Note shown wherever tags were written.
+const WRITTEN_NOTE: &str = "Written to the sidecar files and to the index: tagweave commands \
+     in another terminal see the new tags now. Run <code>tagweave train</code> now and then so \
+     the model learns from them.";
+/// Note shown when the index could not take the new tags.
 const SCAN_NOTE: &str = "Written to the sidecar files. The index still has the old tags: \
-     run <code>tagweave scan</code> to index the new tags (stop this page first; it holds the \
-     store).";
+     run <code>tagweave scan</code> to index the new tags.";
 
 /// The whole page around `page`. `root` (the collection folder) is shown in the bar; it is
 /// left out of refusals, which must say nothing about the collection.
@@ -480,7 +485,7 @@ pub fn picture(content: &PictureContent) -> Page {
             .map(|s| format!("<span class=\"share\">{} of similar</span>", percent(s)))
             .unwrap_or_default();
         let fresh = if *written {
-            "<span class=\"note\">written now, not yet indexed</span>"
+            "<span class=\"note\">written now</span>"
         } else {
             ""
         };
@@ -497,7 +502,7 @@ pub fn picture(content: &PictureContent) -> Page {
     }
     body.push_str("</ul>");
     if content.changed {
-        let _ = write!(body, "<p class=\"written\">{SCAN_NOTE}</p>");
+        let _ = write!(body, "<p class=\"written\">{WRITTEN_NOTE}</p>");
     }
     if content.unlike_collection {
         body.push_str(UNLIKE_NOTE);
@@ -595,7 +600,7 @@ pub fn review(content: &QueueContent) -> Page {
             proposed.push_str("<li class=\"empty\">none</li>");
         }
         let changed = if entry.changed {
-            "<p class=\"note\">changed now; run <code>tagweave scan</code> to index</p>"
+            "<p class=\"note\">changed now</p>"
         } else {
             ""
         };
@@ -731,7 +736,7 @@ pub fn one_part(content: &PictureContent, step: &Step) -> String {
             "<li class=\"current\" data-tag=\"{t}\"><span class=\"tagname\">{t}</span>{fresh}</li>",
             t = html(tag),
             fresh = if *written {
-                "<span class=\"note\">written now, not yet indexed</span>"
+                "<span class=\"note\">written now</span>"
             } else {
                 ""
             },
@@ -879,7 +884,12 @@ pub fn written(content: &Written) -> Page {
                 diff = html(&file.diff),
             );
         }
-        let _ = write!(body, "<p class=\"written\">{SCAN_NOTE}</p>");
+        let note = if content.indexed {
+            WRITTEN_NOTE
+        } else {
+            SCAN_NOTE
+        };
+        let _ = write!(body, "<p class=\"written\">{note}</p>");
     }
     let _ = write!(
         body,
@@ -918,6 +928,7 @@ mod tests {
                 edits: Vec::new(),
                 already: true,
                 inside_picture,
+                indexed: true,
                 back: "/".into(),
             })
             .body

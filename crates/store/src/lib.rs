@@ -32,6 +32,11 @@ pub const FORMAT_VERSION: u32 = 2;
 /// measured with tools/code-search-bench.
 const PAGE_CACHE_BYTES: u64 = 64 << 20;
 
+/// How long a command waits for another process to let the store go before it says the
+/// store is in use: long enough for the review page to write one decision, short enough
+/// that a running scan is reported at once rather than waited out.
+pub const PATIENCE: std::time::Duration = std::time::Duration::from_secs(5);
+
 /// Name of the store folder placed inside a collection by default.
 pub const DEFAULT_DIR_NAME: &str = ".tagweave";
 
@@ -98,6 +103,20 @@ impl Store {
         store.check_format()?;
         store.collection_root = store.read_root()?;
         Ok(store)
+    }
+
+    /// Opens an existing store like [`Store::open`], waiting up to `patience` for another
+    /// process to let it go (a review page writing one decision holds it for a moment).
+    pub fn open_patiently(dir: &Path, patience: std::time::Duration) -> Result<Store> {
+        let deadline = std::time::Instant::now() + patience;
+        loop {
+            match Store::open(dir) {
+                Err(StoreError::InUse { .. }) if std::time::Instant::now() < deadline => {
+                    std::thread::sleep(std::time::Duration::from_millis(50));
+                }
+                opened => return opened,
+            }
+        }
     }
 
     /// True for a database whose creation was cut short (a process killed before the

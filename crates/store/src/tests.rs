@@ -76,6 +76,21 @@ fn a_second_opener_is_told_the_store_is_in_use_with_the_pid() {
 }
 
 #[test]
+fn a_patient_opener_waits_for_the_holder_to_let_go_and_no_longer() {
+    let (temp, dir) = collection();
+    let first = Store::open_or_create(&dir, temp.path()).unwrap();
+    let short = Store::open_patiently(&dir, std::time::Duration::from_millis(100));
+    assert!(matches!(short, Err(StoreError::InUse { .. })));
+    let holder = std::thread::spawn(move || {
+        std::thread::sleep(std::time::Duration::from_millis(300));
+        drop(first);
+    });
+    let waited = Store::open_patiently(&dir, std::time::Duration::from_secs(20));
+    holder.join().unwrap();
+    assert!(waited.is_ok(), "{:?}", waited.err());
+}
+
+#[test]
 fn another_format_version_asks_for_a_rebuild() {
     let (temp, dir) = collection();
     {
