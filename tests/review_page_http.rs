@@ -328,16 +328,21 @@ fn traversal_attempts_and_unknown_ids_are_not_found() {
     );
 }
 
+/// A picture whose text sidecar left a true tag off on purpose.
+// source: TRUTH.csv of the demo archive (its `removed_tags` column).
+fn missing_a_true_tag(truth: &BTreeMap<String, TruthRow>) -> &TruthRow {
+    truth
+        .values()
+        .find(|r| r.sidecar == "txt" && !r.removed_tags.is_empty())
+        .expect("TRUTH.csv lists a text-sidecar picture with a removed tag")
+}
+
 #[test]
 fn changes_need_this_runs_token_and_go_through_the_safe_write() {
     let folder = trained_copy();
     let root = folder.path();
     let truth = truth();
-    // source: TRUTH.csv — a picture whose text sidecar left a true tag off on purpose.
-    let row = truth
-        .values()
-        .find(|r| r.sidecar == "txt" && !r.removed_tags.is_empty())
-        .unwrap();
+    let row = missing_a_true_tag(&truth);
     let picture = row.file.clone();
     let missing = row.removed_tags[0].clone();
     let served = Served::start(root, &[]);
@@ -1302,11 +1307,7 @@ fn commands_work_beside_the_page_and_see_what_it_writes() {
     let folder = trained_copy();
     let root = folder.path();
     let truth = truth();
-    // source: TRUTH.csv — a picture whose text sidecar left a true tag off on purpose.
-    let row = truth
-        .values()
-        .find(|r| r.sidecar == "txt" && !r.removed_tags.is_empty())
-        .unwrap();
+    let row = missing_a_true_tag(&truth);
     let tag = row.removed_tags[0].clone();
     let served = Served::start(root, &[]);
 
