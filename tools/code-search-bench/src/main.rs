@@ -84,13 +84,6 @@ struct Args {
     /// Internal: open the store in this folder, load the index, print figures as JSON.
     #[arg(long, hide = true)]
     load_child: Option<PathBuf>,
-    /// Internal, with --load-child: read sled directly with this page cache (MB) instead of
-    /// through `Store` (whose sled cache is sled's default, 1 GiB).
-    #[arg(long, hide = true)]
-    sled_cache_mb: Option<u64>,
-    /// sled page cache (MB) for the extra load measurement that bypasses `Store`.
-    #[arg(long, default_value_t = 64)]
-    capped_cache_mb: u64,
 }
 
 /// Where the parent leaves the hash thresholds for the loading child (beside the store).
@@ -101,7 +94,7 @@ const MB: f64 = 1_000_000.0;
 fn main() -> anyhow::Result<()> {
     let args = Args::parse();
     if let Some(store_dir) = &args.load_child {
-        return store_load::load_child(store_dir, args.sled_cache_mb);
+        return store_load::load_child(store_dir);
     }
     anyhow::ensure!(
         args.codes > 0 && args.dim > 0,

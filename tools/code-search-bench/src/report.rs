@@ -36,11 +36,6 @@ pub(crate) fn print_report(r: &serde_json::Value) {
             "fresh process: open {} ms, load (vectors_of_kind streamed into CodeIndex) {} s; RSS at start {} MB, after load {} MB, peak (VmHWM) {} MB",
             f(&c["open_ms"]), f(&c["load_s"]), f(&c["rss_start_mb"]), f(&c["rss_after_load_mb"]), f(&c["peak_rss_mb"])
         );
-        let c = &s["child_capped_cache"];
-        println!(
-            "  same load reading sled directly with a {} MB page cache: open {} ms, load {} s, peak RSS {} MB",
-            s["capped_cache_mb"], f(&c["open_ms"]), f(&c["load_s"]), f(&c["peak_rss_mb"])
-        );
     }
     println!(
         "generating the codes {} s; CodeIndex::build from f32 codes {} ms; index loaded from the store identical to built: {}",

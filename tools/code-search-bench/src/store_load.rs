@@ -73,43 +73,24 @@ pub(crate) fn write_and_reload(
         String::from_utf8_lossy(&output.stderr)
     );
     let child: serde_json::Value = serde_json::from_slice(&output.stdout)?;
-    let output = std::process::Command::new(std::env::current_exe()?)
-        .arg("--load-child")
-        .arg(&store_dir)
-        .arg("--sled-cache-mb")
-        .arg(args.capped_cache_mb.to_string())
-        .output()
-        .context("running the capped-cache loading child process")?;
-    anyhow::ensure!(
-        output.status.success(),
-        "capped-cache loading child failed: {}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    let capped: serde_json::Value = serde_json::from_slice(&output.stdout)?;
     let built = digest(index);
-    let identical = child["digest"].as_str() == Some(built.as_str())
-        && capped["digest"].as_str() == Some(built.as_str());
+    let identical = child["digest"].as_str() == Some(built.as_str());
     let figures = json!({
         "batch": batch,
         "write_s": writing.as_secs_f64(),
         "write_codes_per_s": n as f64 / writing.as_secs_f64(),
         "on_disk_mb": on_disk as f64 / MB,
         "child": child,
-        "child_capped_cache": capped,
-        "capped_cache_mb": args.capped_cache_mb,
     });
     Ok((figures, identical))
 }
 
 /// The child side of the load measurement.
-pub(crate) fn load_child(store_dir: &Path, sled_cache_mb: Option<u64>) -> anyhow::Result<()> {
+pub(crate) fn load_child(store_dir: &Path) -> anyhow::Result<()> {
     let parent = store_dir.parent().unwrap_or(store_dir);
     let thresholds: Vec<f32> =
         serde_json::from_slice(&std::fs::read(parent.join(THRESHOLDS_FILE))?)?;
     let rss_start = memory_status("VmRSS:");
-    if let Some(mb) = sled_cache_mb {
-        return load_child_capped(store_dir, &thresholds, mb, rss_start);
-    }
     let t = Instant::now();
     let store = Store::open(store_dir)?;
     let open = t.elapsed();
@@ -127,53 +108,6 @@ pub(crate) fn load_child(store_dir: &Path, sled_cache_mb: Option<u64>) -> anyhow
         "peak_rss_mb": peak,
         "rss_after_store_closed_mb": memory_status("VmRSS:"),
         "index_memory_mb": index.memory_bytes() as f64 / MB,
-        "codes": index.len(),
-        "digest": digest(&index),
-    });
-    println!("{report}");
-    Ok(())
-}
-
-/// Reads the store's sled database directly, with a small page cache, the way `Store`
-/// would if it set one: shows what the default 1 GiB cache costs in memory and buys in time.
-fn load_child_capped(
-    store_dir: &Path,
-    thresholds: &[f32],
-    cache_mb: u64,
-    rss_start: Option<f64>,
-) -> anyhow::Result<()> {
-    let t = Instant::now();
-    let db = sled::Config::new()
-        .path(store_dir.join("db"))
-        .mode(sled::Mode::LowSpace)
-        .cache_capacity(cache_mb << 20)
-        .open()?;
-    let tree = db.open_tree("vectors")?;
-    let open = t.elapsed();
-    let t = Instant::now();
-    let mut builder = tagweave_store::CodeIndexBuilder::new(thresholds.len(), thresholds)?;
-    let mut values = Vec::new();
-    for entry in tree.iter() {
-        let (key, value) = entry?;
-        let Some(id) = key.strip_suffix(b"/code") else {
-            continue;
-        };
-        values.clear();
-        values.extend(
-            value
-                .chunks_exact(4)
-                .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])),
-        );
-        builder.push(std::str::from_utf8(id)?, &values)?;
-    }
-    let index = builder.finish();
-    let load = t.elapsed();
-    let report = json!({
-        "open_ms": ms(open),
-        "load_s": load.as_secs_f64(),
-        "rss_start_mb": rss_start,
-        "rss_after_load_mb": memory_status("VmRSS:"),
-        "peak_rss_mb": memory_status("VmHWM:"),
         "codes": index.len(),
         "digest": digest(&index),
     });
