@@ -3,7 +3,8 @@
 //! JPEGs are shrunk inside the decoder (DCT scaling by 1/2, 1/4 or 1/8), so a 24-megapixel
 //! photo never exists at full size in memory; the remaining factor, and every other format,
 //! goes through fast_image_resize. Dimensions are checked from the header before any pixel
-//! buffer is allocated.
+//! buffer is allocated. A camera RAW is described by the JPEG preview inside it
+//! ([`crate::raw`]), decoded the same way; its sensor data is never decoded.
 
 use std::io::Cursor;
 use std::panic::{catch_unwind, AssertUnwindSafe};
@@ -14,7 +15,7 @@ use image::metadata::Orientation;
 use image::{DynamicImage, ImageDecoder, ImageError, ImageReader, Limits, RgbImage};
 use serde::{Deserialize, Serialize};
 
-use crate::VisionError;
+use crate::{raw, VisionError};
 
 /// How pictures are brought to working size, and what is refused as too large.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -130,7 +131,9 @@ pub(crate) fn decode_bytes(
     // per-file error, not end the whole run.
     catch_unwind(AssertUnwindSafe(|| {
         if bytes.starts_with(&[0xFF, 0xD8, 0xFF]) {
-            decode_jpeg(bytes, path, opts)
+            decode_jpeg(bytes, path, opts, None)
+        } else if raw::is_camera_raw(bytes, path) {
+            decode_raw_preview(bytes, path, opts)
         } else {
             decode_other(bytes, path, opts)
         }
@@ -177,10 +180,39 @@ fn target_dims(width: u32, height: u32, long_side: u32) -> (u32, u32) {
     (side(width), side(height))
 }
 
+/// The largest preview JPEG of a camera RAW that decodes, turned as IFD0 says when the
+/// preview carries no orientation of its own.
+fn decode_raw_preview(
+    bytes: &[u8],
+    path: &Path,
+    opts: &DecodeOptions,
+) -> Result<WorkingImage, VisionError> {
+    let found = raw::find_previews(bytes).map_err(|cut| corrupt(path, cut))?;
+    let turn = found.orientation.and_then(Orientation::from_exif);
+    let mut first_error = None;
+    for range in found.jpegs {
+        match decode_jpeg(&bytes[range], path, opts, turn) {
+            Ok(picture) => return Ok(picture),
+            Err(e) => {
+                first_error.get_or_insert(e);
+            }
+        }
+    }
+    Err(match (first_error, found.cut_short) {
+        (Some(e), _) => e,
+        (None, Some(cut)) => corrupt(path, cut),
+        (None, None) => VisionError::NoPreview {
+            path: path.to_path_buf(),
+        },
+    })
+}
+
+/// `fallback` turns the picture when its own EXIF names no orientation.
 fn decode_jpeg(
     bytes: &[u8],
     path: &Path,
     opts: &DecodeOptions,
+    fallback: Option<Orientation>,
 ) -> Result<WorkingImage, VisionError> {
     let mut decoder = jpeg_decoder::Decoder::new(bytes);
     decoder.read_info().map_err(|e| corrupt(path, e))?;
@@ -222,6 +254,7 @@ fn decode_jpeg(
     let orientation = decoder
         .exif_data()
         .and_then(Orientation::from_exif_chunk)
+        .or(fallback)
         .unwrap_or(Orientation::NoTransforms);
     finish(path, rgb, sw.into(), sh.into(), orientation, opts)
 }
