@@ -683,6 +683,61 @@ mod tests {
         assert!(started.elapsed().as_millis() < 500);
     }
 
+    fn raw_fixture(name: &str) -> Vec<u8> {
+        let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../collection/testdata/raw");
+        std::fs::read(dir.join(name)).unwrap()
+    }
+
+    // source: crates/collection/testdata/raw (make_fixtures.py there): a 160x120 preview
+    // (Pillow 13.0.0) inside a DNG written by tifffile 2026.3.3, and hand-laid CR2, ORF
+    // and RW2 files that ExifTool 12.57 reads as such.
+    #[test]
+    fn camera_raw_is_described_by_its_preview() {
+        for name in ["preview.dng", "preview.orf", "preview.rw2"] {
+            let img = decode_bytes(&raw_fixture(name), Path::new(name), &opts()).unwrap();
+            assert_eq!((img.width(), img.height()), (160, 120), "{name}");
+            // The preview's gradient: red grows to the right, green downwards.
+            let (left, right) = (pixel(&img, 2, 60), pixel(&img, 157, 60));
+            assert!(left[0] < 30 && right[0] > 220, "{name}: {left:?} {right:?}");
+        }
+        // CR2: the large strip preview wins over the IFD1 thumbnail, and IFD0's
+        // Orientation 6 (rotate 90° clockwise) turns it, as the preview has no EXIF.
+        let img = decode_bytes(&raw_fixture("preview.cr2"), Path::new("a.CR2"), &opts()).unwrap();
+        assert_eq!((img.width(), img.height()), (120, 160));
+        // After a clockwise turn the old top row (green 0) is the right column.
+        assert!(pixel(&img, 118, 80)[1] < 30 && pixel(&img, 1, 80)[1] > 220);
+    }
+
+    #[test]
+    fn damaged_camera_raw_says_why() {
+        let err = decode_bytes(
+            &raw_fixture("truncated.cr2"),
+            Path::new("cut.cr2"),
+            &opts(),
+        )
+        .unwrap_err();
+        assert!(matches!(err, VisionError::Corrupt { .. }), "{err}");
+        let said = err.to_string();
+        assert!(said.contains("cut.cr2") && said.contains("cut short"), "{said}");
+
+        let err = decode_bytes(
+            &raw_fixture("no-preview.nef"),
+            Path::new("bare.nef"),
+            &opts(),
+        )
+        .unwrap_err();
+        assert!(matches!(err, VisionError::NoPreview { .. }), "{err}");
+        assert!(err.to_string().contains("bare.nef"), "{err}");
+
+        // Named like a TIFF, the same bytes go to the TIFF decoder, which cannot show them.
+        assert!(decode_bytes(&raw_fixture("no-preview.nef"), Path::new("a.tif"), &opts()).is_err());
+        // Any cut of a good RAW: a picture or an error, never a panic.
+        let whole = raw_fixture("preview.cr2");
+        for cut in (0..whole.len()).step_by(97) {
+            let _ = decode_bytes(&whole[..cut], Path::new("a.cr2"), &opts());
+        }
+    }
+
     #[test]
     fn jpeg_bomb_header_is_refused_before_decoding() {
         // A real JPEG whose SOF0 frame header is patched to declare 65000×65000.

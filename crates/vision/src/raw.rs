@@ -169,7 +169,7 @@ pub(crate) fn find_previews(bytes: &[u8]) -> Result<Previews, String> {
                 }
                 // JpgFromRaw of an RW2: UNDEFINED bytes, the count is the length.
                 0x002E if tiff.u16_at(at + 2) == Some(7) => {
-                    dir.embedded = tiff.u32_at(at + 4).zip(tiff.u32_at(at + 8))
+                    dir.embedded = tiff.u32_at(at + 8).zip(tiff.u32_at(at + 4))
                 }
                 0x014A | 0x8769 => {
                     queue.extend(tiff.values(at).into_iter().flatten().map(|o| o as usize))
@@ -212,6 +212,7 @@ struct Directory {
     strip_counts: Option<Vec<u32>>,
     jpeg_offset: Option<u32>,
     jpeg_length: Option<u32>,
+    /// (offset, length) of an RW2 JpgFromRaw.
     embedded: Option<(u32, u32)>,
 }
 
