@@ -400,7 +400,11 @@ fn tiff_raw_by_name(name: &str) -> Option<ImageFormat> {
         ImageFormat::Pef,
     ]
     .into_iter()
-    .find(|f| usual_extensions(*f).iter().any(|u| ext.eq_ignore_ascii_case(u)))
+    .find(|f| {
+        usual_extensions(*f)
+            .iter()
+            .any(|u| ext.eq_ignore_ascii_case(u))
+    })
 }
 
 fn usual_extensions(format: ImageFormat) -> &'static [&'static str] {
@@ -851,7 +855,11 @@ mod tests {
             ("a.tif", ImageFormat::Tiff),
             ("cr2", ImageFormat::Tiff),
         ] {
-            assert_eq!(format_of(tiff, name), Some(Sniffed::Picture(format)), "{name}");
+            assert_eq!(
+                format_of(tiff, name),
+                Some(Sniffed::Picture(format)),
+                "{name}"
+            );
         }
         // source: ISO/IEC 14496-12 ftyp box; brands from ISO/IEC 23008-12 (HEIF) and the
         // AV1 Image File Format (AVIF) specification.
@@ -911,7 +919,8 @@ mod tests {
         let said: Vec<String> = crawl.skipped.iter().map(ToString::to_string).collect();
         assert!(said[0].contains(&*fake.to_string_lossy()), "{said:?}");
         assert!(
-            said[1].contains(&*heic.to_string_lossy()) && said[1].contains("HEIC pictures are not read yet"),
+            said[1].contains(&*heic.to_string_lossy())
+                && said[1].contains("HEIC pictures are not read yet"),
             "{said:?}"
         );
         assert!(said[2].contains(&*avif.to_string_lossy()) && said[2].contains("AVIF"));

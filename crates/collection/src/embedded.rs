@@ -731,7 +731,7 @@ mod tests {
     proptest::proptest! {
         #[test]
         fn never_panics_on_damaged_fixtures(
-            which in 0usize..6,
+            which in 0usize..8,
             cut in 0usize..4000,
             at in 0usize..4000,
             byte in proptest::prelude::any::<u8>(),
@@ -743,6 +743,8 @@ mod tests {
                 ("xmp-exiftool.webp", ImageFormat::Webp),
                 ("iptc-exiftool.jpg", ImageFormat::Jpeg),
                 ("xmp-exempi-iptc-exiftool.jpg", ImageFormat::Jpeg),
+                ("../raw/preview.dng", ImageFormat::Dng),
+                ("../raw/preview.orf", ImageFormat::Orf),
             ][which];
             let mut bytes = std::fs::read(fixture(name)).unwrap();
             let at = at % bytes.len();

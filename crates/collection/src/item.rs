@@ -388,10 +388,9 @@ mod tests {
     fn camera_raw_is_hashed_whole_and_its_keywords_read() {
         let dir = tempfile::tempdir().unwrap();
         let root = dir.path();
-        let bytes = std::fs::read(
-            Path::new(env!("CARGO_MANIFEST_DIR")).join("testdata/raw/preview.dng"),
-        )
-        .unwrap();
+        let bytes =
+            std::fs::read(Path::new(env!("CARGO_MANIFEST_DIR")).join("testdata/raw/preview.dng"))
+                .unwrap();
         put(root, "reef.dng", &bytes);
         put(root, "reef.txt", b"Rock pool\n");
         let read = read_item(root, &only_candidate(root)).unwrap();

@@ -45,10 +45,11 @@ pub(crate) fn is_camera_raw(bytes: &[u8], path: &Path) -> bool {
         return true;
     }
     let tiff = head == b"II*\0" || head == b"MM\0*";
-    tiff && path
-        .extension()
-        .and_then(|e| e.to_str())
-        .is_some_and(|e| TIFF_RAW_EXTENSIONS.iter().any(|r| e.eq_ignore_ascii_case(r)))
+    tiff && path.extension().and_then(|e| e.to_str()).is_some_and(|e| {
+        TIFF_RAW_EXTENSIONS
+            .iter()
+            .any(|r| e.eq_ignore_ascii_case(r))
+    })
 }
 
 struct Tiff<'a> {
@@ -57,8 +58,12 @@ struct Tiff<'a> {
 }
 
 impl Tiff<'_> {
+    fn array<const N: usize>(&self, at: usize) -> Option<[u8; N]> {
+        self.bytes.get(at..at.checked_add(N)?)?.try_into().ok()
+    }
+
     fn u16_at(&self, at: usize) -> Option<u16> {
-        let b: [u8; 2] = self.bytes.get(at..at.checked_add(2)?)?.try_into().ok()?;
+        let b = self.array(at)?;
         Some(if self.big_endian {
             u16::from_be_bytes(b)
         } else {
@@ -67,7 +72,7 @@ impl Tiff<'_> {
     }
 
     fn u32_at(&self, at: usize) -> Option<u32> {
-        let b: [u8; 4] = self.bytes.get(at..at.checked_add(4)?)?.try_into().ok()?;
+        let b = self.array(at)?;
         Some(if self.big_endian {
             u32::from_be_bytes(b)
         } else {
@@ -117,22 +122,23 @@ pub(crate) fn find_previews(bytes: &[u8]) -> Result<Previews, String> {
     let big_endian = match bytes.get(..2) {
         Some(b"II") => false,
         Some(b"MM") => true,
-        _ => return Err(format!("cut short: {total} bytes, no TIFF header")),
+        _ => return Err(format!("only {total} bytes, too few for a TIFF header")),
     };
     let tiff = Tiff { bytes, big_endian };
     let ifd0 = tiff
         .u32_at(4)
-        .ok_or_else(|| format!("cut short: {total} bytes, no TIFF header"))? as usize;
+        .ok_or_else(|| format!("only {total} bytes, too few for a TIFF header"))?
+        as usize;
     if tiff.u16_at(ifd0).is_none() {
         return Err(format!(
-            "cut short: the first directory is at byte {ifd0}, past the end of the file ({total} bytes)"
+            "the first directory is at byte {ifd0}, past the end of the file ({total} bytes)"
         ));
     }
     let mut found = Previews::default();
     let cut = |found: &mut Previews, what: String| {
-        found.cut_short.get_or_insert(format!(
-            "cut short: {what}, past the end of the file ({total} bytes)"
-        ));
+        found
+            .cut_short
+            .get_or_insert(format!("{what}, past the end of the file ({total} bytes)"));
     };
     let mut queue = vec![ifd0];
     let mut seen = Vec::new();
@@ -366,15 +372,27 @@ mod tests {
         // Preview length past the end.
         let jpeg = fake_jpeg(0xC0);
         let base = data_at(2);
-        let bytes = tiff_le(b"II*\0", &[(0x0201, 4, 1, base), (0x0202, 4, 1, 1 << 30)], &jpeg);
+        let bytes = tiff_le(
+            b"II*\0",
+            &[(0x0201, 4, 1, base), (0x0202, 4, 1, 1 << 30)],
+            &jpeg,
+        );
         let found = find_previews(&bytes).unwrap();
         assert!(found.jpegs.is_empty());
-        assert!(found.cut_short.unwrap().contains("cut short"));
+        let said = found.cut_short.unwrap();
+        assert!(
+            said.contains("claims 1073741824 bytes, past the end"),
+            "{said}"
+        );
         // IFD0 past the end.
         let err = find_previews(b"II*\0\xFF\xFF\0\0").unwrap_err();
         assert!(err.contains("past the end"), "{err}");
         // A SubIFD pointing back to IFD0 and an absurd count: the loop is cut.
-        let looped = tiff_le(b"II*\0", &[(0x014A, 4, 1, 8), (0x8769, 4, 0xFFFF_FFFF, 8)], &[]);
+        let looped = tiff_le(
+            b"II*\0",
+            &[(0x014A, 4, 1, 8), (0x8769, 4, 0xFFFF_FFFF, 8)],
+            &[],
+        );
         assert_eq!(find_previews(&looped).unwrap(), Previews::default());
         // Every truncation of a valid file.
         let whole = tiff_le(b"IIRO", &[(0x0201, 4, 1, base), (0x0202, 4, 1, 10)], &jpeg);
