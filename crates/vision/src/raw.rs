@@ -19,8 +19,9 @@ use std::ops::Range;
 use std::path::Path;
 
 /// Extensions of the TIFF-based RAW formats (their header is an ordinary TIFF header, so
-/// the name tells them from a TIFF picture). ORF and RW2 are known by their own header.
-const TIFF_RAW_EXTENSIONS: [&str; 7] = ["dng", "cr2", "nef", "nrw", "arw", "pef", "srw"];
+/// the name tells them from a TIFF picture): the same list as the collection crawl's. ORF
+/// and RW2 are known by their own header.
+const TIFF_RAW_EXTENSIONS: [&str; 6] = ["dng", "cr2", "nef", "nrw", "arw", "pef"];
 /// Most directories visited in one file; real RAWs have fewer than a dozen.
 const MAX_DIRECTORIES: usize = 64;
 /// Most values read from one entry (strip lists of real previews have one).
