@@ -220,6 +220,55 @@ fn build_corpus(root: &Path, port: u16, secret: &Path) -> Vec<Case> {
         Indexed { tags: 0 },
     );
 
+    // Camera RAW files: the test files of crates/collection/testdata/raw (written by
+    // tifffile and laid out by make_fixtures.py there; ExifTool 12.57 reads them as DNG,
+    // CR2 and NEF), then a named change.
+    case(
+        "camera RAW (DNG) with a JPEG preview, keywords inside and a text sidecar",
+        "reef.dng",
+        &raw_fixture("preview.dng"),
+        // Its keyword note comes with the scan that reads it, not the rescan checked below.
+        Indexed { tags: 2 },
+    );
+    put(root, "reef.txt", b"rock pool\n");
+    case(
+        "camera RAW (CR2) with a text sidecar",
+        "real.CR2",
+        &raw_fixture("preview.cr2"),
+        Indexed { tags: 1 },
+    );
+    put(root, "real.txt", b"harbour\n");
+    case(
+        "truncated camera RAW (first 40% of a CR2)",
+        "cut.cr2",
+        &truncated(&raw_fixture("preview.cr2"), 0.4),
+        Skipped {
+            label: "damaged picture",
+            says: &["cut short", "past the end of the file"],
+        },
+    );
+    case(
+        "camera RAW (NEF) with no preview inside",
+        "bare.nef",
+        &raw_fixture("no-preview.nef"),
+        Skipped {
+            label: "damaged picture",
+            says: &["no JPEG preview inside"],
+        },
+    );
+    // No HEIC encoder is at hand: the file is the `ftyp` box a HEIC begins with (ISO/IEC
+    // 14496-12 box layout, brand "heic" of ISO/IEC 23008-12), which is all that is read.
+    case(
+        "HEIC picture with a text sidecar (not read yet)",
+        "phone.heic",
+        b"\0\0\0\x18ftypheic\0\0\0\0mif1heic",
+        Skipped {
+            label: "format not read yet",
+            says: &["HEIC pictures are not read yet", "JPEG copy"],
+        },
+    );
+    put(root, "phone.txt", b"beach\n");
+
     sidecar_case("latin1.jpg", "latin1.txt", b"harbour\ncaf\xe9\n", 11);
     cases.push(Case {
         class: "non-UTF-8 text sidecar",

@@ -1,6 +1,7 @@
 //! Pictures made at test time: good ones in every colour layout a collection meets, and
 //! damaged ones made from good ones by cutting or overwriting bytes. Nothing here is a
-//! hand-edited binary; every file comes from an encoder, then a named change to its bytes.
+//! hand-edited binary; every file comes from an encoder (or, for camera RAW files, the
+//! committed test files and the script that wrote them), then a named change to its bytes.
 
 #![allow(dead_code)]
 
@@ -91,6 +92,14 @@ pub fn animated_gif(width: u32, height: u32) -> Vec<u8> {
         encoder.encode_frames(frames).expect("GIF encodes");
     } // the trailer is written when the encoder is dropped
     out
+}
+
+/// A camera RAW test file of crates/collection/testdata/raw (see make_fixtures.py there).
+pub fn raw_fixture(name: &str) -> Vec<u8> {
+    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../../crates/collection/testdata/raw")
+        .join(name);
+    std::fs::read(&dir).unwrap_or_else(|e| panic!("{}: {e}", dir.display()))
 }
 
 /// CRC-32 as PNG uses it (ISO 3309 / ITU-T V.42 polynomial, PNG specification annex D).

@@ -266,6 +266,58 @@ fn bad_files_are_named_counted_and_passed_over() {
     }
 }
 
+// source: crates/collection/testdata/raw (make_fixtures.py there): a DNG written by
+// tifffile 2026.3.3 and CR2, ORF and RW2 files laid out byte by byte, each holding a
+// 160x120 JPEG preview made by Pillow 13.0.0; ExifTool 12.57 reads each as its format.
+#[test]
+fn camera_raw_pictures_are_described_through_their_previews() {
+    let temp = tempfile::tempdir().unwrap();
+    let folder = temp.path();
+    for (i, jpeg) in demo_jpegs(4).iter().enumerate() {
+        std::fs::copy(jpeg, folder.join(format!("good-{i}.jpg"))).unwrap();
+    }
+    let raw = repo_root().join("crates/collection/testdata/raw");
+    for (fixture, name) in [
+        ("preview.dng", "reef.dng"),
+        ("preview.cr2", "real.CR2"),
+        ("preview.orf", "shot.ORF"),
+        ("preview.rw2", "shot.RW2"),
+    ] {
+        std::fs::copy(raw.join(fixture), folder.join(name)).unwrap();
+    }
+    std::fs::write(folder.join("real.txt"), "harbour\n").unwrap();
+    std::fs::write(folder.join("shot.RW2.xmp"), RW2_XMP).unwrap();
+
+    let out = tagweave(folder, &["scan", ".", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr_of(&out));
+    let report = json(&out);
+    assert_eq!(report["items"], 8, "{report}");
+    assert_eq!(report["features"]["encoded"], 8, "{report}");
+    assert_eq!(report["other_files"], 0, "{report}");
+    assert_eq!(report["skipped_files"].as_array().map(Vec::len), Some(0));
+
+    let tags = indexed_tags(folder);
+    assert_eq!(tags["real.CR2"], ["harbour"]);
+    assert_eq!(tags["reef.dng"], ["tide-pool"]);
+    assert_eq!(tags["shot.RW2"], ["quay"]);
+    assert!(tags["shot.ORF"].is_empty());
+    let store = tagweave_store::Store::open(&folder.join(".tagweave")).unwrap();
+    let dimension = report["features"]["dimension"].as_u64().unwrap() as usize;
+    for item in store.items().unwrap() {
+        let features = store
+            .vector(tagweave_store::FEATURES, &item.id)
+            .unwrap()
+            .unwrap_or_else(|| panic!("{} has features", item.rel_path));
+        assert_eq!(features.len(), dimension, "{}", item.rel_path);
+        assert!(features.iter().all(|x| x.is_finite()), "{}", item.rel_path);
+        assert!(features.iter().any(|&x| x != 0.0), "{}", item.rel_path);
+    }
+}
+
+const RW2_XMP: &str = r#"<rdf:RDF xmlns:rdf="http://www.w3.org/1999/02/22-rdf-syntax-ns#"
+ xmlns:dc="http://purl.org/dc/elements/1.1/"><rdf:Description><dc:subject><rdf:Bag>
+ <rdf:li>quay</rdf:li></rdf:Bag></dc:subject></rdf:Description></rdf:RDF>"#;
+
 #[test]
 fn json_lists_skipped_files_relative_to_the_folder() {
     let temp = tempfile::tempdir().unwrap();

@@ -72,6 +72,9 @@ pub enum SkipReason {
     /// Declares more pixels than the decoder's safety limit (a decompression bomb, or a
     /// giant scan); the text comes from the decoder, which names the file.
     TooLarge(String),
+    /// A picture in a format not read yet (HEIC, AVIF); its sidecars stay unclaimed
+    /// without being called orphans.
+    NotSupportedYet(&'static str),
 }
 
 impl SkipReason {
@@ -88,6 +91,7 @@ impl SkipReason {
             SkipReason::BadName => "bad file name",
             SkipReason::BadPicture(_) => "damaged picture",
             SkipReason::TooLarge(_) => "too large",
+            SkipReason::NotSupportedYet(_) => "format not read yet",
         }
     }
 }
@@ -98,8 +102,13 @@ impl fmt::Display for Skipped {
         match &self.reason {
             SkipReason::NotAnImage => write!(
                 f,
-                "{path}: skipped, not a picture (its first bytes are not JPEG, PNG, GIF, WebP, TIFF or BMP); \
-                 if it should be one, re-export it from the original"
+                "{path}: skipped, not a picture (its first bytes are not JPEG, PNG, GIF, WebP, TIFF, BMP \
+                 or a camera RAW); if it should be one, re-export it from the original"
+            ),
+            SkipReason::NotSupportedYet(format) => write!(
+                f,
+                "{path}: skipped, {format} pictures are not read yet; to include this one, save a \
+                 JPEG copy of it under the same name (NAME.jpg) and its tag files pair with that"
             ),
             SkipReason::EmptyFile => {
                 write!(f, "{path}: skipped, the file is empty; restore it from a backup or delete it")
@@ -241,6 +250,8 @@ struct Found {
 /// What a file is, by its content (and, for sidecars, by its name).
 enum Class {
     Picture(ImageFormat),
+    /// A picture of a format not read yet, named for the message.
+    NotYet(&'static str),
     Sidecar {
         kind: SidecarKind,
         base: String,
@@ -266,7 +277,7 @@ fn examine(root: &Path, entry: &DirEntry) -> Result<(Found, Class), Skipped> {
         .metadata()
         .map_err(|e| skipped(SkipReason::Unreadable(e.to_string())))?;
     let stamp = FileStamp::from_metadata(&metadata);
-    let class = match (sniff(path), sidecar_name(name)) {
+    let class = match (sniff(path, name), sidecar_name(name)) {
         // A sidecar's name wins over its first bytes: a tag list starting "BMX" or "GIF89a"
         // is still a tag list. A sidecar we cannot open still belongs to its picture:
         // reading the item then fails loudly instead of the picture silently losing its tags.
@@ -274,7 +285,8 @@ fn examine(root: &Path, entry: &DirEntry) -> Result<(Found, Class), Skipped> {
             kind,
             base: base.to_string(),
         },
-        (Ok(Some(format)), None) => Class::Picture(format),
+        (Ok(Some(Sniffed::Picture(format))), None) => Class::Picture(format),
+        (Ok(Some(Sniffed::NotYet(format))), None) => Class::NotYet(format),
         (Err(e), None) => return Err(skipped(SkipReason::Unreadable(e.to_string()))),
         (Ok(None), None) if !has_picture_extension(name) => Class::Other,
         (Ok(None), None) if metadata.len() == 0 => return Err(skipped(SkipReason::EmptyFile)),
@@ -293,8 +305,9 @@ fn examine(root: &Path, entry: &DirEntry) -> Result<(Found, Class), Skipped> {
 
 /// Names that promise a picture: such a file that is not one is worth telling the user about.
 fn has_picture_extension(name: &str) -> bool {
-    const PICTURE_EXTENSIONS: [&str; 12] = [
+    const PICTURE_EXTENSIONS: [&str; 20] = [
         "jpg", "jpeg", "jpe", "png", "gif", "webp", "tif", "tiff", "bmp", "heic", "heif", "avif",
+        "dng", "cr2", "nef", "arw", "orf", "rw2", "pef", "raw",
     ];
     name.rsplit_once('.').is_some_and(|(_, ext)| {
         PICTURE_EXTENSIONS
@@ -326,27 +339,72 @@ fn sidecar_name(name: &str) -> Option<(SidecarKind, &str)> {
     (!base.is_empty()).then_some((kind, base))
 }
 
-fn sniff(path: &Path) -> std::io::Result<Option<ImageFormat>> {
+/// What the first bytes (and, for a TIFF header, the name) say a file is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Sniffed {
+    Picture(ImageFormat),
+    NotYet(&'static str),
+}
+
+fn sniff(path: &Path, name: &str) -> std::io::Result<Option<Sniffed>> {
     let mut head = Vec::with_capacity(12);
     fs::File::open(path)?.take(12).read_to_end(&mut head)?;
-    Ok(format_of(&head))
+    Ok(format_of(&head, name))
 }
 
 /// Magic numbers from each format's own specification (JPEG SOI + marker, PNG signature,
-/// GIF header, RIFF/WEBP container, TIFF byte-order mark + 42, BMP file header).
-fn format_of(head: &[u8]) -> Option<ImageFormat> {
+/// GIF header, RIFF/WEBP container, TIFF byte-order mark + 42, BMP file header, ISO BMFF
+/// `ftyp` box with a HEIF or AVIF brand). A TIFF header on a file named like a TIFF-based
+/// camera RAW is that RAW; ORF and RW2 put their own number in place of 42.
+fn format_of(head: &[u8], name: &str) -> Option<Sniffed> {
     const PNG: &[u8] = b"\x89PNG\r\n\x1a\n";
+    let picture = |format| Some(Sniffed::Picture(format));
     match head {
-        [0xFF, 0xD8, 0xFF, ..] => Some(ImageFormat::Jpeg),
-        h if h.starts_with(PNG) => Some(ImageFormat::Png),
-        h if h.starts_with(b"GIF87a") || h.starts_with(b"GIF89a") => Some(ImageFormat::Gif),
+        [0xFF, 0xD8, 0xFF, ..] => picture(ImageFormat::Jpeg),
+        h if h.starts_with(PNG) => picture(ImageFormat::Png),
+        h if h.starts_with(b"GIF87a") || h.starts_with(b"GIF89a") => picture(ImageFormat::Gif),
         h if h.len() >= 12 && h.starts_with(b"RIFF") && &h[8..12] == b"WEBP" => {
-            Some(ImageFormat::Webp)
+            picture(ImageFormat::Webp)
         }
-        h if h.starts_with(b"II*\0") || h.starts_with(b"MM\0*") => Some(ImageFormat::Tiff),
-        h if h.starts_with(b"BM") => Some(ImageFormat::Bmp),
+        // source: ExifTool 12.57, Image/ExifTool.pm DoProcessTIFF ("identifier is 0x2a for
+        // TIFF, RW2/RWL=0x55, ORF=0x4f52/0x5352").
+        h if h.starts_with(b"IIRO") || h.starts_with(b"IIRS") || h.starts_with(b"MMOR") => {
+            picture(ImageFormat::Orf)
+        }
+        h if h.starts_with(b"IIU\0") => picture(ImageFormat::Rw2),
+        h if h.starts_with(b"II*\0") || h.starts_with(b"MM\0*") => {
+            picture(tiff_raw_by_name(name).unwrap_or(ImageFormat::Tiff))
+        }
+        h if h.starts_with(b"BM") => picture(ImageFormat::Bmp),
+        // ISO/IEC 14496-12 `ftyp` box: size, "ftyp", major brand (ISO/IEC 23008-12 HEIF
+        // brands; "avif"/"avis" from the AV1 Image File Format specification).
+        h if h.len() >= 12 && &h[4..8] == b"ftyp" => match &h[8..12] {
+            b"heic" | b"heix" | b"heim" | b"heis" | b"hevc" | b"hevx" | b"mif1" | b"msf1" => {
+                Some(Sniffed::NotYet("HEIC"))
+            }
+            b"avif" | b"avis" => Some(Sniffed::NotYet("AVIF")),
+            _ => None,
+        },
         _ => None,
     }
+}
+
+/// The TIFF-based camera RAW a file's extension names, if any.
+fn tiff_raw_by_name(name: &str) -> Option<ImageFormat> {
+    let (_, ext) = name.rsplit_once('.')?;
+    [
+        ImageFormat::Dng,
+        ImageFormat::Cr2,
+        ImageFormat::Nef,
+        ImageFormat::Arw,
+        ImageFormat::Pef,
+    ]
+    .into_iter()
+    .find(|f| {
+        usual_extensions(*f)
+            .iter()
+            .any(|u| ext.eq_ignore_ascii_case(u))
+    })
 }
 
 fn usual_extensions(format: ImageFormat) -> &'static [&'static str] {
@@ -357,6 +415,14 @@ fn usual_extensions(format: ImageFormat) -> &'static [&'static str] {
         ImageFormat::Webp => &["webp"],
         ImageFormat::Tiff => &["tif", "tiff"],
         ImageFormat::Bmp => &["bmp", "dib"],
+        ImageFormat::Dng => &["dng"],
+        ImageFormat::Cr2 => &["cr2"],
+        ImageFormat::Nef => &["nef", "nrw"],
+        ImageFormat::Arw => &["arw"],
+        ImageFormat::Orf => &["orf"],
+        // Older Panasonic cameras name the same container .RAW, Leica .RWL.
+        ImageFormat::Rw2 => &["rw2", "raw", "rwl"],
+        ImageFormat::Pef => &["pef"],
     }
 }
 
@@ -365,9 +431,17 @@ fn usual_extensions(format: ImageFormat) -> &'static [&'static str] {
 fn pair_folder(files: Vec<(Found, Class)>, crawl: &mut Crawl) {
     let mut pictures = Vec::new();
     let mut sidecars = Vec::new();
+    let mut not_yet = Vec::new();
     for (found, class) in files {
         match class {
             Class::Picture(format) => pictures.push((found, format)),
+            Class::NotYet(format) => {
+                crawl.skipped.push(Skipped {
+                    path: found.path.clone(),
+                    reason: SkipReason::NotSupportedYet(format),
+                });
+                not_yet.push(found.name);
+            }
             Class::Sidecar { kind, base } => sidecars.push((found, kind, base)),
             Class::Other => crawl.other_files.push(found.path),
         }
@@ -409,8 +483,16 @@ fn pair_folder(files: Vec<(Found, Class)>, crawl: &mut Crawl) {
             sidecars: refs,
         });
     }
-    for ((sidecar, _, _), claimants) in sidecars.iter().zip(&claimed_by) {
+    // A sidecar of a picture we cannot read yet belongs to it: not an orphan to rename.
+    let beside_not_yet = |base: &str| {
+        not_yet.iter().any(|name| {
+            let stem = Path::new(name).file_stem().and_then(|s| s.to_str());
+            name == base || stem == Some(base)
+        })
+    };
+    for ((sidecar, _, base), claimants) in sidecars.iter().zip(&claimed_by) {
         match claimants.len() {
+            0 if beside_not_yet(base) => {}
             0 => crawl.skipped.push(Skipped {
                 path: sidecar.path.clone(),
                 reason: SkipReason::SidecarWithoutPicture,
@@ -739,19 +821,108 @@ mod tests {
 
     #[test]
     fn sniffing_signatures() {
+        let pic = |head: &[u8]| match format_of(head, "x") {
+            Some(Sniffed::Picture(format)) => Some(format),
+            _ => None,
+        };
         // source: the formats' own specifications (JPEG T.81 SOI marker FFD8 then a marker
         // FFxx; PNG spec section 5.2 signature; GIF89a header; RIFF "WEBP" form type;
         // TIFF 6.0 header "II" or "MM" then 42; BMP "BM" file header).
-        assert_eq!(format_of(b"\xFF\xD8\xFF\xDB"), Some(ImageFormat::Jpeg));
-        assert_eq!(format_of(b"\x89PNG\r\n\x1a\n"), Some(ImageFormat::Png));
-        assert_eq!(format_of(b"\x89PNG\r\n\x1a"), None);
-        assert_eq!(format_of(b"GIF87a"), Some(ImageFormat::Gif));
-        assert_eq!(format_of(b"RIFF\0\0\0\0WEBP"), Some(ImageFormat::Webp));
-        assert_eq!(format_of(b"RIFF\0\0\0\0WAVE"), None);
-        assert_eq!(format_of(b"II*\0\x08\0\0\0"), Some(ImageFormat::Tiff));
-        assert_eq!(format_of(b"MM\0*\0\0\0\x08"), Some(ImageFormat::Tiff));
-        assert_eq!(format_of(b"BM6\0\0\0"), Some(ImageFormat::Bmp));
-        assert_eq!(format_of(b"\xFF\xD8"), None);
-        assert_eq!(format_of(b""), None);
+        assert_eq!(pic(b"\xFF\xD8\xFF\xDB"), Some(ImageFormat::Jpeg));
+        assert_eq!(pic(b"\x89PNG\r\n\x1a\n"), Some(ImageFormat::Png));
+        assert_eq!(pic(b"\x89PNG\r\n\x1a"), None);
+        assert_eq!(pic(b"GIF87a"), Some(ImageFormat::Gif));
+        assert_eq!(pic(b"RIFF\0\0\0\0WEBP"), Some(ImageFormat::Webp));
+        assert_eq!(pic(b"RIFF\0\0\0\0WAVE"), None);
+        assert_eq!(pic(b"II*\0\x08\0\0\0"), Some(ImageFormat::Tiff));
+        assert_eq!(pic(b"MM\0*\0\0\0\x08"), Some(ImageFormat::Tiff));
+        assert_eq!(pic(b"BM6\0\0\0"), Some(ImageFormat::Bmp));
+        assert_eq!(pic(b"\xFF\xD8"), None);
+        assert_eq!(pic(b""), None);
+        // source: ExifTool 12.57, Image/ExifTool.pm DoProcessTIFF (ORF 0x4F52 "RO" or
+        // 0x5352 "RS", RW2 0x55 in place of 42; CR2, NEF, DNG… keep 42).
+        assert_eq!(pic(b"IIRO\x08\0\0\0"), Some(ImageFormat::Orf));
+        assert_eq!(pic(b"IIRS\x08\0\0\0"), Some(ImageFormat::Orf));
+        assert_eq!(pic(b"MMOR\0\0\0\x08"), Some(ImageFormat::Orf));
+        assert_eq!(pic(b"IIU\0\x18\0\0\0"), Some(ImageFormat::Rw2));
+        let tiff = b"II*\0\x10\0\0\0CR\x02\0";
+        for (name, format) in [
+            ("a.CR2", ImageFormat::Cr2),
+            ("a.dng", ImageFormat::Dng),
+            ("a.NEF", ImageFormat::Nef),
+            ("a.arw", ImageFormat::Arw),
+            ("a.pef", ImageFormat::Pef),
+            ("a.tif", ImageFormat::Tiff),
+            ("cr2", ImageFormat::Tiff),
+        ] {
+            assert_eq!(
+                format_of(tiff, name),
+                Some(Sniffed::Picture(format)),
+                "{name}"
+            );
+        }
+        // source: ISO/IEC 14496-12 ftyp box; brands from ISO/IEC 23008-12 (HEIF) and the
+        // AV1 Image File Format (AVIF) specification.
+        assert_eq!(
+            format_of(b"\0\0\0\x18ftypheic", "a"),
+            Some(Sniffed::NotYet("HEIC"))
+        );
+        assert_eq!(
+            format_of(b"\0\0\0\x1cftypavif", "a"),
+            Some(Sniffed::NotYet("AVIF"))
+        );
+        assert_eq!(format_of(b"\0\0\0\x18ftypisom", "a.mp4"), None);
+    }
+
+    #[test]
+    fn camera_raw_pairs_its_sidecars_and_heic_keeps_its_own() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        let raw = |name| {
+            std::fs::read(
+                Path::new(env!("CARGO_MANIFEST_DIR"))
+                    .join("testdata/raw")
+                    .join(name),
+            )
+            .unwrap()
+        };
+        put(root, "real.CR2", &raw("preview.cr2"));
+        put(root, "real.txt", b"harbour\n");
+        put(root, "shot.orf", &raw("preview.orf"));
+        put(root, "shot.orf.xmp", b"<x/>");
+        let heic = put(root, "phone.heic", b"\0\0\0\x18ftypheic\0\0\0\0mif1heic");
+        put(root, "phone.txt", b"beach\n");
+        let avif = put(root, "web.avif", b"\0\0\0\x1cftypavif\0\0\0\0avifmif1");
+        let fake = put(root, "fake.cr2", b"not a raw at all");
+        let crawl = crawl(root, &CrawlOptions::default()).unwrap();
+        assert_eq!(rel_paths(&crawl), ["real.CR2", "shot.orf"]);
+        assert_eq!(candidate(&crawl, "real.CR2").format, ImageFormat::Cr2);
+        assert_eq!(
+            sidecar_names(candidate(&crawl, "real.CR2")),
+            [("real.txt", SidecarKind::Text)]
+        );
+        assert_eq!(
+            sidecar_names(candidate(&crawl, "shot.orf")),
+            [("shot.orf.xmp", SidecarKind::Xmp)]
+        );
+        assert!(crawl.other_files.is_empty(), "{:?}", crawl.other_files);
+        assert!(crawl.notes.is_empty(), "{:?}", crawl.notes);
+        assert_eq!(
+            skipped_as(&crawl, root),
+            [
+                ("fake.cr2".to_string(), "not an image"),
+                ("phone.heic".to_string(), "format not read yet"),
+                ("web.avif".to_string(), "format not read yet"),
+            ],
+            "phone.txt is phone.heic's, not an orphan"
+        );
+        let said: Vec<String> = crawl.skipped.iter().map(ToString::to_string).collect();
+        assert!(said[0].contains(&*fake.to_string_lossy()), "{said:?}");
+        assert!(
+            said[1].contains(&*heic.to_string_lossy())
+                && said[1].contains("HEIC pictures are not read yet"),
+            "{said:?}"
+        );
+        assert!(said[2].contains(&*avif.to_string_lossy()) && said[2].contains("AVIF"));
     }
 }

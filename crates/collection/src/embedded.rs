@@ -4,7 +4,8 @@
 //!
 //! Only the metadata segments are read: a JPEG is walked segment by segment up to its first
 //! scan (SOS), a PNG chunk by chunk up to its first IDAT, a TIFF's first directory, and a
-//! WebP's chunk headers (the image chunks are skipped, never read). Every length is checked
+//! WebP's chunk headers (the image chunks are skipped, never read); a camera RAW's first
+//! directory as a TIFF's (its preview is vision's to find). Every length is checked
 //! against the file and against [`MAX_EMBEDDED_BYTES`]. Nothing here ever writes.
 
 use std::fs::File;
@@ -60,7 +61,16 @@ pub fn read_embedded(path: &Path, format: ImageFormat) -> Embedded {
     let segments = match format {
         ImageFormat::Jpeg => jpeg_segments(&mut reader),
         ImageFormat::Png => png_segments(&mut reader),
-        ImageFormat::Tiff => tiff_segments(&mut reader),
+        // A camera RAW's IFD0 is a TIFF directory (ORF and RW2 differ only in the magic
+        // number, which is not checked).
+        ImageFormat::Tiff
+        | ImageFormat::Dng
+        | ImageFormat::Cr2
+        | ImageFormat::Nef
+        | ImageFormat::Arw
+        | ImageFormat::Orf
+        | ImageFormat::Rw2
+        | ImageFormat::Pef => tiff_segments(&mut reader),
         ImageFormat::Webp => webp_segments(&mut reader),
         ImageFormat::Bmp | ImageFormat::Gif => Ok(Segments::default()),
     };
@@ -721,7 +731,7 @@ mod tests {
     proptest::proptest! {
         #[test]
         fn never_panics_on_damaged_fixtures(
-            which in 0usize..6,
+            which in 0usize..8,
             cut in 0usize..4000,
             at in 0usize..4000,
             byte in proptest::prelude::any::<u8>(),
@@ -733,6 +743,8 @@ mod tests {
                 ("xmp-exiftool.webp", ImageFormat::Webp),
                 ("iptc-exiftool.jpg", ImageFormat::Jpeg),
                 ("xmp-exempi-iptc-exiftool.jpg", ImageFormat::Jpeg),
+                ("../raw/preview.dng", ImageFormat::Dng),
+                ("../raw/preview.orf", ImageFormat::Orf),
             ][which];
             let mut bytes = std::fs::read(fixture(name)).unwrap();
             let at = at % bytes.len();

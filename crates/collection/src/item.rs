@@ -13,7 +13,8 @@ use crate::embedded::read_embedded;
 use crate::error::CollectionError;
 use crate::sidecar::{dedup_normalized, read_sidecar};
 
-/// Picture formats recognised by their first bytes (the extension alone is not trusted).
+/// Picture formats recognised by their first bytes (the extension alone is not trusted; it
+/// only tells a TIFF-based camera RAW from a TIFF picture, whose headers are the same).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum ImageFormat {
@@ -23,6 +24,14 @@ pub enum ImageFormat {
     Tiff,
     Bmp,
     Gif,
+    /// Camera RAW files, described through the JPEG preview they hold.
+    Dng,
+    Cr2,
+    Nef,
+    Arw,
+    Orf,
+    Rw2,
+    Pef,
 }
 
 /// Which kind of sidecar file a tag came from.
@@ -95,7 +104,20 @@ impl ImageFormat {
             ImageFormat::Tiff => "TIFF",
             ImageFormat::Bmp => "BMP",
             ImageFormat::Gif => "GIF",
+            ImageFormat::Dng => "DNG",
+            ImageFormat::Cr2 => "CR2",
+            ImageFormat::Nef => "NEF",
+            ImageFormat::Arw => "ARW",
+            ImageFormat::Orf => "ORF",
+            ImageFormat::Rw2 => "RW2",
+            ImageFormat::Pef => "PEF",
         }
+    }
+
+    /// A camera RAW: TIFF directories around sensor data, with a JPEG preview inside.
+    pub fn is_camera_raw(self) -> bool {
+        use ImageFormat::*;
+        matches!(self, Dng | Cr2 | Nef | Arw | Orf | Rw2 | Pef)
     }
 }
 
@@ -418,6 +440,26 @@ mod tests {
         assert!(
             said[1].starts_with("keywords inside the picture not read: its XMP packet"),
             "{said:?}"
+        );
+    }
+
+    // source: testdata/raw/preview.dng, written by tifffile 2026.3.3 with an XMP packet
+    // in IFD0 (tag 700); ExifTool 12.57 reads its dc:subject as "tide pool".
+    #[test]
+    fn camera_raw_is_hashed_whole_and_its_keywords_read() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        let bytes =
+            std::fs::read(Path::new(env!("CARGO_MANIFEST_DIR")).join("testdata/raw/preview.dng"))
+                .unwrap();
+        put(root, "reef.dng", &bytes);
+        put(root, "reef.txt", b"Rock pool\n");
+        let read = read_item(root, &only_candidate(root)).unwrap();
+        assert_eq!(read.item.format, ImageFormat::Dng);
+        assert_eq!(read.item.tags, ["rock-pool", "tide-pool"]);
+        assert_eq!(
+            read.item.content_hash,
+            blake3::hash(&bytes).to_hex().to_string()
         );
     }
 

@@ -3,7 +3,8 @@
 //! JPEGs are shrunk inside the decoder (DCT scaling by 1/2, 1/4 or 1/8), so a 24-megapixel
 //! photo never exists at full size in memory; the remaining factor, and every other format,
 //! goes through fast_image_resize. Dimensions are checked from the header before any pixel
-//! buffer is allocated.
+//! buffer is allocated. A camera RAW is described by the JPEG preview inside it
+//! ([`crate::raw`]), decoded the same way; its sensor data is never decoded.
 
 use std::io::Cursor;
 use std::panic::{catch_unwind, AssertUnwindSafe};
@@ -14,7 +15,7 @@ use image::metadata::Orientation;
 use image::{DynamicImage, ImageDecoder, ImageError, ImageReader, Limits, RgbImage};
 use serde::{Deserialize, Serialize};
 
-use crate::VisionError;
+use crate::{raw, VisionError};
 
 /// How pictures are brought to working size, and what is refused as too large.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -130,7 +131,9 @@ pub(crate) fn decode_bytes(
     // per-file error, not end the whole run.
     catch_unwind(AssertUnwindSafe(|| {
         if bytes.starts_with(&[0xFF, 0xD8, 0xFF]) {
-            decode_jpeg(bytes, path, opts)
+            decode_jpeg(bytes, path, opts, None)
+        } else if raw::is_camera_raw(bytes, path) {
+            decode_raw_preview(bytes, path, opts)
         } else {
             decode_other(bytes, path, opts)
         }
@@ -177,10 +180,39 @@ fn target_dims(width: u32, height: u32, long_side: u32) -> (u32, u32) {
     (side(width), side(height))
 }
 
+/// The largest preview JPEG of a camera RAW that decodes, turned as IFD0 says when the
+/// preview carries no orientation of its own.
+fn decode_raw_preview(
+    bytes: &[u8],
+    path: &Path,
+    opts: &DecodeOptions,
+) -> Result<WorkingImage, VisionError> {
+    let found = raw::find_previews(bytes).map_err(|cut| corrupt(path, cut))?;
+    let turn = found.orientation.and_then(Orientation::from_exif);
+    let mut first_error = None;
+    for range in found.jpegs {
+        match decode_jpeg(&bytes[range], path, opts, turn) {
+            Ok(picture) => return Ok(picture),
+            Err(e) => {
+                first_error.get_or_insert(e);
+            }
+        }
+    }
+    Err(match (first_error, found.cut_short) {
+        (Some(e), _) => e,
+        (None, Some(cut)) => corrupt(path, cut),
+        (None, None) => VisionError::NoPreview {
+            path: path.to_path_buf(),
+        },
+    })
+}
+
+/// `fallback` turns the picture when its own EXIF names no orientation.
 fn decode_jpeg(
     bytes: &[u8],
     path: &Path,
     opts: &DecodeOptions,
+    fallback: Option<Orientation>,
 ) -> Result<WorkingImage, VisionError> {
     let mut decoder = jpeg_decoder::Decoder::new(bytes);
     decoder.read_info().map_err(|e| corrupt(path, e))?;
@@ -222,6 +254,7 @@ fn decode_jpeg(
     let orientation = decoder
         .exif_data()
         .and_then(Orientation::from_exif_chunk)
+        .or(fallback)
         .unwrap_or(Orientation::NoTransforms);
     finish(path, rgb, sw.into(), sh.into(), orientation, opts)
 }
@@ -648,6 +681,64 @@ mod tests {
             decode_bytes(&png_header(20_000, 20_000), Path::new("wide.png"), &opts()).unwrap_err();
         assert!(err.to_string().contains("20000x20000"), "{err}");
         assert!(started.elapsed().as_millis() < 500);
+    }
+
+    fn raw_fixture(name: &str) -> Vec<u8> {
+        let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../collection/testdata/raw");
+        std::fs::read(dir.join(name)).unwrap()
+    }
+
+    // source: crates/collection/testdata/raw (make_fixtures.py there): a 160x120 preview
+    // (Pillow 13.0.0) inside a DNG written by tifffile 2026.3.3, and hand-laid CR2, ORF
+    // and RW2 files that ExifTool 12.57 reads as such.
+    #[test]
+    fn camera_raw_is_described_by_its_preview() {
+        for name in ["preview.dng", "preview.orf", "preview.rw2"] {
+            let img = decode_bytes(&raw_fixture(name), Path::new(name), &opts()).unwrap();
+            assert_eq!((img.width(), img.height()), (160, 120), "{name}");
+            // The preview's gradient: red grows to the right, green downwards.
+            let (left, right) = (pixel(&img, 2, 60), pixel(&img, 157, 60));
+            assert!(left[0] < 30 && right[0] > 220, "{name}: {left:?} {right:?}");
+        }
+        // CR2: the large strip preview wins over the IFD1 thumbnail, and IFD0's
+        // Orientation 6 (rotate 90° clockwise) turns it, as the preview has no EXIF.
+        let img = decode_bytes(&raw_fixture("preview.cr2"), Path::new("a.CR2"), &opts()).unwrap();
+        assert_eq!((img.width(), img.height()), (120, 160));
+        // After a clockwise turn the old top row (green 0) is the right column.
+        assert!(pixel(&img, 118, 80)[1] < 30 && pixel(&img, 1, 80)[1] > 220);
+    }
+
+    #[test]
+    fn damaged_camera_raw_says_why() {
+        let error = |fixture, name: &str| {
+            let err = decode_bytes(&raw_fixture(fixture), Path::new(name), &opts()).unwrap_err();
+            assert!(err.to_string().contains(name), "{err}");
+            err
+        };
+        let err = error("truncated.cr2", "cut.cr2");
+        assert!(matches!(err, VisionError::Corrupt { .. }), "{err}");
+        assert!(
+            err.to_string().contains("past the end of the file"),
+            "{err}"
+        );
+        let err = error("no-preview.nef", "bare.nef");
+        assert!(matches!(err, VisionError::NoPreview { .. }), "{err}");
+
+        // Named like a TIFF, the same bytes go to the TIFF decoder, which cannot show them.
+        assert!(decode_bytes(&raw_fixture("no-preview.nef"), Path::new("a.tif"), &opts()).is_err());
+        // Any cut of a good RAW, or any byte of its header and directories overwritten:
+        // a picture or an error, never a panic.
+        let whole = raw_fixture("preview.cr2");
+        for cut in (0..whole.len()).step_by(97) {
+            let _ = decode_bytes(&whole[..cut], Path::new("a.cr2"), &opts());
+        }
+        for at in 0..100 {
+            for value in [0x00, 0x7F, 0xFF] {
+                let mut bent = whole.clone();
+                bent[at] = value;
+                let _ = decode_bytes(&bent, Path::new("a.cr2"), &opts());
+            }
+        }
     }
 
     #[test]

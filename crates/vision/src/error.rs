@@ -10,11 +10,19 @@ pub enum VisionError {
     },
 
     #[error(
-        "{}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP); \
+        "{}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP, camera RAW with a JPEG preview); \
          convert it or move it out of the collection",
         path.display()
     )]
     UnknownFormat { path: PathBuf },
+
+    #[error(
+        "{}: a camera RAW file with no JPEG preview inside; tagweave describes RAW \
+         pictures by the preview the camera stores in them, so save it again with a preview \
+         or put a JPEG copy of it in the collection",
+        path.display()
+    )]
+    NoPreview { path: PathBuf },
 
     #[error(
         "{}: the picture data is damaged or cut short ({detail}); \

@@ -12,6 +12,7 @@ mod extractor;
 mod kmeans;
 mod linalg;
 mod patches;
+mod raw;
 
 pub use colour::{srgb_to_lab, ColourOptions};
 pub use decode::{load_working_image, DecodeOptions, WorkingImage};
