@@ -586,11 +586,13 @@ fn picture_problem(path: &Path, error: &VisionError, inside: bool) -> String {
     match error {
         VisionError::Io { source, .. } => format!("cannot read {name}: {source}"),
         VisionError::UnknownFormat { .. } if inside => format!(
-            "{name}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP); \
+            "{name}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP, \
+             or a camera RAW with a JPEG preview: DNG, CR2, NEF, ARW, ORF, RW2, PEF); \
              convert it or move it out of the collection"
         ),
         VisionError::UnknownFormat { .. } => format!(
-            "{name}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP); \
+            "{name}: not a picture format tagweave reads (JPEG, PNG, GIF, BMP, TIFF, WebP, \
+             or a camera RAW with a JPEG preview: DNG, CR2, NEF, ARW, ORF, RW2, PEF); \
              convert it to one of these"
         ),
         other => other.to_string(),

@@ -71,6 +71,8 @@ pub enum ServeError {
          to date"
     )]
     PictureGone { path: PathBuf },
+    #[error(transparent)]
+    Preview(#[from] tagweave_vision::VisionError),
     #[error(
         "cannot keep a reduced copy in {path}: {source}; check that the store folder is \
          writable (the copies can be deleted at any time)"

@@ -69,7 +69,11 @@ impl Renditions {
             return Ok(bytes);
         }
         let source = self.root.join(&item.rel_path);
-        let bytes = reduce(&source, size.max_side())?;
+        let bytes = if item.format.is_camera_raw() {
+            reduce_raw(&source, size.max_side())?
+        } else {
+            reduce(&source, size.max_side())?
+        };
         self.keep(&cached, &bytes)?;
         Ok(bytes)
     }
@@ -93,6 +97,33 @@ impl Renditions {
         }
         Ok(())
     }
+}
+
+/// A camera RAW's preview (as the scan describes it), as JPEG fitting in `max_side` pixels.
+fn reduce_raw(path: &Path, max_side: u32) -> Result<Vec<u8>, ServeError> {
+    if !path.exists() {
+        return Err(ServeError::PictureGone {
+            path: path.to_path_buf(),
+        });
+    }
+    let options = tagweave_vision::DecodeOptions {
+        long_side: max_side,
+        ..tagweave_vision::DecodeOptions::default()
+    };
+    let preview = tagweave_vision::load_working_image(path, &options)?;
+    let mut out = Vec::new();
+    JpegEncoder::new_with_quality(&mut out, QUALITY)
+        .encode(
+            preview.rgb(),
+            preview.width(),
+            preview.height(),
+            image::ExtendedColorType::Rgb8,
+        )
+        .map_err(|source| ServeError::Picture {
+            path: path.to_path_buf(),
+            source,
+        })?;
+    Ok(out)
 }
 
 /// Decodes a picture and encodes it as JPEG fitting in `max_side` pixels.
@@ -151,6 +182,34 @@ mod tests {
 
     fn gradient(w: u32, h: u32) -> RgbImage {
         RgbImage::from_fn(w, h, |x, y| Rgb([(x % 256) as u8, (y % 256) as u8, 90]))
+    }
+
+    #[test]
+    fn a_camera_raw_is_shown_from_its_preview() {
+        // source: preview.dng, written by tifffile with a JPEG preview made by Pillow
+        // (crates/collection/testdata/raw/README.md).
+        let temp = tempfile::tempdir().unwrap();
+        let root = temp.path().join("pictures");
+        std::fs::create_dir_all(&root).unwrap();
+        let fixture =
+            Path::new(env!("CARGO_MANIFEST_DIR")).join("../collection/testdata/raw/preview.dng");
+        std::fs::copy(&fixture, root.join("shot.dng")).unwrap();
+        let renditions = Renditions::new(&root, &temp.path().join("store"));
+        let mut raw = item("00000000000000bb", "shot.dng", "0123");
+        raw.format = tagweave_collection::ImageFormat::Dng;
+        let bytes = renditions.jpeg(&raw, Rendition::Thumbnail).unwrap();
+        let shown = image::load_from_memory(&bytes).unwrap();
+        assert_eq!(
+            shown.width().max(shown.height()),
+            Rendition::Thumbnail.max_side()
+        );
+        std::fs::remove_file(root.join("shot.dng")).unwrap();
+        let mut gone = item("00000000000000bc", "shot.dng", "4567");
+        gone.format = tagweave_collection::ImageFormat::Dng;
+        assert!(matches!(
+            renditions.jpeg(&gone, Rendition::Thumbnail),
+            Err(ServeError::PictureGone { .. })
+        ));
     }
 
     #[test]
