@@ -11,8 +11,10 @@
 //!    wall time and peak resident memory (`wait4`), stopping any that passes `--memory-cap-gb`
 //!    or `--time-limit-min`.
 //!
-//!     cargo build --release -p tagweave -p tagweave-scale-bench
-//!     target/release/scale-bench --pictures 1000000 --work /tmp/scale
+//! ```sh
+//! cargo build --release -p tagweave -p tagweave-scale-bench
+//! target/release/scale-bench --pictures 1000000 --work /tmp/scale
+//! ```
 //!
 //! Figures go to BENCHMARKS.md ("How big does it get").
 
@@ -101,7 +103,8 @@ fn main() -> anyhow::Result<()> {
 fn print_table(report: &Value) {
     eprintln!(
         "\n{} pictures; store on disk {:.0} MB",
-        report["pictures"], report["store_on_disk_mb"].as_f64().unwrap_or(0.0)
+        report["pictures"],
+        report["store_on_disk_mb"].as_f64().unwrap_or(0.0)
     );
     eprintln!("| command | wall | peak RSS | result |\n| --- | --- | --- | --- |");
     for c in report["commands"].as_array().into_iter().flatten() {
@@ -159,7 +162,12 @@ fn source_features(args: &Args, tagweave: &Path) -> anyhow::Result<Source> {
         })
         .collect();
     Ok(Source {
-        features: table.features.rows().into_iter().map(|r| r.to_vec()).collect(),
+        features: table
+            .features
+            .rows()
+            .into_iter()
+            .map(|r| r.to_vec())
+            .collect(),
         tags: table.items.iter().map(|i| i.tags.clone()).collect(),
         spread,
         extractor,
@@ -201,7 +209,7 @@ fn build_store(args: &Args, archive: &Path, source: &Source) -> anyhow::Result<V
         let t = Instant::now();
         store.put_vectors(FEATURES, &rows)?;
         vectors_s += t.elapsed().as_secs_f64();
-        if (end / BATCH) % 25 == 0 || end == args.pictures {
+        if (end / BATCH).is_multiple_of(25) || end == args.pictures {
             eprintln!(
                 "  built {end}/{} pictures ({:.0} s)",
                 args.pictures,
@@ -266,8 +274,14 @@ fn time_commands(args: &Args, tagweave: &Path, archive: &Path) -> anyhow::Result
     let commands: Vec<(&str, Vec<&str>)> = vec![
         ("train", vec!["train", "--json"]),
         ("tags", vec!["tags", "--json"]),
-        ("find (open + first query)", vec!["find", "subject-000", "--json"]),
-        ("find, two tags", vec!["find", "subject-001", "subject-002", "--json"]),
+        (
+            "find (open + first query)",
+            vec!["find", "subject-000", "--json"],
+        ),
+        (
+            "find, two tags",
+            vec!["find", "subject-001", "subject-002", "--json"],
+        ),
         (
             "suggest an indexed picture",
             vec!["suggest", "synthetic/0000/0000001.jpg", "--json"],
