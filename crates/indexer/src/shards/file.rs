@@ -126,7 +126,9 @@ impl ShardWriter {
             .file_name()
             .map(|n| n.to_string_lossy().into_owned())
             .unwrap_or_default();
-        let partial = target.with_file_name(format!(".{name}.partial"));
+        // The process id keeps two runs of the same part (a task an engine started again
+        // while the first still ran) from writing into one file.
+        let partial = target.with_file_name(format!(".{name}.{}.partial", std::process::id()));
         let file = File::create(&partial).map_err(|source| IndexError::Io {
             path: partial.clone(),
             source,
