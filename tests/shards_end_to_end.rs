@@ -332,3 +332,186 @@ fn bad_part_files_are_refused_whole_by_name() {
     let message = refused(temp, &["shard", "merge", path(&photos), path(&extractor)]);
     assert!(message.contains("extractor.json"), "{message}");
 }
+
+// ---- On a real Dask cluster: a scheduler and two worker processes on 127.0.0.1 ----
+
+/// The Python with Dask distributed that `.ci/run` installs (`TAGWEAVE_CLUSTER_PYTHON`), or
+/// `None` with the reason printed.
+fn cluster_python() -> Option<PathBuf> {
+    let Some(python) = std::env::var_os("TAGWEAVE_CLUSTER_PYTHON").map(PathBuf::from) else {
+        eprintln!(
+            "skipped: TAGWEAVE_CLUSTER_PYTHON is not set (.ci/run installs Dask and sets it)"
+        );
+        return None;
+    };
+    let probe = std::process::Command::new(&python)
+        .args(["-c", "import distributed"])
+        .output();
+    match probe {
+        Ok(output) if output.status.success() => Some(python),
+        _ => {
+            eprintln!("skipped: {} cannot import distributed", python.display());
+            None
+        }
+    }
+}
+
+/// Child processes killed (SIGKILL) and reaped when dropped, whatever the test did.
+struct Processes(Vec<std::process::Child>);
+
+impl Drop for Processes {
+    fn drop(&mut self) {
+        for child in &mut self.0 {
+            let _ = child.kill();
+            let _ = child.wait();
+        }
+    }
+}
+
+fn free_port() -> u16 {
+    std::net::TcpListener::bind("127.0.0.1:0")
+        .unwrap()
+        .local_addr()
+        .unwrap()
+        .port()
+}
+
+#[test]
+fn a_dask_cluster_with_a_worker_killed_mid_run_makes_the_same_store() {
+    use std::process::{Command, Stdio};
+    use std::time::{Duration, Instant};
+
+    let Some(python) = cluster_python() else {
+        return;
+    };
+    let dask = python.with_file_name("dask");
+    let temp = tempfile::tempdir().unwrap();
+    let temp = temp.path();
+    let (photos, single) = demo_with_single_store(temp);
+    let work = temp.join("work");
+    std::fs::create_dir(&work).unwrap();
+
+    let address = format!("tcp://127.0.0.1:{}", free_port());
+    let port = address.rsplit(':').next().unwrap().to_string();
+    let quiet = |command: &mut Command| {
+        command.stdout(Stdio::null()).stderr(Stdio::null());
+    };
+    let mut scheduler = Command::new(&dask);
+    scheduler.args([
+        "scheduler",
+        "--host",
+        "127.0.0.1",
+        "--port",
+        &port,
+        "--no-dashboard",
+    ]);
+    quiet(&mut scheduler);
+    let mut cluster = Processes(vec![scheduler.spawn().unwrap()]);
+    for _ in 0..2 {
+        let mut worker = Command::new(&dask);
+        worker
+            .args([
+                "worker",
+                &address,
+                "--nthreads",
+                "1",
+                "--no-nanny",
+                "--host",
+                "127.0.0.1",
+            ])
+            .args(["--no-dashboard"])
+            .env("RAYON_NUM_THREADS", "1");
+        quiet(&mut worker);
+        cluster.0.push(worker.spawn().unwrap());
+    }
+    let driver_script = repo_root().join("tools/cluster/tagweave_cluster.py");
+    let mut driver = Command::new(&python);
+    driver
+        .arg(&driver_script)
+        .arg(&photos)
+        .args([
+            "--work",
+            path(&work),
+            "--parts",
+            "2",
+            "--scheduler",
+            &address,
+        ])
+        .args([
+            "--workers",
+            "2",
+            "--train",
+            "--tagweave",
+            env!("CARGO_BIN_EXE_tagweave"),
+        ])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped());
+    let started = Instant::now();
+    let driver = driver.spawn().unwrap();
+    let mut driver = Processes(vec![driver]);
+
+    // Both workers describe a part at once; as soon as one part file is being written,
+    // the first worker dies without a word.
+    let deadline = started + Duration::from_secs(240);
+    let mut killed = false;
+    loop {
+        if let Some(status) = driver.0[0].try_wait().unwrap() {
+            assert!(
+                killed,
+                "the run ended ({status}) before a worker could be killed"
+            );
+            break;
+        }
+        assert!(Instant::now() < deadline, "the cluster run took over 240 s");
+        if !killed {
+            let writing = std::fs::read_dir(&work).unwrap().any(|entry| {
+                let name = entry.unwrap().file_name();
+                let name = name.to_string_lossy();
+                name.starts_with(".features-") && name.ends_with(".partial")
+            });
+            if writing {
+                cluster.0[1].kill().unwrap();
+                cluster.0[1].wait().unwrap();
+                killed = true;
+                eprintln!(
+                    "killed a worker {:.1} s into the run",
+                    started.elapsed().as_secs_f64()
+                );
+            }
+        }
+        std::thread::sleep(Duration::from_millis(5));
+    }
+    let child = driver.0.remove(0);
+    let output = child.wait_with_output().unwrap();
+    assert!(
+        output.status.success(),
+        "the driver failed:\n{}\n{}",
+        stdout_of(&output),
+        stderr_of(&output)
+    );
+    eprintln!(
+        "cluster run: {:.1} s\n{}",
+        started.elapsed().as_secs_f64(),
+        stderr_of(&output)
+    );
+    let report: serde_json::Value = serde_json::from_slice(&output.stdout).unwrap();
+    let described: u64 = report["describe"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|part| part["described"].as_u64().unwrap())
+        .sum();
+    assert_eq!(described, 400);
+    drop(cluster);
+
+    let single_store = snapshot(&single);
+    let merged_store = snapshot(&photos.join(".tagweave"));
+    assert_eq!(merged_store.codes.len(), 400);
+    assert!(merged_store.items == single_store.items, "records differ");
+    assert!(
+        merged_store.features == single_store.features,
+        "features differ"
+    );
+    assert!(merged_store.model == single_store.model, "models differ");
+    assert!(merged_store.codes == single_store.codes, "codes differ");
+}
