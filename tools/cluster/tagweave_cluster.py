@@ -57,8 +57,11 @@ def code_part(binary, model, features, out, threads):
     return json.loads(stdout)
 
 
+STARTED = time.time()
+
+
 def say(message):
-    print(message, file=sys.stderr, flush=True)
+    print(f"[{time.time() - STARTED:6.1f} s] {message}", file=sys.stderr, flush=True)
 
 
 def fan_out(client, function, jobs, name):
@@ -122,7 +125,7 @@ def main():
 
     from distributed import Client  # imported here so --help works without Dask
 
-    started = time.time()
+    started = STARTED
     folder = os.path.abspath(options.folder)
     work = os.path.abspath(options.work)
     os.makedirs(work, exist_ok=True)
@@ -172,7 +175,10 @@ def main():
                 binary, ["shard", "merge", folder, "--json", *code_files]))
             say("trained; codes merged "
                 f"({sum(f['unchanged'] for f in merged_codes['files'])} as trained)")
-        client.close()
+        if local is not None:
+            client.shutdown()  # scheduler and workers stop at once
+        else:
+            client.close()
     finally:
         if local is not None:
             local.close()
