@@ -153,7 +153,7 @@ fn a_damaged_or_foreign_file_is_refused_whole_and_a_second_merge_changes_nothing
     let foreign = temp.path().join("foreign.parquet");
     describe_part(&root, &other_file, all, false, &foreign, &|_| {}).unwrap();
     let before = store.vectors_of_kind(FEATURES).count();
-    let error = merge(&store, &[foreign.clone()], None, &mut |_| {}).unwrap_err();
+    let error = merge(&store, std::slice::from_ref(&foreign), None, &mut |_| {}).unwrap_err();
     assert!(
         matches!(error, IndexError::OtherExtractor { .. }),
         "{error}"
