@@ -259,16 +259,11 @@ fn write_columns(
                         _ => &[],
                     })
                     .collect();
-                let (definition, repetition) = list_levels(lists.iter().map(|l| l.len()));
                 let values: Vec<ByteArray> = lists
                     .iter()
                     .flat_map(|l| l.iter().map(|t| ByteArray::from(t.as_str())))
                     .collect();
-                column.typed::<ByteArrayType>().write_batch(
-                    &values,
-                    Some(&definition),
-                    Some(&repetition),
-                )
+                write_lists::<ByteArrayType>(&mut column, lists.iter().map(|l| l.len()), &values)
             }
             Column::FloatList => {
                 let lists: Vec<&[f32]> = cells
@@ -277,12 +272,10 @@ fn write_columns(
                         _ => &[],
                     })
                     .collect();
-                let (definition, repetition) = list_levels(lists.iter().map(|l| l.len()));
-                let values: Vec<f32> = lists.concat();
-                column.typed::<FloatType>().write_batch(
-                    &values,
-                    Some(&definition),
-                    Some(&repetition),
+                write_lists::<FloatType>(
+                    &mut column,
+                    lists.iter().map(|l| l.len()),
+                    &lists.concat(),
                 )
             }
         };
@@ -291,6 +284,18 @@ fn write_columns(
     }
     group.close().map_err(|e| e.to_string())?;
     Ok(())
+}
+
+/// Writes the values of lists of these lengths, one after another, as one column.
+fn write_lists<T: parquet::data_type::DataType>(
+    column: &mut parquet::file::writer::SerializedColumnWriter<'_>,
+    lengths: impl Iterator<Item = usize>,
+    values: &[T::T],
+) -> parquet::errors::Result<usize> {
+    let (definition, repetition) = list_levels(lengths);
+    column
+        .typed::<T>()
+        .write_batch(values, Some(&definition), Some(&repetition))
 }
 
 /// Definition and repetition levels of required lists of these lengths (a list's
