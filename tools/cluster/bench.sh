@@ -10,6 +10,9 @@
 # ENLARGE times wider and taller (1 keeps them), so describing dominates as with camera
 # pictures. It needs Pillow: in python3 if there, else installed into the Dask venv.
 #
+# The driver's own steps (learning the extractor, merging) run with DRIVER_THREADS rayon
+# threads (default 1; they run while the workers wait, on the driver's machine).
+#
 # Needs a Python with Dask distributed: TAGWEAVE_CLUSTER_PYTHON, else
 # ${TMPDIR:-/tmp}/tagweave-ci-dask/bin/python (what .ci/run installs). Works in
 # ${BENCH_DIR:-/tmp/tagweave-cluster-bench}.
@@ -53,8 +56,7 @@ for workers in 1 2; do
   cp -a "$source_dir" "$run/photos"  # -a: the same mtimes, so the same records
   rm -rf "$run/photos/.tagweave"
   started=$(date +%s.%N)
-  # The driver's own steps (learning, merging) get one thread too.
-  RAYON_NUM_THREADS=1 "$python" "$driver" "$run/photos" --work "$run/work" --parts "$parts" \
+  RAYON_NUM_THREADS=${DRIVER_THREADS:-1} "$python" "$driver" "$run/photos" --work "$run/work" --parts "$parts" \
     --local-workers "$workers" --port $((8790 + workers)) --tagweave "$tagweave" \
     >"$run/driver.json" 2>"$run/driver.log"
   ended=$(date +%s.%N)
@@ -67,7 +69,7 @@ for k in $(seq 1 "$parts"); do
 done
 
 described=$("$python" -c 'import json,sys; print(sum(p["described"] for p in json.load(open(sys.argv[1]))["describe"]))' "$bench/run-1/driver.json")
-echo "$described pictures (demo archive x$enlarge), $parts parts, one thread per worker, commit $(git rev-parse --short HEAD), $(date -u +%Y-%m-%d)"
+echo "$described pictures (demo archive x$enlarge), $parts parts, one thread per worker, ${DRIVER_THREADS:-1} for the driver, commit $(git rev-parse --short HEAD), $(date -u +%Y-%m-%d)"
 printf '%-10s %10s %12s\n' workers seconds pictures/s
 for workers in 1 2; do
   printf '%-10s %10.1f %12.1f\n' "$workers" "${seconds[$workers]}" \
