@@ -26,6 +26,7 @@ mod output;
 mod progress;
 mod scan;
 mod serve;
+mod shard;
 mod store_path;
 mod tags;
 mod to_tag;
@@ -74,6 +75,9 @@ enum Command {
     Demo(demo::DemoArgs),
     /// A review page in your browser: search, look at pictures, accept or reject tags.
     Serve(serve::ServeArgs),
+    /// For collections too large for one machine: learn the feature extractor once,
+    /// describe and code the pictures in parts (Parquet files), merge them into the store.
+    Shard(shard::ShardArgs),
 }
 
 impl Command {
@@ -90,6 +94,7 @@ impl Command {
             Command::Audit(a) => a.json,
             Command::Apply(a) => a.json,
             Command::ToTag(a) => a.json,
+            Command::Shard(a) => a.json(),
             Command::Demo(_) | Command::Serve(_) => false,
         }
     }
@@ -121,6 +126,7 @@ fn main() -> ExitCode {
         Command::Eval(args) => eval::run(&args),
         Command::Demo(args) => demo::run(&args),
         Command::Serve(args) => serve::run(&args),
+        Command::Shard(args) => shard::run(&args),
     };
     match result {
         Ok(code) => code.into(),

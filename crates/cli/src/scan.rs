@@ -93,17 +93,22 @@ pub fn open_for_scan(args: &ScanArgs) -> anyhow::Result<Store> {
 pub fn scan_with_progress(store: &Store, options: &ScanOptions) -> anyhow::Result<ScanReport> {
     let progress = progress::Progress::new();
     let report = tagweave_indexer::scan(store, options, &|event| {
-        let (message, done, total) = match event {
-            ScanProgress::Crawled { to_read, .. } => ("reading pictures", 0, to_read),
-            ScanProgress::Read { done, total } => ("reading pictures", done, total),
-            ScanProgress::Learning { done, total } => ("learning patch dictionary", done, total),
-            ScanProgress::Encoding { done, total } => ("describing pictures", done, total),
-            ScanProgress::Coding { done, total } => ("coding new pictures", done, total),
-        };
+        let (message, done, total) = stage_of(event);
         progress.show(message, done, total);
     })?;
     progress.finish();
     Ok(report)
+}
+
+/// What the progress bar says of a scan event (also of `tagweave shard`'s steps).
+pub fn stage_of(event: ScanProgress) -> (&'static str, usize, usize) {
+    match event {
+        ScanProgress::Crawled { to_read, .. } => ("reading pictures", 0, to_read),
+        ScanProgress::Read { done, total } => ("reading pictures", done, total),
+        ScanProgress::Learning { done, total } => ("learning patch dictionary", done, total),
+        ScanProgress::Encoding { done, total } => ("describing pictures", done, total),
+        ScanProgress::Coding { done, total } => ("coding new pictures", done, total),
+    }
 }
 
 /// The `--json` summary: the report's own fields, unchanged, plus every skipped file.

@@ -101,7 +101,7 @@ pub(crate) fn update(
     ))
 }
 
-fn describe(
+pub(crate) fn describe(
     extractor: &FeatureExtractor,
     root: &Path,
     item: &ItemRecord,

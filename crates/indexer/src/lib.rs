@@ -16,6 +16,7 @@ use tagweave_store::{Store, StoreError};
 use tagweave_vision::{FeatureOptions, VisionError};
 
 mod features;
+pub mod shards;
 mod training;
 pub use features::FeatureSummary;
 pub use training::{
@@ -40,6 +41,54 @@ pub enum IndexError {
          from; tag a few pictures (a text sidecar beside each, one tag per line) and scan again"
     )]
     NotEnoughTags { tagged: usize },
+    #[error(
+        "`{0}` is not a part: write K/N, the K-th of N parts, with 1 ≤ K ≤ N (for example 2/8)"
+    )]
+    BadPart(String),
+    #[error("no pictures found in {0}; give the photo folder")]
+    NoPictures(std::path::PathBuf),
+    #[error("{path}: {problem}")]
+    ShardFile {
+        path: std::path::PathBuf,
+        problem: String,
+    },
+    #[error("{path}: {source}")]
+    Io {
+        path: std::path::PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+    #[error(
+        "{path} was described with another feature extractor ({made_with:.12}…) than \
+         {source_name} ({expected:.12}…); describe its part again with that extractor's file, \
+         or merge into a new store"
+    )]
+    OtherExtractor {
+        path: std::path::PathBuf,
+        made_with: String,
+        expected: String,
+        source_name: String,
+    },
+    #[error(
+        "{path} holds feature vectors, but the store has no feature extractor yet; pass the \
+         extractor file its parts were described with (`--extractor FILE`)"
+    )]
+    NoExtractor { path: std::path::PathBuf },
+    #[error(
+        "{path} holds codes, but the store has no trained model; run `tagweave train` first, \
+         then code the parts with the model file it gives"
+    )]
+    NoModel { path: std::path::PathBuf },
+    #[error(
+        "{path} was coded with another model ({made_with:.12}…) than the store's \
+         ({expected:.12}…); write the store's model to a file (`tagweave shard model`) and \
+         code that part again"
+    )]
+    OtherModel {
+        path: std::path::PathBuf,
+        made_with: String,
+        expected: String,
+    },
 }
 
 #[derive(Debug, Clone)]

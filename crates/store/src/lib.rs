@@ -306,10 +306,7 @@ impl Store {
     /// Stores a named, versioned piece of learned state (a dictionary, a model).
     pub fn put_blob<T: Serialize>(&self, name: &str, value: &T) -> Result<()> {
         let bytes = serde_json::to_vec(value).map_err(|e| self.corrupt(name, &e.to_string()))?;
-        self.blobs
-            .insert(name, bytes)
-            .map_err(|e| self.db_error(e))?;
-        self.flush()
+        self.put_blob_bytes(name, &bytes)
     }
 
     /// Reads a named blob; `None` when it was never stored.
@@ -319,6 +316,25 @@ impl Store {
             .map_err(|e| self.db_error(e))?
             .map(|bytes| self.decode(name, &bytes))
             .transpose()
+    }
+
+    /// A named blob's stored bytes, exactly as kept; `None` when it was never stored. Shard
+    /// files name the extractor and model they were made with by a hash of these bytes.
+    pub fn blob_bytes(&self, name: &str) -> Result<Option<Vec<u8>>> {
+        Ok(self
+            .blobs
+            .get(name)
+            .map_err(|e| self.db_error(e))?
+            .map(|bytes| bytes.to_vec()))
+    }
+
+    /// Stores a named blob from bytes another store (or a file written from one) kept, so
+    /// it stays byte for byte what it was. The bytes must decode as what `blob` expects.
+    pub fn put_blob_bytes(&self, name: &str, bytes: &[u8]) -> Result<()> {
+        self.blobs
+            .insert(name, bytes)
+            .map_err(|e| self.db_error(e))?;
+        self.flush()
     }
 
     /// The trained model (of the caller's type `T`), or `None` before the first training.

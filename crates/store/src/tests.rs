@@ -294,3 +294,25 @@ fn the_model_is_read_only_in_the_format_asked_for() {
         Err(StoreError::Corrupt { .. })
     ));
 }
+
+#[test]
+fn blob_bytes_come_back_exactly_as_put() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    assert_eq!(store.blob_bytes(MODEL_BLOB).unwrap(), None);
+    // Not what serde_json would write for the value (spaces, a long float): kept as given.
+    let bytes = br#"{ "format": 2, "weights": [0.50000000000000001, -1.0] }"#;
+    store.put_blob_bytes(MODEL_BLOB, bytes).unwrap();
+    assert_eq!(
+        store.blob_bytes(MODEL_BLOB).unwrap().as_deref(),
+        Some(&bytes[..])
+    );
+    let model: Model = store.blob(MODEL_BLOB).unwrap().unwrap();
+    assert_eq!(model.weights, vec![0.5, -1.0]);
+    // and put_blob's bytes are serde_json's
+    store.put_blob(MODEL_BLOB, &model).unwrap();
+    assert_eq!(
+        store.blob_bytes(MODEL_BLOB).unwrap(),
+        Some(serde_json::to_vec(&model).unwrap())
+    );
+}
