@@ -7,7 +7,7 @@ use tagweave_store::{Store, StoreError, DEFAULT_DIR_NAME};
 
 /// `--store PATH` when given (a store folder, or a collection folder holding one in
 /// `.tagweave/`), else the nearest `.tagweave/` here or above. Waits a moment
-/// ([`tagweave_store::PATIENCE`]) for another process that holds it, such as the review
+/// ([`tagweave_store::PATIENCE`]) for a process that holds it briefly, such as the review
 /// page writing a decision.
 pub fn open_existing(explicit: Option<&Path>) -> anyhow::Result<Store> {
     let dir = match explicit {

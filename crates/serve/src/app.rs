@@ -913,7 +913,7 @@ impl App {
             );
         }
         // Held from planning to the index's refresh, as `apply` holds it.
-        let store = match Store::open_patiently(&self.store_dir, tagweave_store::PATIENCE) {
+        let store = match Store::open_briefly(&self.store_dir, tagweave_store::PATIENCE) {
             Ok(store) => store,
             Err(error) => {
                 return self.message(503, "Not written, the index is busy", &error.to_string())

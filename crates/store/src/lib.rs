@@ -32,9 +32,8 @@ pub const FORMAT_VERSION: u32 = 2;
 /// measured with tools/code-search-bench.
 const PAGE_CACHE_BYTES: u64 = 64 << 20;
 
-/// How long a command waits for another process to let the store go before it says the
-/// store is in use: long enough for the review page to write one decision, short enough
-/// that a running scan is reported at once rather than waited out.
+/// How long a command waits for a process that holds the store only for a moment (the
+/// review page writing one decision) before it says the store is in use.
 pub const PATIENCE: std::time::Duration = std::time::Duration::from_secs(5);
 
 /// Name of the store folder placed inside a collection by default.
@@ -70,7 +69,7 @@ impl Store {
             path: dir.to_path_buf(),
             source,
         })?;
-        let mut store = Store::open_locked(dir)?;
+        let mut store = Store::open_locked(dir, false)?;
         if fresh || store.is_unfinished()? {
             let root_value = if is_default_location(dir, collection_root) {
                 ROOT_IS_PARENT.to_string()
@@ -89,12 +88,16 @@ impl Store {
 
     /// Opens an existing store; a missing one is an error that says how to make it.
     pub fn open(dir: &Path) -> Result<Store> {
+        Store::open_as(dir, false)
+    }
+
+    fn open_as(dir: &Path, brief: bool) -> Result<Store> {
         if !dir.join("db").exists() {
             return Err(StoreError::NotAStore {
                 dir: dir.to_path_buf(),
             });
         }
-        let mut store = Store::open_locked(dir)?;
+        let mut store = Store::open_locked(dir, brief)?;
         if store.is_unfinished()? {
             return Err(StoreError::NotAStore {
                 dir: dir.to_path_buf(),
@@ -105,13 +108,27 @@ impl Store {
         Ok(store)
     }
 
-    /// Opens an existing store like [`Store::open`], waiting up to `patience` for another
-    /// process to let it go (a review page writing one decision holds it for a moment).
+    /// Opens an existing store like [`Store::open`], waiting up to `patience` while its
+    /// holder keeps it only for a moment (the review page writing one decision); a holder
+    /// that keeps it longer (a scan, training) is reported at once.
     pub fn open_patiently(dir: &Path, patience: std::time::Duration) -> Result<Store> {
+        Store::open_waiting(dir, patience, false)
+    }
+
+    /// Opens an existing store to change it within a moment: waits up to `patience` for
+    /// whoever holds it, and tells others who wait that this hold is brief.
+    pub fn open_briefly(dir: &Path, patience: std::time::Duration) -> Result<Store> {
+        Store::open_waiting(dir, patience, true)
+    }
+
+    fn open_waiting(dir: &Path, patience: std::time::Duration, brief: bool) -> Result<Store> {
         let deadline = std::time::Instant::now() + patience;
         loop {
-            match Store::open(dir) {
-                Err(StoreError::InUse { .. }) if std::time::Instant::now() < deadline => {
+            match Store::open_as(dir, brief) {
+                Err(StoreError::InUse { .. })
+                    if std::time::Instant::now() < deadline
+                        && (brief || lock::held_briefly(dir)) =>
+                {
                     std::thread::sleep(std::time::Duration::from_millis(50));
                 }
                 opened => return opened,
@@ -160,8 +177,8 @@ impl Store {
         })
     }
 
-    fn open_locked(dir: &Path) -> Result<Store> {
-        let lock = StoreLock::acquire(dir)?;
+    fn open_locked(dir: &Path, brief: bool) -> Result<Store> {
+        let lock = StoreLock::acquire_for(dir, brief)?;
         let db = sled::Config::new()
             .path(dir.join("db"))
             .mode(sled::Mode::LowSpace)

@@ -1,5 +1,7 @@
 //! One process per store. An OS file lock (released by the kernel when the process dies,
-//! however it dies) guards the store; the holder's PID is written inside for the message.
+//! however it dies) guards the store; the holder's PID is written inside for the message,
+//! followed by [`BRIEF`] when the holder means to let go within a moment (the review page
+//! writing one decision), so others know waiting is worth it.
 
 use std::fs::{File, OpenOptions, TryLockError};
 use std::io::{Read, Seek, SeekFrom, Write};
@@ -7,12 +9,26 @@ use std::path::Path;
 
 use crate::StoreError;
 
+/// Written after the PID by a holder that keeps the store only a moment.
+const BRIEF: &str = "brief";
+
 pub(crate) struct StoreLock {
     _file: File,
 }
 
+/// Whether the store's current holder said it keeps the store only a moment.
+pub(crate) fn held_briefly(dir: &Path) -> bool {
+    std::fs::read_to_string(dir.join("lock"))
+        .is_ok_and(|text| text.split_whitespace().nth(1) == Some(BRIEF))
+}
+
 impl StoreLock {
     pub(crate) fn acquire(dir: &Path) -> Result<StoreLock, StoreError> {
+        StoreLock::acquire_for(dir, false)
+    }
+
+    /// Takes the lock; `brief` tells waiting processes it will be let go within a moment.
+    pub(crate) fn acquire_for(dir: &Path, brief: bool) -> Result<StoreLock, StoreError> {
         let path = dir.join("lock");
         let io = |source| StoreError::Io {
             path: path.clone(),
@@ -37,7 +53,11 @@ impl StoreLock {
         }
         file.set_len(0).map_err(io)?;
         file.seek(SeekFrom::Start(0)).map_err(io)?;
-        write!(file, "{}", std::process::id()).map_err(io)?;
+        if brief {
+            write!(file, "{} {BRIEF}", std::process::id()).map_err(io)?;
+        } else {
+            write!(file, "{}", std::process::id()).map_err(io)?;
+        }
         file.flush().map_err(io)?;
         Ok(StoreLock { _file: file })
     }
@@ -51,7 +71,7 @@ fn holder_pid(file: &mut File) -> Option<u32> {
     for attempt in 1..=TRIES {
         let mut text = String::new();
         if file.seek(SeekFrom::Start(0)).is_ok() && file.read_to_string(&mut text).is_ok() {
-            if let Ok(pid) = text.trim().parse() {
+            if let Some(Ok(pid)) = text.split_whitespace().next().map(str::parse) {
                 return Some(pid);
             }
         }

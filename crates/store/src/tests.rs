@@ -76,17 +76,31 @@ fn a_second_opener_is_told_the_store_is_in_use_with_the_pid() {
 }
 
 #[test]
-fn a_patient_opener_waits_for_the_holder_to_let_go_and_no_longer() {
+fn a_patient_opener_waits_for_a_brief_holder_and_no_longer() {
     let (temp, dir) = collection();
-    let first = Store::open_or_create(&dir, temp.path()).unwrap();
+    drop(Store::open_or_create(&dir, temp.path()).unwrap());
+    let patience = std::time::Duration::from_secs(20);
+    // A holder that keeps the store (a scan) is reported at once, however patient the asker.
+    let keeping = Store::open(&dir).unwrap();
+    let started = std::time::Instant::now();
+    let refused = Store::open_patiently(&dir, patience);
+    assert!(matches!(refused, Err(StoreError::InUse { .. })));
+    assert!(started.elapsed() < std::time::Duration::from_secs(5));
+    // The page's brief hold waits for it, though, and is itself waited for.
+    let release = std::thread::spawn(move || {
+        std::thread::sleep(std::time::Duration::from_millis(300));
+        drop(keeping);
+    });
+    let brief = Store::open_briefly(&dir, patience).unwrap();
+    release.join().unwrap();
     let short = Store::open_patiently(&dir, std::time::Duration::from_millis(100));
     assert!(matches!(short, Err(StoreError::InUse { .. })));
-    let holder = std::thread::spawn(move || {
+    let release = std::thread::spawn(move || {
         std::thread::sleep(std::time::Duration::from_millis(300));
-        drop(first);
+        drop(brief);
     });
-    let waited = Store::open_patiently(&dir, std::time::Duration::from_secs(20));
-    holder.join().unwrap();
+    let waited = Store::open_patiently(&dir, patience);
+    release.join().unwrap();
     assert!(waited.is_ok(), "{:?}", waited.err());
 }
 
