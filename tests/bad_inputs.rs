@@ -993,11 +993,20 @@ fn apply_writes_tags_in_the_spelling_of_the_collection() {
 
     let quay = String::from_utf8(std::fs::read(root.join("quay.xmp")).unwrap()).unwrap();
     // by hand: the two items after `Harbour` (a sheet's tags come in sorted order of their
-    // normalised form), in the collection's spelling, nothing else moved.
-    let expected = String::from_utf8(quay_before).unwrap().replace(
-        "     <rdf:li>Harbour</rdf:li>\n",
-        "     <rdf:li>Harbour</rdf:li>\n     <rdf:li>naïve art</rdf:li>\n     <rdf:li>Sea</rdf:li>\n",
-    );
+    // normalised form), in the collection's spelling, and the same two in tagweave's bag of
+    // accepted suggestions at the end of the description; nothing else moved.
+    let expected = String::from_utf8(quay_before)
+        .unwrap()
+        .replace(
+            "     <rdf:li>Harbour</rdf:li>\n",
+            "     <rdf:li>Harbour</rdf:li>\n     <rdf:li>naïve art</rdf:li>\n     <rdf:li>Sea</rdf:li>\n",
+        )
+        .replace(
+            "  </rdf:Description>\n",
+            "   <tagweave:acceptedSuggestions xmlns:tagweave=\"https://tagweave.invalid/xmp/1.0/\">\n    \
+             <rdf:Bag>\n     <rdf:li>naïve art</rdf:li>\n     <rdf:li>Sea</rdf:li>\n    </rdf:Bag>\n   \
+             </tagweave:acceptedSuggestions>\n  </rdf:Description>\n",
+        );
     assert_eq!(quay, expected);
     assert!(
         !quay.contains("naïve-art") && !quay.contains(">sea<"),
@@ -1005,7 +1014,7 @@ fn apply_writes_tags_in_the_spelling_of_the_collection() {
     );
     let field = std::fs::read_to_string(root.join("field.txt")).unwrap();
     assert!(
-        field.ends_with("\nBoats\nwheat-field\n"),
+        field.ends_with("\nBoats # accepted suggestion\nwheat-field # accepted suggestion\n"),
         "a tag the collection never spelled keeps the sheet's form: {field}"
     );
     assert_eq!(

@@ -358,6 +358,8 @@ fn json_lists_skipped_files_relative_to_the_folder() {
         "tagged",
         "untagged",
         "tags",
+        "accepted_suggestions",
+        "tagged_only_by_suggestions",
         "added",
         "refreshed",
         "unchanged",
@@ -542,7 +544,12 @@ fn keywords_inside_pictures_are_tags_and_apply_never_writes_into_them() {
     assert_eq!(out.status.code(), Some(0), "{}", stderr_of(&out));
     assert_eq!(std::fs::read(root.join("harbour.jpg")).unwrap(), harbour);
     let written = std::fs::read_to_string(root.join("harbour.txt")).unwrap();
-    assert!(written.lines().any(|l| l.trim() == "gulls"), "{written}");
+    assert!(
+        written
+            .lines()
+            .any(|l| l.trim() == "gulls # accepted suggestion"),
+        "{written}"
+    );
 
     let rescan = json(&tagweave(root, &["scan", ".", "--json"]));
     assert_eq!(rescan["refreshed"], 1, "{rescan}");
