@@ -22,6 +22,12 @@ use lock::StoreLock;
 pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
 pub use table::FeatureTable;
 
+/// `values` as a vector of `kind` reads back from the store (its packing applied), for work
+/// done outside the store that must match work done on what the store holds.
+pub fn as_stored(kind: &str, values: &[f32]) -> Vec<f32> {
+    packing::unpack(&packing::pack(kind, values)).unwrap_or_else(|_| values.to_vec())
+}
+
 /// Bumped whenever the on-disk layout changes in a way older code cannot read.
 /// 2: one tree per vector kind, vectors packed (`packing`: codes as bytes, features in
 /// 8-bit blocks).
@@ -412,6 +418,16 @@ impl Store {
         packing::unpack(&bytes)
             .map(Some)
             .map_err(|problem| self.corrupt(id, problem))
+    }
+
+    /// Whether the store holds exactly `values` as the vector of `kind` for `id`, as it
+    /// would keep them (packed: a vector that packs to the stored bytes is the same).
+    pub fn holds_vector(&self, kind: &str, id: &str, values: &[f32]) -> Result<bool> {
+        Ok(self
+            .vector_tree(kind)?
+            .get(id.as_bytes())
+            .map_err(|e| self.db_error(e))?
+            .is_some_and(|held| *held == *packing::pack(kind, values)))
     }
 
     /// Every stored vector of one kind as `(id, values)`, in id order. Streams: a million

@@ -330,3 +330,33 @@ fn blob_bytes_come_back_exactly_as_put() {
         Some(serde_json::to_vec(&model).unwrap())
     );
 }
+
+#[test]
+fn as_stored_is_what_the_store_gives_back() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let features: Vec<f32> = (0..70).map(|i| (i as f32 * 0.37).sin()).collect();
+    let code: Vec<f32> = (0..16).map(|i| i as f32 / 15.0).collect();
+    store
+        .put_vectors(FEATURES, &[("a".into(), features.clone())])
+        .unwrap();
+    store
+        .put_vectors(CODES, &[("a".into(), code.clone())])
+        .unwrap();
+    assert_eq!(
+        store.vector(FEATURES, "a").unwrap().unwrap(),
+        as_stored(FEATURES, &features)
+    );
+    assert_eq!(
+        store.vector(CODES, "a").unwrap().unwrap(),
+        as_stored(CODES, &code)
+    );
+    assert!(store.holds_vector(FEATURES, "a", &features).unwrap());
+    assert!(store
+        .holds_vector(FEATURES, "a", &as_stored(FEATURES, &features))
+        .unwrap());
+    let mut other = features.clone();
+    other[3] += 0.5;
+    assert!(!store.holds_vector(FEATURES, "a", &other).unwrap());
+    assert!(!store.holds_vector(FEATURES, "b", &features).unwrap());
+}

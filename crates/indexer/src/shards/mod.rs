@@ -498,7 +498,11 @@ pub fn code_part(
             read.push(read_feature_row(features_file, row)?);
         }
         let width = read[0].1.len();
-        let flat: Vec<f32> = read.iter().flat_map(|(_, f)| f.iter().copied()).collect();
+        // Coded from the features as the store keeps them (packed), as `train` codes them.
+        let flat: Vec<f32> = read
+            .iter()
+            .flat_map(|(_, f)| tagweave_store::as_stored(FEATURES, f))
+            .collect();
         let raw = Array2::from_shape_vec((read.len(), width), flat).map_err(|_| {
             IndexError::ShardFile {
                 path: features_file.to_path_buf(),
@@ -716,10 +720,6 @@ pub fn merge(
     })
 }
 
-fn same_bits(a: &[f32], b: &[f32]) -> bool {
-    a.len() == b.len() && a.iter().zip(b).all(|(x, y)| x.to_bits() == y.to_bits())
-}
-
 fn merge_features(
     store: &Store,
     path: &Path,
@@ -731,8 +731,7 @@ fn merge_features(
     for row in rows {
         let (item, features) = read_feature_row(path, row)?;
         let held = store.item(&item.id)?;
-        let held_features = store.vector(FEATURES, &item.id)?;
-        if held.as_ref() == Some(&item) && held_features.is_some_and(|f| same_bits(&f, &features)) {
+        if held.as_ref() == Some(&item) && store.holds_vector(FEATURES, &item.id, &features)? {
             counts.unchanged += 1;
             continue;
         }
@@ -763,10 +762,7 @@ fn merge_codes(
             counts.not_in_store += 1;
             continue;
         }
-        if store
-            .vector(CODES, &id)?
-            .is_some_and(|held| same_bits(&held, &code))
-        {
+        if store.holds_vector(CODES, &id, &code)? {
             counts.unchanged += 1;
             continue;
         }
