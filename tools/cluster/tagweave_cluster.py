@@ -91,14 +91,19 @@ class LocalCluster:
                  "--host", "127.0.0.1", "--no-dashboard"], env=env, **quiet))
 
     def close(self):
-        for process in reversed(self.processes):
-            process.terminate()
+        """Gives the processes a moment to end after the client's shutdown, then kills the
+        rest: the work is on disk by now, and a worker told to stop while its scheduler goes
+        away can spend many seconds trying to say goodbye."""
+        deadline = time.time() + 3
         for process in self.processes:
             try:
-                process.wait(timeout=15)
+                process.wait(timeout=max(0.0, deadline - time.time()))
             except subprocess.TimeoutExpired:
+                pass
+        for process in self.processes:
+            if process.poll() is None:
                 process.kill()
-                process.wait()
+            process.wait()
 
 
 def main():
