@@ -84,6 +84,23 @@ fn folder_size(dir: &Path) -> u64 {
         .sum()
 }
 
+/// Each command exits 1 on a store of `version`, saying to rebuild it.
+fn refused_with_the_way_out(root: &Path, version: u32, commands: &[&[&str]], who: &str) {
+    for args in commands {
+        let out = tagweave(root, args);
+        assert_eq!(out.status.code(), Some(1), "{args:?} on an {who} store");
+        let message = stderr_of(&out);
+        assert!(
+            message.contains(&format!(
+                "was written in format version {version}, this tagweave reads version \
+                 {FORMAT_VERSION}; rebuild it from the pictures and sidecars with \
+                 `tagweave scan FOLDER --rebuild`"
+            )),
+            "{args:?} on an {who} store: {message}"
+        );
+    }
+}
+
 #[test]
 fn a_store_of_another_format_version_is_refused_with_the_way_out() {
     let _serial = one_at_a_time();
@@ -97,19 +114,7 @@ fn a_store_of_another_format_version_is_refused_with_the_way_out() {
 
     for (version, who) in [(0, "older"), (FORMAT_VERSION + 1, "newer")] {
         set_format_version(&root.join(".tagweave"), version);
-        for args in [&["scan", "."][..], &["tags"]] {
-            let out = tagweave(root, args);
-            assert_eq!(out.status.code(), Some(1), "{args:?} on an {who} store");
-            let message = stderr_of(&out);
-            assert!(
-                message.contains(&format!(
-                    "was written in format version {version}, this tagweave reads version \
-                     {FORMAT_VERSION}; rebuild it from the pictures and sidecars with \
-                     `tagweave scan FOLDER --rebuild`"
-                )),
-                "{args:?} on an {who} store: {message}"
-            );
-        }
+        refused_with_the_way_out(root, version, &[&["scan", "."], &["tags"]], who);
         // Following the advice works and loses nothing the sidecars hold.
         let rebuilt = tagweave(root, &["scan", ".", "--rebuild", "--json"]);
         assert_eq!(rebuilt.status.code(), Some(0), "{}", stderr_of(&rebuilt));
@@ -136,19 +141,8 @@ fn committed_stores_of_older_formats_are_refused_with_the_way_out() {
         let root = temp.path().join("collection");
         copy_all(&fixture_of(version), &root);
         let sidecars = sidecar_snapshot(&root);
-        for args in [&["scan", "."][..], &["tags"], &["find", "harbour"]] {
-            let out = tagweave(&root, args);
-            assert_eq!(out.status.code(), Some(1), "{args:?}");
-            let message = stderr_of(&out);
-            assert!(
-                message.contains(&format!(
-                    "was written in format version {version}, this tagweave reads version \
-                     {FORMAT_VERSION}; rebuild it from the pictures and sidecars with \
-                     `tagweave scan FOLDER --rebuild`"
-                )),
-                "{args:?}: {message}"
-            );
-        }
+        let commands: [&[&str]; 3] = [&["scan", "."], &["tags"], &["find", "harbour"]];
+        refused_with_the_way_out(&root, version, &commands, "older");
         let rebuilt = tagweave(&root, &["scan", ".", "--rebuild", "--json"]);
         assert_eq!(rebuilt.status.code(), Some(0), "{}", stderr_of(&rebuilt));
         assert_eq!(json(&rebuilt)["items"], 3);
