@@ -1076,3 +1076,63 @@ fn to_tag_works_before_any_tag_or_training() {
     let text = stdout_of(&tagweave(temp.path(), &["to-tag", "--count", "1"]));
     assert!(text.contains("no trained model yet"), "{text}");
 }
+
+/// A scan cut short leaves a picture's record without its features: questions about it say
+/// to scan again, and lists of pictures go on without it.
+#[test]
+fn a_picture_without_features_is_named_and_left_out_of_lists() {
+    let _serial = one_at_a_time();
+    let copy = prepared_copy();
+    let folder = copy.path();
+    let rel = "1950s/not-yet-described.jpg";
+    {
+        let store = tagweave_store::Store::open(&folder.join(".tagweave")).unwrap();
+        let untagged = store
+            .items()
+            .unwrap()
+            .into_iter()
+            .find(|i| i.tags.is_empty())
+            .expect("the demo has untagged pictures");
+        std::fs::copy(folder.join(&untagged.rel_path), folder.join(rel)).unwrap();
+        let record = tagweave_collection::ItemRecord {
+            id: tagweave_collection::item_id(rel),
+            rel_path: rel.to_string(),
+            ..untagged
+        };
+        store.update_items(&[record], &[]).unwrap();
+    }
+    let asked = tagweave(folder, &["suggest", rel, "--json"]);
+    let said = format!("{}{}", stdout_of(&asked), stderr_of(&asked));
+    assert!(said.contains("has no features yet"), "{said}");
+    assert!(said.contains("tagweave scan"), "{said}");
+    let listed = succeeded(&tagweave(folder, &["suggest", "--untagged", "--json"]));
+    let pictures = listed["pictures"].as_array().unwrap();
+    assert!(!pictures.is_empty());
+    assert!(pictures.iter().all(|p| p["picture"] != rel), "{listed}");
+}
+
+/// The review page holds every picture's features (it lets the store go); the commands
+/// read them from the store when asked. Both must give the same answers.
+#[test]
+fn features_held_or_read_when_asked_give_the_same_answers() {
+    let _serial = one_at_a_time();
+    let store = tagweave_store::Store::open(&prepared().folder.join(".tagweave")).unwrap();
+    let read = tagweave_query::Queries::open(&store).unwrap();
+    let held = tagweave_query::Queries::open_to_keep(&store).unwrap();
+    let rows: Vec<usize> = (0..read.items().len()).collect();
+    assert_eq!(
+        read.suggest_rows(&rows).unwrap(),
+        held.suggest_rows(&rows).unwrap()
+    );
+    assert_eq!(
+        read.neighbour_shares(&rows).unwrap(),
+        held.neighbour_shares(&rows).unwrap()
+    );
+    let (a, b) = (read.audit().unwrap(), held.audit().unwrap());
+    assert_eq!(a.queue.len(), b.queue.len());
+    assert!(a
+        .queue
+        .iter()
+        .zip(&b.queue)
+        .all(|(x, y)| x.picture == y.picture));
+}

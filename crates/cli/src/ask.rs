@@ -273,14 +273,17 @@ struct Unjudged {
 pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
     let (store, queries) = open(&args.store)?;
     let mut answers = Vec::new();
-    let listed: Vec<usize> = (0..queries.items().len())
-        .filter(|&i| {
-            let tagged = !queries.items()[i].tags.is_empty();
-            (args.untagged && !tagged) || (args.partly_tagged && tagged)
-        })
-        .collect();
+    let mut listed = Vec::new();
+    for i in 0..queries.items().len() {
+        let tagged = !queries.items()[i].tags.is_empty();
+        if ((args.untagged && !tagged) || (args.partly_tagged && tagged))
+            && queries.is_described(i)?
+        {
+            listed.push(i);
+        }
+    }
     let probabilities = queries.suggest_rows(&listed)?;
-    let familiarity = queries.familiarity_of_rows(&listed);
+    let familiarity = queries.familiarity_of_rows(&listed)?;
     for (r, &i) in listed.iter().enumerate() {
         answers.push(answer(
             &queries,
@@ -364,7 +367,7 @@ fn judge(queries: &Queries, path: &Path) -> anyhow::Result<(Option<usize>, Vec<f
         Some(row) => (
             Some(row),
             queries.suggest_rows(&[row])?.row(0).to_vec(),
-            queries.familiarity_of_rows(&[row])[0],
+            queries.familiarity_of_rows(&[row])?[0],
         ),
         None => {
             let (probabilities, familiarity) = queries.judge_file(path)?;

@@ -201,6 +201,13 @@ pub fn print_summary(report: &TrainReport, curve_path: &std::path::Path) {
         "Trained on {} tagged pictures ({} tags) in {:.1} s; {} untagged pictures coded too",
         report.pictures, report.tags, report.seconds, report.untagged
     );
+    if let Some(all) = report.sampled_from {
+        println!(
+            "  sample      {} of the {all} tagged pictures, chosen at random (seeded): training \
+             time grows with the pictures; every tagged picture still counts when suggesting",
+            report.pictures
+        );
+    }
     if report.accepted_suggestions > 0 {
         println!(
             "  {} of the tags learned from were suggestions a person accepted \

@@ -4,6 +4,8 @@
 use std::time::Instant;
 
 use ndarray::{Array2, ArrayView2, Axis};
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::ItemRecord;
@@ -21,6 +23,13 @@ use crate::{IndexError, BATCH};
 
 /// Pictures coded per store write.
 const CODE_BATCH: usize = 256;
+
+/// Most tagged pictures the model learns from; above this a seeded random sample is taken
+/// (and the report says so). Training time grows with the pictures: 10,000 took 19 min on
+/// 2 cores (BENCHMARKS.md, "Many pictures"), so 25,000 keeps a large archive's training
+/// within the hour. Every tagged picture still counts for the similar-pictures part of the
+/// suggestions, which reads them when questions are asked.
+pub const MOST_TRAINING_PICTURES: usize = 25_000;
 
 /// Options of one `train` run over a store: the seed of every random choice and the
 /// joint model's own options.
@@ -68,6 +77,9 @@ pub struct TrainReport {
     pub without_variants: usize,
     /// Pictures without tags (coded, not learned from).
     pub untagged: usize,
+    /// Tagged pictures there were when more than [`MOST_TRAINING_PICTURES`]: the model
+    /// learned from a sample of them.
+    pub sampled_from: Option<usize>,
     pub tags: usize,
     /// Tags learned from that were suggestions a person accepted (0 with
     /// `person_tags_only`); the rest a person wrote.
@@ -100,7 +112,7 @@ pub fn train(
     progress: &mut dyn FnMut(TrainProgress),
 ) -> Result<TrainReport, IndexError> {
     let started = Instant::now();
-    let mut table = FeatureTable::load(store)?;
+    let mut table = FeatureTable::load_where(store, |item| !item.tags.is_empty())?;
     if options.person_tags_only {
         for item in &mut table.items {
             item.tags = item.person_tags();
@@ -120,6 +132,11 @@ pub fn train(
         });
     }
     let columns = TagColumns::from_items(tagged.iter().copied());
+    let tagged_in_all = tagged.len();
+    let sampled_from = (tagged_in_all > MOST_TRAINING_PICTURES).then_some(tagged_in_all);
+    if sampled_from.is_some() {
+        table = sample_of_tagged(table, MOST_TRAINING_PICTURES, options.seed);
+    }
     let tagged_features: Vec<usize> = (0..table.items.len())
         .filter(|&i| !table.items[i].tags.is_empty())
         .collect();
@@ -170,7 +187,8 @@ pub fn train(
     Ok(TrainReport {
         pictures: data.rows.len(),
         without_variants,
-        untagged: table.items.len() - data.rows.len(),
+        untagged: store.item_count().saturating_sub(tagged_in_all),
+        sampled_from,
         accepted_suggestions,
         tags: trained.vocabulary.len(),
         layers: [m.image.n_hidden(), m.tags.n_hidden(), m.shared.n_hidden()],
@@ -248,6 +266,23 @@ pub fn variant_features(
     Ok((variants, failed))
 }
 
+/// `most` of the table's tagged rows, chosen at random (seeded), in their order.
+fn sample_of_tagged(table: FeatureTable, most: usize, seed: u64) -> FeatureTable {
+    let tagged: Vec<usize> = (0..table.items.len())
+        .filter(|&i| !table.items[i].tags.is_empty())
+        .collect();
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut keep: Vec<usize> = rand::seq::index::sample(&mut rng, tagged.len(), most)
+        .into_iter()
+        .map(|j| tagged[j])
+        .collect();
+    keep.sort_unstable();
+    FeatureTable {
+        features: table.features.select(Axis(0), &keep),
+        items: keep.iter().map(|&i| table.items[i].clone()).collect(),
+    }
+}
+
 /// The store's model; `None` before the first `tagweave train`.
 pub fn load_model(store: &Store) -> Result<Option<TrainedModel>, IndexError> {
     Ok(store.model(MODEL_FORMAT, |m: &TrainedModel| m.format)?)
@@ -259,32 +294,44 @@ pub fn code_missing(
     trained: &TrainedModel,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Result<usize, IndexError> {
+    let codes = store.vector_reader(CODES)?;
+    let features = store.vector_reader(FEATURES)?;
     let mut missing = Vec::new();
     for item in store.items()? {
-        if store.vector(CODES, &item.id)?.is_none() {
-            if let Some(row) = store.vector(FEATURES, &item.id)? {
-                missing.push((item.id, row));
-            }
+        if codes.get_packed(&item.id)?.is_none() {
+            missing.push(item.id);
         }
     }
     let total = missing.len();
-    let mut done = 0;
+    let (mut done, mut coded) = (0, 0);
+    // Features are read a batch at a time: a million pictures' would not fit as `f32`.
     for chunk in missing.chunks(CODE_BATCH) {
-        let width = chunk[0].1.len();
-        let flat: Vec<f32> = chunk.iter().flat_map(|(_, r)| r.iter().copied()).collect();
-        let raw = Array2::from_shape_vec((chunk.len(), width), flat)
-            .map_err(|e| StoreError::Inconsistent(e.to_string()))?;
-        let codes = trained.codes(raw.view())?;
-        let rows: Vec<(String, Vec<f32>)> = chunk
-            .iter()
-            .zip(codes.outer_iter())
-            .map(|((id, _), code)| (id.clone(), code.to_vec()))
-            .collect();
-        store.put_vectors(CODES, &rows)?;
+        let mut ids = Vec::with_capacity(chunk.len());
+        let mut flat = Vec::new();
+        let mut width = 0;
+        for id in chunk {
+            if let Some(row) = features.get(id)? {
+                width = row.len();
+                flat.extend_from_slice(&row);
+                ids.push(id);
+            }
+        }
+        if !ids.is_empty() {
+            let raw = Array2::from_shape_vec((ids.len(), width), flat)
+                .map_err(|e| StoreError::Inconsistent(e.to_string()))?;
+            let batch_codes = trained.codes(raw.view())?;
+            let rows: Vec<(String, Vec<f32>)> = ids
+                .iter()
+                .zip(batch_codes.outer_iter())
+                .map(|(&id, code)| (id.clone(), code.to_vec()))
+                .collect();
+            store.put_vectors(CODES, &rows)?;
+            coded += rows.len();
+        }
         done += chunk.len();
         progress(done, total);
     }
-    Ok(total)
+    Ok(coded)
 }
 
 #[cfg(test)]

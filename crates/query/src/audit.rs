@@ -9,7 +9,7 @@
 //! it is and once with one tag it does not carry added at random, and the weight that
 //! best ranks the altered copies first wins. People's tags are never the test here.
 
-use ndarray::ArrayView2;
+use ndarray::{s, Array2, ArrayView2};
 use rand::seq::IndexedRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -98,8 +98,18 @@ impl Queries {
                 queue: Vec::new(),
             });
         }
-        let probabilities = self.suggest_rows(&rows)?;
-        let shares = self.neighbour_shares(&rows)?;
+        // A batch at a time: only the answers (pictures × tags) are held for every picture.
+        let mut probabilities = Array2::zeros((rows.len(), self.columns.len()));
+        let mut shares = Array2::zeros((rows.len(), self.columns.len()));
+        for (b, batch) in rows.chunks(crate::READ_BATCH).enumerate() {
+            let at = b * crate::READ_BATCH..b * crate::READ_BATCH + batch.len();
+            probabilities
+                .slice_mut(s![at.clone(), ..])
+                .assign(&self.suggest_rows(batch)?);
+            shares
+                .slice_mut(s![at, ..])
+                .assign(&self.neighbour_shares(batch)?);
+        }
         let lists: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
         let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());
         let mix = evidence.choose_mix();

@@ -20,7 +20,7 @@ use std::sync::OnceLock;
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 use serde::Serialize;
 
-use crate::Queries;
+use crate::{Queries, Result};
 
 /// Share of the tagged pictures whose similarity to their most similar other tagged
 /// picture counts as usual: a picture less similar to every tagged picture than all but
@@ -119,9 +119,9 @@ fn spread(rows: &[usize], most: usize) -> Vec<usize> {
 }
 
 impl Memory {
-    fn build(scaled: ArrayView2<f32>, tagged: &[usize]) -> Memory {
-        let rows = spread(tagged, MEMORY);
-        let unit = unit_rows(scaled.select(Axis(0), &rows).view());
+    /// From remembered item rows and their scaled features (same order).
+    fn build(rows: Vec<usize>, scaled: ArrayView2<f32>) -> Memory {
+        let unit = unit_rows(scaled);
         let probes: Vec<usize> = spread(&(0..rows.len()).collect::<Vec<_>>(), PROBES);
         let similarities = unit.select(Axis(0), &probes).dot(&unit.t());
         let skip: Vec<Option<usize>> = probes.iter().map(|&p| Some(p)).collect();
@@ -145,27 +145,31 @@ impl Memory {
 }
 
 impl Queries {
-    fn memory(&self) -> &Memory {
-        self.memory.get_or_init(|| {
-            let tagged: Vec<usize> = (0..self.items.len())
-                .filter(|&i| !self.items[i].tags.is_empty())
-                .collect();
-            Memory::build(self.scaled.view(), &tagged)
-        })
+    fn memory(&self) -> Result<&Memory> {
+        if let Some(memory) = self.memory.get() {
+            return Ok(memory);
+        }
+        let tagged: Vec<usize> = (0..self.items.len())
+            .filter(|&i| !self.items[i].tags.is_empty())
+            .collect();
+        let (rows, scaled) = self.read_scaled(&spread(&tagged, MEMORY))?;
+        Ok(self
+            .memory
+            .get_or_init(|| Memory::build(rows, scaled.view())))
     }
 
     /// How similar each indexed picture (rows) is to the tagged pictures, itself left out.
-    pub fn familiarity_of_rows(&self, rows: &[usize]) -> Vec<Familiarity> {
-        let x = self.scaled.select(Axis(0), rows);
+    pub fn familiarity_of_rows(&self, rows: &[usize]) -> Result<Vec<Familiarity>> {
+        let x = self.scaled_rows(rows)?;
         let items: Vec<Option<usize>> = rows.iter().map(|&r| Some(r)).collect();
-        self.memory().judge(x.view(), &items)
+        Ok(self.memory()?.judge(x.view(), &items))
     }
 
     /// How similar a picture outside the index (its scaled features) is to the tagged
     /// pictures.
-    pub(crate) fn familiarity_of_features(&self, x: ArrayView1<f32>) -> Familiarity {
+    pub(crate) fn familiarity_of_features(&self, x: ArrayView1<f32>) -> Result<Familiarity> {
         let x: Array2<f32> = Array1::from(x.to_vec()).insert_axis(Axis(0));
-        self.memory().judge(x.view(), &[None])[0]
+        Ok(self.memory()?.judge(x.view(), &[None])[0])
     }
 }
 
@@ -220,7 +224,7 @@ mod tests {
             [0.0, 0.0, 1.0, 0.0],
             [0.0, 0.1, 0.99, 0.0],
         ];
-        let memory = Memory::build(scaled.view(), &[0, 1, 2, 3, 4, 5]);
+        let memory = Memory::build(vec![0, 1, 2, 3, 4, 5], scaled.view());
         let usual = memory.usual.unwrap();
         assert!(usual > 0.99 && usual < 1.0, "{usual}");
         let outside = array![[0.0f32, 0.0, 0.0, 3.0], [2.0, 0.0, 0.0, 0.0]];

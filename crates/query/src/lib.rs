@@ -9,10 +9,12 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use ndarray::{Array1, Array2, Axis};
+use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
 use tagweave_store::{
-    CodeIndex, FeatureTable, SearchMode, Store, StoreError, CODES, EXTRACTOR_BLOB,
+    CodeIndex, PackedVector, SearchMode, Store, StoreError, VectorReader, CODES, EXTRACTOR_BLOB,
+    FEATURES,
 };
 use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_FORMAT};
 use tagweave_vision::{FeatureExtractor, VisionError};
@@ -45,6 +47,10 @@ pub enum QueryError {
          picture file to judge on its own"
     )]
     NotIndexed { path: PathBuf },
+    #[error(
+        "{path} has no features yet (its scan was cut short); run `tagweave scan FOLDER` again"
+    )]
+    NotDescribed { path: String },
     #[error(transparent)]
     Store(#[from] StoreError),
     #[error(transparent)]
@@ -112,14 +118,29 @@ impl Default for Ranking {
     }
 }
 
+/// Tagged pictures read from the store at once when the kNN part is built: a batch's
+/// features as `f32` (1,024 × 3,700 values: 15 MB) before they are kept as bytes.
+const READ_BATCH: usize = 1024;
+
+/// Where a question reads a picture's features.
+enum FeatureSource {
+    /// From the open store, a picture at a time: memory follows what is asked, not the
+    /// size of the collection (the commands).
+    Store(VectorReader),
+    /// Held as the store keeps them, by item row (the review page, which lets the store
+    /// go while it runs): 1.25 bytes a value.
+    Held(Vec<Option<PackedVector>>),
+}
+
 /// A trained store opened for questions.
 pub struct Queries {
     root: PathBuf,
     trained: TrainedModel,
-    /// Every picture with features, by relative path.
+    /// Every indexed picture, by relative path.
     items: Vec<ItemRecord>,
-    /// Their features, scaled for the model (same row order).
-    scaled: Array2<f32>,
+    features: FeatureSource,
+    /// The store folder (named when a held vector turns out damaged).
+    store_dir: PathBuf,
     codes: CodeIndex,
     /// Item row of each code-index row (the index is in id order, items in path order);
     /// built once at open, not per query: at a million pictures it is a million lookups.
@@ -134,20 +155,41 @@ pub struct Queries {
 }
 
 impl Queries {
+    /// Opens a trained store for questions that read features from it when asked: keep
+    /// `store` open while asking.
     pub fn open(store: &Store) -> Result<Queries> {
+        let reader = store.vector_reader(FEATURES)?;
+        Queries::open_with(store, FeatureSource::Store(reader))
+    }
+
+    /// Opens a trained store for questions asked after it is closed: every picture's
+    /// features are held in memory, packed (the review page).
+    pub fn open_to_keep(store: &Store) -> Result<Queries> {
+        let reader = store.vector_reader(FEATURES)?;
+        let mut items = store.items()?;
+        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+        let held = items
+            .par_iter()
+            .map(|item| reader.get_packed(&item.id))
+            .collect::<std::result::Result<Vec<_>, _>>()?;
+        Queries::open_sorted(store, items, FeatureSource::Held(held))
+    }
+
+    fn open_with(store: &Store, features: FeatureSource) -> Result<Queries> {
+        let mut items = store.items()?;
+        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+        Queries::open_sorted(store, items, features)
+    }
+
+    fn open_sorted(
+        store: &Store,
+        items: Vec<ItemRecord>,
+        features: FeatureSource,
+    ) -> Result<Queries> {
         let trained = store
             .model(MODEL_FORMAT, |m: &TrainedModel| m.format)?
             .ok_or(QueryError::NotTrained)?;
-        let table = FeatureTable::load(store)?;
-        let scaled = trained.scale(table.features.view())?;
-        let (neighbours, neighbour_rows) =
-            trained.neighbours(&table.tags(), &table.content_keys(), table.features.view());
-        let mut neighbour_row = vec![None; table.items.len()];
-        for (j, &i) in neighbour_rows.iter().enumerate() {
-            neighbour_row[i] = Some(j);
-        }
-        let row_of_id: HashMap<&str, usize> = table
-            .items
+        let row_of_id: HashMap<&str, usize> = items
             .iter()
             .enumerate()
             .map(|(i, item)| (item.id.as_str(), i))
@@ -156,18 +198,101 @@ impl Queries {
         let item_of_code = (0..codes.len())
             .map(|r| row_of_id.get(codes.id(r)).copied())
             .collect();
-        Ok(Queries {
+        let mut queries = Queries {
             root: store.collection_root().to_path_buf(),
             extractor: store.blob(EXTRACTOR_BLOB)?,
-            items: table.items,
-            scaled,
+            store_dir: store.dir().to_path_buf(),
+            items,
+            features,
             codes,
             item_of_code,
-            neighbours,
-            neighbour_row,
+            neighbours: trained.empty_neighbours(),
+            neighbour_row: Vec::new(),
             columns: trained.columns(),
             trained,
             memory: familiar::MemoryCache::new(),
+        };
+        queries.gather_neighbours()?;
+        Ok(queries)
+    }
+
+    /// Gives the kNN part every described picture carrying a tag the model knows, a batch
+    /// at a time.
+    fn gather_neighbours(&mut self) -> Result<()> {
+        self.neighbour_row = vec![None; self.items.len()];
+        let tagged: Vec<usize> = (0..self.items.len())
+            .filter(|&i| !self.columns.encode(&self.items[i].tags).is_empty())
+            .collect();
+        for batch in tagged.chunks(READ_BATCH) {
+            let (described, x) = self.read_scaled(batch)?;
+            let tags: Vec<Vec<usize>> = described
+                .iter()
+                .map(|&r| self.columns.encode(&self.items[r].tags))
+                .collect();
+            let first = self.neighbours.train_len();
+            for (j, &r) in described.iter().enumerate() {
+                self.neighbour_row[r] = Some(first + j);
+            }
+            self.neighbours.add_train_pictures(x.view(), &tags);
+        }
+        Ok(())
+    }
+
+    /// The features of item rows, scaled for the model, of those that have features (the
+    /// rows returned, in their order).
+    fn read_scaled(&self, rows: &[usize]) -> Result<(Vec<usize>, Array2<f32>)> {
+        let read: Vec<Option<Vec<f32>>> = rows
+            .par_iter()
+            .map(|&r| self.raw_features(r))
+            .collect::<Result<_>>()?;
+        let width = self.trained.feature_width();
+        let described: Vec<usize> = rows
+            .iter()
+            .zip(&read)
+            .filter(|(_, f)| f.is_some())
+            .map(|(&r, _)| r)
+            .collect();
+        let mut raw = Array2::zeros((described.len(), width));
+        for (mut row, values) in raw.outer_iter_mut().zip(read.into_iter().flatten()) {
+            if values.len() != width {
+                return Err(SuggestError::FeatureWidth {
+                    got: values.len(),
+                    expected: width,
+                }
+                .into());
+            }
+            row.assign(&ndarray::ArrayView1::from(&values));
+        }
+        Ok((described, self.trained.scale(raw.view())?))
+    }
+
+    /// The features of item rows, scaled for the model; an error names a picture without.
+    fn scaled_rows(&self, rows: &[usize]) -> Result<Array2<f32>> {
+        let (described, x) = self.read_scaled(rows)?;
+        if described.len() < rows.len() {
+            let missing = rows.iter().find(|r| !described.contains(r)).copied();
+            let path = missing.map_or_else(String::new, |r| self.items[r].rel_path.clone());
+            return Err(QueryError::NotDescribed { path });
+        }
+        Ok(x)
+    }
+
+    /// Whether an indexed picture has features (a cut-short scan leaves some without).
+    pub fn is_described(&self, row: usize) -> Result<bool> {
+        Ok(match &self.features {
+            FeatureSource::Store(reader) => reader.get_packed(&self.items[row].id)?.is_some(),
+            FeatureSource::Held(held) => held[row].is_some(),
+        })
+    }
+
+    fn raw_features(&self, row: usize) -> Result<Option<Vec<f32>>> {
+        let id = &self.items[row].id;
+        Ok(match &self.features {
+            FeatureSource::Store(reader) => reader.get(id)?,
+            FeatureSource::Held(held) => held[row]
+                .as_ref()
+                .map(|packed| packed.values(&self.store_dir, id))
+                .transpose()?,
         })
     }
 
@@ -189,8 +314,14 @@ impl Queries {
             _ => None,
         }
         .unwrap_or_else(|| path.to_path_buf());
-        let rel = rel.to_string_lossy().replace('\\', "/");
-        self.items.iter().position(|item| item.rel_path == rel)
+        self.row_of_rel_path(&rel.to_string_lossy().replace('\\', "/"))
+    }
+
+    /// The row of a picture given by its path relative to the collection root.
+    pub fn row_of_rel_path(&self, rel: &str) -> Option<usize> {
+        self.items
+            .binary_search_by(|item| item.rel_path.as_str().cmp(rel))
+            .ok()
     }
 
     /// Tag probabilities for indexed pictures (rows). A picture that carries tags the
@@ -214,7 +345,7 @@ impl Queries {
                 continue;
             }
             let picked: Vec<usize> = positions.iter().map(|&i| rows[i]).collect();
-            let x = self.scaled.select(Axis(0), &picked);
+            let x = self.scaled_rows(&picked)?;
             let exclude: Vec<Option<usize>> =
                 picked.iter().map(|&r| self.neighbour_row[r]).collect();
             let p = if with_tags {
@@ -258,7 +389,7 @@ impl Queries {
     /// For indexed pictures (rows): the share of their most similar tagged pictures
     /// (never themselves) that carry each tag.
     pub fn neighbour_shares(&self, rows: &[usize]) -> Result<Array2<f32>> {
-        let x = self.scaled.select(Axis(0), rows);
+        let x = self.scaled_rows(rows)?;
         let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
         Ok(self.neighbours.shares_excluding(x.view(), &exclude)?)
     }
@@ -281,7 +412,7 @@ impl Queries {
             .trained
             .suggester
             .suggest(x.view(), &self.neighbours, &[])?;
-        let familiarity = self.familiarity_of_features(x.row(0));
+        let familiarity = self.familiarity_of_features(x.row(0))?;
 
         Ok((p.row(0).to_vec(), familiarity))
     }
@@ -512,7 +643,7 @@ impl Queries {
         let code = self
             .trained
             .suggester
-            .codes(self.scaled.select(Axis(0), &[row]).view())?;
+            .codes(self.scaled_rows(&[row])?.view())?;
         Ok(code.row(0).to_vec())
     }
 

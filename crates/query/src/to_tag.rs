@@ -2,13 +2,11 @@
 //! for the ways of choosing and their sources). Works before any training too: then the
 //! list is the most varied untagged pictures, chosen on the features alone.
 
-use std::borrow::Cow;
 use std::collections::HashSet;
 
 use ndarray::Array2;
 
 use serde::Serialize;
-use tagweave_collection::ItemRecord;
 use tagweave_store::{FeatureTable, Store};
 use tagweave_suggest::{
     choose_pictures_to_tag, unit_rows, PickReason, Standardiser, TaggingPool, TaggingStrategy,
@@ -61,8 +59,8 @@ pub fn pictures_to_tag(
     strategy: TaggingStrategy,
     count: usize,
 ) -> Result<ToTagList> {
-    // Questions need the opened model, which already holds every picture's scaled features;
-    // farthest first alone only needs the features, scaled as the model would if there is one.
+    // Questions need the opened model; farthest first alone only needs the features,
+    // scaled as the model would if there is one.
     let queries = if strategy.needs_scores() {
         match Queries::open(store) {
             Ok(queries) => Some(queries),
@@ -77,18 +75,13 @@ pub fn pictures_to_tag(
         None => store.model(MODEL_FORMAT, |m: &TrainedModel| m.format)?,
     };
     let trained = queries.is_some() || model.is_some();
-    let table;
-    let (items, scaled): (&[ItemRecord], Cow<Array2<f32>>) = match &queries {
-        Some(q) => (&q.items, Cow::Borrowed(&q.scaled)),
-        None => {
-            table = FeatureTable::load(store)?;
-            let scaled = match &model {
-                Some(model) => model.scale(table.features.view())?,
-                None => Standardiser::fit(table.features.view()).apply(table.features.view()),
-            };
-            (&table.items, Cow::Owned(scaled))
-        }
+    let table = FeatureTable::load(store)?;
+    let scaled = match (&queries, &model) {
+        (Some(q), _) => q.trained.scale(table.features.view())?,
+        (None, Some(model)) => model.scale(table.features.view())?,
+        (None, None) => Standardiser::fit(table.features.view()).apply(table.features.view()),
     };
+    let items = &table.items;
     let tagged: Vec<bool> = items.iter().map(|i| !i.tags.is_empty()).collect();
     let tagged_contents: HashSet<&str> = items
         .iter()
@@ -104,8 +97,12 @@ pub fn pictures_to_tag(
         Some(q) => {
             let rows: Vec<usize> = (0..items.len()).filter(|&r| !tagged[r]).collect();
             let mut all = Array2::zeros((items.len(), q.vocabulary().len()));
-            if !rows.is_empty() {
-                let some = q.suggest_rows(&rows)?;
+            let asked: Vec<usize> = rows
+                .iter()
+                .filter_map(|&r| q.row_of_rel_path(&items[r].rel_path))
+                .collect();
+            if !asked.is_empty() {
+                let some = q.suggest_rows(&asked)?;
                 for (&r, row) in rows.iter().zip(some.outer_iter()) {
                     all.row_mut(r).assign(&row);
                 }

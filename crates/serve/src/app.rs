@@ -646,8 +646,7 @@ impl App {
             unlike_collection: self
                 .queries
                 .familiarity_of_rows(&[row])
-                .first()
-                .is_some_and(|f| f.unlike_collection),
+                .is_ok_and(|f| f.first().is_some_and(|f| f.unlike_collection)),
             vocabulary,
             token: self.writable_token(),
             changed: notes.is_some_and(|n| !n.added.is_empty() || !n.removed.is_empty()),

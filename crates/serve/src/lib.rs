@@ -122,7 +122,7 @@ impl ReviewServer {
     /// commands work beside the page; each decision written takes it again for a moment)
     /// and binds 127.0.0.1 on the chosen port.
     pub fn start(store: Store, options: &ServeOptions) -> Result<ReviewServer, ServeError> {
-        let queries = Queries::open(&store)?;
+        let queries = Queries::open_to_keep(&store)?;
         let wanted = SocketAddr::from((Ipv4Addr::LOCALHOST, options.port));
         let bind_error = |source| ServeError::Bind {
             address: wanted,

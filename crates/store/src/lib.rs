@@ -8,6 +8,7 @@ mod error;
 mod layout;
 mod lock;
 mod packing;
+mod reader;
 mod search;
 mod table;
 
@@ -19,6 +20,7 @@ use tagweave_collection::{ItemRecord, Vocabulary};
 pub use error::StoreError;
 pub use layout::{CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
 use lock::StoreLock;
+pub use reader::{PackedVector, VectorReader};
 pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
 pub use table::FeatureTable;
 
@@ -408,16 +410,15 @@ impl Store {
 
     /// One item's vector of a kind; `None` when it has none yet.
     pub fn vector(&self, kind: &str, id: &str) -> Result<Option<Vec<f32>>> {
-        let Some(bytes) = self
-            .vector_tree(kind)?
-            .get(id.as_bytes())
-            .map_err(|e| self.db_error(e))?
-        else {
-            return Ok(None);
-        };
-        packing::unpack(&bytes)
-            .map(Some)
-            .map_err(|problem| self.corrupt(id, problem))
+        self.vector_reader(kind)?.get(id)
+    }
+
+    /// The vectors of `kind`, to read a few at a time while this store is open.
+    pub fn vector_reader(&self, kind: &str) -> Result<VectorReader> {
+        Ok(VectorReader {
+            tree: self.vector_tree(kind)?,
+            dir: self.dir.clone(),
+        })
     }
 
     /// Whether the store holds exactly `values` as the vector of `kind` for `id`, as it

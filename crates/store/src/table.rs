@@ -14,7 +14,14 @@ pub struct FeatureTable {
 
 impl FeatureTable {
     pub fn load(store: &Store) -> Result<FeatureTable> {
+        FeatureTable::load_where(store, |_| true)
+    }
+
+    /// Like [`Self::load`], for the items `keep` accepts only (training reads the tagged
+    /// pictures only: at a million pictures, all of them would not fit in memory as `f32`).
+    pub fn load_where(store: &Store, keep: impl Fn(&ItemRecord) -> bool) -> Result<FeatureTable> {
         let mut items = store.items()?;
+        items.retain(|item| keep(item));
         items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
         let mut kept = Vec::with_capacity(items.len());
         let mut values = Vec::new();

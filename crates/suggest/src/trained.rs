@@ -167,31 +167,21 @@ impl TrainedModel {
         Ok(self.standardiser.apply(raw))
     }
 
+    /// Values in a raw feature row this model reads.
+    pub fn feature_width(&self) -> usize {
+        self.standardiser.width()
+    }
+
     /// Codes (shared-layer probabilities) of raw feature rows.
     pub fn codes(&self, raw: ArrayView2<f32>) -> Result<Array2<f32>, SuggestError> {
         self.suggester.codes(self.scale(raw)?.view())
     }
 
-    /// The kNN part of the suggestions, on the collection's tagged pictures as they are
-    /// now (tags accepted since training count at once), and the row of each of those
-    /// pictures among the given ones (arguments as for [`TrainingData::tagged`]).
-    pub fn neighbours(
-        &self,
-        tags: &[&[String]],
-        content_keys: &[&str],
-        features: ArrayView2<f32>,
-    ) -> (KnnScorer, Vec<usize>) {
-        let data = TrainingData::tagged(
-            tags,
-            content_keys,
-            features,
-            &self.columns(),
-            &self.standardiser,
-        );
-        let knn = self
-            .suggester
-            .neighbours(&data.train_set(self.vocabulary.len(), 0));
-        (knn, data.rows)
+    /// The kNN part of the suggestions with no pictures yet: the caller adds the
+    /// collection's tagged pictures as they are now, a batch at a time (tags accepted since
+    /// training count at once).
+    pub fn empty_neighbours(&self) -> KnnScorer {
+        KnnScorer::empty(self.suggester.k, self.vocabulary.len())
     }
 }
 
