@@ -7,6 +7,7 @@
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
 
 use ndarray::{Array1, Array2, Axis};
 use rayon::prelude::*;
@@ -132,6 +133,14 @@ enum FeatureSource {
     Held(Vec<Option<PackedVector>>),
 }
 
+/// Every picture's code, searchable, and the item of each.
+struct CodeSearch {
+    codes: CodeIndex,
+    /// Item row of each code-index row (the index is in id order, items in path order);
+    /// built once, not per query: at a million pictures it is a million lookups.
+    item_of_code: Vec<Option<usize>>,
+}
+
 /// A trained store opened for questions.
 pub struct Queries {
     root: PathBuf,
@@ -141,10 +150,10 @@ pub struct Queries {
     features: FeatureSource,
     /// The store folder (named when a held vector turns out damaged).
     store_dir: PathBuf,
-    codes: CodeIndex,
-    /// Item row of each code-index row (the index is in id order, items in path order);
-    /// built once at open, not per query: at a million pictures it is a million lookups.
-    item_of_code: Vec<Option<usize>>,
+    /// The code search, loaded when first asked (suggestions and the audit never need it).
+    search: OnceLock<CodeSearch>,
+    /// Reads the codes for `search` (the commands; the page loads the search at open).
+    code_reader: Option<VectorReader>,
     neighbours: KnnScorer,
     /// For each item row, its row among the neighbours' pictures (tagged ones only).
     neighbour_row: Vec<Option<usize>>,
@@ -189,31 +198,49 @@ impl Queries {
         let trained = store
             .model(MODEL_FORMAT, |m: &TrainedModel| m.format)?
             .ok_or(QueryError::NotTrained)?;
-        let row_of_id: HashMap<&str, usize> = items
-            .iter()
-            .enumerate()
-            .map(|(i, item)| (item.id.as_str(), i))
-            .collect();
-        let codes = CodeIndex::load(store, CODES, &trained.hash_thresholds)?;
-        let item_of_code = (0..codes.len())
-            .map(|r| row_of_id.get(codes.id(r)).copied())
-            .collect();
+        let keeps_features = matches!(features, FeatureSource::Held(_));
         let mut queries = Queries {
             root: store.collection_root().to_path_buf(),
             extractor: store.blob(EXTRACTOR_BLOB)?,
             store_dir: store.dir().to_path_buf(),
             items,
             features,
-            codes,
-            item_of_code,
+            search: OnceLock::new(),
+            code_reader: Some(store.vector_reader(CODES)?),
             neighbours: trained.empty_neighbours(),
             neighbour_row: Vec::new(),
             columns: trained.columns(),
             trained,
             memory: familiar::MemoryCache::new(),
         };
+        if keeps_features {
+            // Outlives the store: load now, and keep no reader of it.
+            queries.code_search()?;
+            queries.code_reader = None;
+        }
         queries.gather_neighbours()?;
         Ok(queries)
+    }
+
+    fn code_search(&self) -> Result<&CodeSearch> {
+        if let Some(search) = self.search.get() {
+            return Ok(search);
+        }
+        let reader = self.code_reader.as_ref().ok_or(QueryError::NotTrained)?;
+        let codes = CodeIndex::load_from(reader, &self.trained.hash_thresholds)?;
+        let row_of_id: HashMap<&str, usize> = self
+            .items
+            .iter()
+            .enumerate()
+            .map(|(i, item)| (item.id.as_str(), i))
+            .collect();
+        let item_of_code = (0..codes.len())
+            .map(|r| row_of_id.get(codes.id(r)).copied())
+            .collect();
+        Ok(self.search.get_or_init(|| CodeSearch {
+            codes,
+            item_of_code,
+        }))
     }
 
     /// Gives the kNN part every described picture carrying a tag the model knows, a batch
@@ -549,7 +576,7 @@ impl Queries {
             .filter(|(&v, _)| v > 0.0)
             .map(|(_, c)| c.as_slice())
             .collect::<Vec<_>>();
-        Ok(mean_code(&chosen, self.codes.dim()))
+        Ok(mean_code(&chosen, self.trained.hash_thresholds.len()))
     }
 
     /// Pictures most likely to fit every tag: the code search picks candidates near
@@ -663,11 +690,9 @@ impl Queries {
             ..ranking
         };
         let hits = self.nearest_rows(query, wide, skip)?;
-        let rows: Vec<usize> = hits
-            .iter()
-            .filter_map(|&(r, _)| self.item_of_code[r])
-            .collect();
-        let mut found = answers(hits, &self.item_of_code, &self.items, carries);
+        let item_of_code = &self.code_search()?.item_of_code;
+        let rows: Vec<usize> = hits.iter().filter_map(|&(r, _)| item_of_code[r]).collect();
+        let mut found = answers(hits, item_of_code, &self.items, carries);
         let chance = self.chance_of(&rows, wanted, shunned)?;
         for (f, c) in found.iter_mut().zip(chance) {
             f.probability = Some(c);
@@ -689,8 +714,9 @@ impl Queries {
         } else {
             SearchMode::default()
         };
-        let item_of_code = &self.item_of_code;
-        let hits = self.codes.search_where(query, ranking.limit, mode, |r| {
+        let search = self.code_search()?;
+        let item_of_code = &search.item_of_code;
+        let hits = search.codes.search_where(query, ranking.limit, mode, |r| {
             listable(item_of_code[r], skip, ranking.untagged_only, &self.items)
         })?;
         Ok(hits

@@ -22,6 +22,19 @@ impl VectorReader {
             .transpose()
     }
 
+    /// Every vector of the kind as `(id, values)`, in id order, read as it goes.
+    pub fn iter(&self) -> impl Iterator<Item = Result<(String, Vec<f32>)>> + '_ {
+        self.tree.iter().map(move |entry| {
+            let (key, value) = entry.map_err(|source| StoreError::Database {
+                dir: self.dir.clone(),
+                source,
+            })?;
+            let id = String::from_utf8_lossy(&key).into_owned();
+            let values = PackedVector(value.as_ref().into()).values(&self.dir, &id)?;
+            Ok((id, values))
+        })
+    }
+
     /// One item's vector as the store keeps it (compact); `None` when it has none yet.
     pub fn get_packed(&self, id: &str) -> Result<Option<PackedVector>> {
         let held = self

@@ -22,7 +22,7 @@ use std::collections::BinaryHeap;
 
 use rayon::prelude::*;
 
-use crate::{Result, Store, StoreError};
+use crate::{Result, Store, StoreError, VectorReader};
 
 /// Candidates kept by the Hamming pre-filter when the caller has no better idea. On
 /// 1,000,000 synthetic 256-unit codes (`tools/code-search-bench`) recall@10 against exact
@@ -204,8 +204,13 @@ impl CodeIndex {
     /// Builds the index from every vector of `kind` in the store (in id order), streaming so
     /// the float codes are never all in memory at once.
     pub fn load(store: &Store, kind: &str, hash_thresholds: &[f32]) -> Result<CodeIndex> {
+        CodeIndex::load_from(&store.vector_reader(kind)?, hash_thresholds)
+    }
+
+    /// [`Self::load`] through a reader of the codes' kind (while its store is open).
+    pub fn load_from(codes: &VectorReader, hash_thresholds: &[f32]) -> Result<CodeIndex> {
         let mut builder = CodeIndexBuilder::new(hash_thresholds.len(), hash_thresholds)?;
-        for row in store.vectors_of_kind(kind) {
+        for row in codes.iter() {
             let (id, code) = row?;
             builder.push(&id, &code)?;
         }
