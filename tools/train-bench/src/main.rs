@@ -68,6 +68,10 @@ pub struct Row {
     pub own_gemm_gflops: f64,
     /// gflops / own_gemm_gflops: the share of a step spent in its counted products.
     pub own_ratio: f64,
+    /// The same products through the `gemm` crate on rayon's threads.
+    pub library_gemm_gflops: f64,
+    /// The same products through the `gemm` crate on one thread.
+    pub library_one_gemm_gflops: f64,
     /// Mean-field reconstruction MSE over the training rows after the last epoch.
     pub reconstruction_error: f32,
 }
@@ -112,18 +116,18 @@ fn main() -> Result<()> {
 
 fn print_table(report: &Report) {
     println!(
-        "rayon threads: {} (dot = ndarray/matrixmultiply on 1 thread; split dot = the same cut into one block per thread; own = the trainer's matmul)",
+        "rayon threads: {} (dot = ndarray/matrixmultiply on 1 thread; split dot = the same cut into one block per thread; own = the trainer's matmul; gemm = the gemm crate)",
         report.threads
     );
     println!(
-        "| case | method | batch | v×h | ms/epoch | GFLOP/epoch | GFLOP/s | dot ms/epoch | dot GFLOP/s | ratio | split dot GFLOP/s | ratio to split | own GFLOP/s | ratio to own | recon. MSE |"
+        "| case | method | batch | v×h | ms/epoch | GFLOP/epoch | GFLOP/s | dot ms/epoch | dot GFLOP/s | ratio | split dot GFLOP/s | ratio to split | own GFLOP/s | ratio to own | gemm GFLOP/s | gemm 1-thread GFLOP/s | recon. MSE |"
     );
     println!(
-        "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |"
+        "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |"
     );
     for r in &report.rows {
         println!(
-            "| {} | {} | {} | {}×{} | {:.1} | {:.2} | {:.1} | {:.1} | {:.1} | {:.2} | {:.1} | {:.2} | {:.1} | {:.2} | {:.4} |",
+            "| {} | {} | {} | {}×{} | {:.1} | {:.2} | {:.1} | {:.1} | {:.1} | {:.2} | {:.1} | {:.2} | {:.1} | {:.2} | {:.1} | {:.1} | {:.4} |",
             r.name,
             r.method,
             r.batch,
@@ -139,6 +143,8 @@ fn print_table(report: &Report) {
             r.split_ratio,
             r.own_gemm_gflops,
             r.own_ratio,
+            r.library_gemm_gflops,
+            r.library_one_gemm_gflops,
             r.reconstruction_error,
         );
     }
