@@ -2,7 +2,6 @@
 //! shapes and the joint model's picture layer.
 
 use std::hint::black_box;
-use std::time::Instant;
 
 use anyhow::{Context, Result};
 use ndarray::linalg::general_mat_mul;
@@ -14,7 +13,7 @@ use tagweave_model::{
     matmul, train, BinaryRbm, GaussianBernoulliRbm, Rbm, RbmTrainingOptions, VisibleUnits,
 };
 
-use crate::{median, Row};
+use crate::{clock_ms, median, Row};
 
 #[derive(Clone, Copy)]
 pub enum Units {
@@ -230,10 +229,11 @@ fn timed_train<V: VisibleUnits>(
     opts: &RbmTrainingOptions,
 ) -> Result<Vec<f64>> {
     let mut epoch_ms = Vec::new();
-    let mut last = Instant::now();
+    let mut last = clock_ms();
     train(rbm, data, None, opts, &mut |_| {
-        epoch_ms.push(last.elapsed().as_secs_f64() * 1e3);
-        last = Instant::now();
+        let now = clock_ms();
+        epoch_ms.push(now - last);
+        last = now;
     })?;
     Ok(epoch_ms)
 }
@@ -253,7 +253,7 @@ fn gemm_epoch(
     mul: Mul,
 ) -> f64 {
     let chains = mul(data.slice(s![..batch.min(data.nrows()), ..]), w);
-    let start = Instant::now();
+    let start = clock_ms();
     for x in data.axis_chunks_iter(Axis(0), batch) {
         let h0 = mul(x, w);
         let vk = mul(if persistent { chains.view() } else { h0.view() }, wt);
@@ -262,7 +262,7 @@ fn gemm_epoch(
         let gk = mul(vk.t(), hk.view());
         black_box((g0, gk));
     }
-    start.elapsed().as_secs_f64() * 1e3
+    clock_ms() - start
 }
 
 /// The trainer's own product ([`matmul`]: an AVX-512 kernel for small shapes where the
