@@ -15,7 +15,9 @@ mod patches;
 mod raw;
 
 pub use colour::{srgb_to_lab, ColourOptions};
-pub use decode::{load_working_image, DecodeOptions, WorkingImage};
+pub use decode::{
+    load_working_image, load_working_image_with, DecodeOptions, JpegDecoder, WorkingImage,
+};
 pub use error::VisionError;
 pub use extractor::{FeatureExtractor, FeatureOptions, Variant, TRAINING_VARIANTS};
 pub use patches::{Activation, PatchDictionary, PatchOptions};

@@ -2,7 +2,6 @@
 //! shapes and the joint model's picture layer.
 
 use std::hint::black_box;
-use std::time::Instant;
 
 use anyhow::{Context, Result};
 use ndarray::linalg::general_mat_mul;
@@ -14,7 +13,7 @@ use tagweave_model::{
     matmul, train, BinaryRbm, GaussianBernoulliRbm, Rbm, RbmTrainingOptions, VisibleUnits,
 };
 
-use crate::{median, Row};
+use crate::{clock_ms, median, Row};
 
 #[derive(Clone, Copy)]
 pub enum Units {
@@ -189,6 +188,8 @@ impl Case {
         let gemm_ms_per_epoch = timed(dot, weights.t());
         let split_ms_per_epoch = timed(split_dot, weights.t());
         let own_ms_per_epoch = timed(own_gemm, wt_copy.view());
+        let library_ms_per_epoch = timed(library_gemm, wt_copy.view());
+        let library_one_ms_per_epoch = timed(library_gemm_one_thread, wt_copy.view());
         let gflops = gflop_per_epoch / ms_per_epoch * 1e3;
         let gemm_gflops = gflop_per_epoch / gemm_ms_per_epoch * 1e3;
         Ok(Row {
@@ -214,6 +215,8 @@ impl Case {
             split_ratio: ms_per_epoch.recip() * split_ms_per_epoch,
             own_gemm_gflops: gflop_per_epoch / own_ms_per_epoch * 1e3,
             own_ratio: ms_per_epoch.recip() * own_ms_per_epoch,
+            library_gemm_gflops: gflop_per_epoch / library_ms_per_epoch * 1e3,
+            library_one_gemm_gflops: gflop_per_epoch / library_one_ms_per_epoch * 1e3,
             reconstruction_error,
         })
     }
@@ -226,10 +229,11 @@ fn timed_train<V: VisibleUnits>(
     opts: &RbmTrainingOptions,
 ) -> Result<Vec<f64>> {
     let mut epoch_ms = Vec::new();
-    let mut last = Instant::now();
+    let mut last = clock_ms();
     train(rbm, data, None, opts, &mut |_| {
-        epoch_ms.push(last.elapsed().as_secs_f64() * 1e3);
-        last = Instant::now();
+        let now = clock_ms();
+        epoch_ms.push(now - last);
+        last = now;
     })?;
     Ok(epoch_ms)
 }
@@ -249,7 +253,7 @@ fn gemm_epoch(
     mul: Mul,
 ) -> f64 {
     let chains = mul(data.slice(s![..batch.min(data.nrows()), ..]), w);
-    let start = Instant::now();
+    let start = clock_ms();
     for x in data.axis_chunks_iter(Axis(0), batch) {
         let h0 = mul(x, w);
         let vk = mul(if persistent { chains.view() } else { h0.view() }, wt);
@@ -258,7 +262,7 @@ fn gemm_epoch(
         let gk = mul(vk.t(), hk.view());
         black_box((g0, gk));
     }
-    start.elapsed().as_secs_f64() * 1e3
+    clock_ms() - start
 }
 
 /// The trainer's own product ([`matmul`]: an AVX-512 kernel for small shapes where the
@@ -267,6 +271,49 @@ fn gemm_epoch(
 fn own_gemm(a: ArrayView2<f32>, b: ArrayView2<f32>) -> Array2<f32> {
     let mut c = Array2::zeros((a.nrows(), b.ncols()));
     matmul(1.0, a, b, 0.0, c.view_mut());
+    c
+}
+
+/// The `gemm` crate's product on rayon's threads (it splits only products large enough).
+fn library_gemm(a: ArrayView2<f32>, b: ArrayView2<f32>) -> Array2<f32> {
+    gemm_crate(a, b, gemm::Parallelism::Rayon(0))
+}
+
+/// The `gemm` crate's product on the calling thread.
+fn library_gemm_one_thread(a: ArrayView2<f32>, b: ArrayView2<f32>) -> Array2<f32> {
+    gemm_crate(a, b, gemm::Parallelism::None)
+}
+
+fn gemm_crate(a: ArrayView2<f32>, b: ArrayView2<f32>, threads: gemm::Parallelism) -> Array2<f32> {
+    let ((m, k), n) = (a.dim(), b.ncols());
+    let mut c = Array2::<f32>::zeros((m, n));
+    let [ars, acs] = [a.strides()[0], a.strides()[1]];
+    let [brs, bcs] = [b.strides()[0], b.strides()[1]];
+    // SAFETY: the pointers and element strides come from views of shapes m×k, k×n and the
+    // fresh m×n row-major c, which the product writes (read_dst false: c ← 1·a·b).
+    unsafe {
+        gemm::gemm(
+            m,
+            n,
+            k,
+            c.as_mut_ptr(),
+            1,
+            n as isize,
+            false,
+            a.as_ptr(),
+            acs,
+            ars,
+            b.as_ptr(),
+            bcs,
+            brs,
+            0.0,
+            1.0,
+            false,
+            false,
+            false,
+            threads,
+        );
+    }
     c
 }
 

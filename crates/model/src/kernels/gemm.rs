@@ -1,16 +1,17 @@
-//! Matrix products: c ← α·a·b + β·c, split over rayon threads when large, on an AVX-512
-//! register-tiled kernel when small and the CPU has AVX-512F, else on matrixmultiply.
+//! Matrix products: c ← α·a·b + β·c, on the `gemm` crate (its AVX-512, AVX2+FMA or NEON
+//! kernels, chosen at run time), split over rayon threads when large; small products run on
+//! an AVX-512 register-tiled kernel of this crate when the CPU has AVX-512F.
 
-use ndarray::linalg::general_mat_mul;
+use gemm::Parallelism;
 use ndarray::{ArrayView2, ArrayViewMut2, Axis};
 use rayon::prelude::*;
 
 /// c ← α·a·b + β·c through the trainer's own products (the AVX-512 kernel for small
-/// shapes when the CPU has it, else matrixmultiply, split over rayon threads when large).
+/// shapes when the CPU has it, else the `gemm` crate, split over rayon threads when large).
 /// Public so the speed bench can time it beside a plain `dot`.
 ///
 /// # Panics
-/// If the shapes do not agree (inside ndarray's product).
+/// If the shapes do not agree.
 pub fn matmul(
     alpha: f32,
     a: ArrayView2<f32>,
@@ -21,15 +22,18 @@ pub fn matmul(
     par_gemm(alpha, &a, &b, beta, &mut c);
 }
 
-/// Products smaller than this many multiply–adds run as one call: splitting small products
-/// costs more than it saves (measured: BENCHMARKS.md, section "How fast is training?").
+/// Products smaller than two blocks of this many multiply–adds run as one call: splitting
+/// small products costs more than it saves (measured: BENCHMARKS.md, section "How fast is
+/// training?").
 const PAR_GEMM_MIN_MACS: usize = 1 << 21;
 
 /// c ← α·a·b + β·c, split into column (or row) blocks of c computed on rayon threads.
 ///
-/// matrixmultiply runs on one thread; this lets a product use every core without a second
-/// thread pool. The blocks depend only on the shapes, never on the thread count, so the
-/// result does not either.
+/// Each block is one single-threaded `gemm` call, and the blocks depend only on the shapes,
+/// never on the thread count, so the result does not either.
+///
+/// # Panics
+/// If the shapes do not agree.
 pub(crate) fn par_gemm(
     alpha: f32,
     a: &ArrayView2<f32>,
@@ -39,10 +43,16 @@ pub(crate) fn par_gemm(
 ) {
     let (m, k) = a.dim();
     let n = b.ncols();
+    assert!(
+        b.nrows() == k && c.dim() == (m, n),
+        "product of {m}×{k} and {}×{n} into {:?}",
+        b.nrows(),
+        c.dim()
+    );
     let blocks = (m * n * k / PAR_GEMM_MIN_MACS).min(8);
     if blocks < 2 || m.max(n) < 64 {
         if !small_gemm::try_gemm(alpha, a, b, beta, c) {
-            general_mat_mul(alpha, a, b, beta, c);
+            library_gemm(alpha, a, b, beta, c);
         }
         return;
     }
@@ -55,7 +65,7 @@ pub(crate) fn par_gemm(
             .zip(b.axis_chunks_iter(Axis(1), width))
             .collect();
         pieces.into_par_iter().for_each(|(mut c, b)| {
-            general_mat_mul(alpha, a, &b, beta, &mut c);
+            library_gemm(alpha, a, &b, beta, &mut c);
         });
     } else {
         let pieces: Vec<_> = c
@@ -63,16 +73,69 @@ pub(crate) fn par_gemm(
             .zip(a.axis_chunks_iter(Axis(0), width))
             .collect();
         pieces.into_par_iter().for_each(|(mut c, a)| {
-            general_mat_mul(alpha, &a, b, beta, &mut c);
+            library_gemm(alpha, &a, b, beta, &mut c);
         });
+    }
+}
+
+/// c ← α·a·b + β·c on the calling thread through the `gemm` crate, any strides. With β = 0
+/// c is only written (whatever it held, NaN included, is gone), as ndarray's product does.
+fn library_gemm(
+    alpha: f32,
+    a: &ArrayView2<f32>,
+    b: &ArrayView2<f32>,
+    beta: f32,
+    c: &mut ArrayViewMut2<f32>,
+) {
+    let ((m, k), n) = (a.dim(), b.ncols());
+    if m == 0 || n == 0 {
+        return;
+    }
+    if k == 0 {
+        if beta == 0.0 {
+            c.fill(0.0);
+        } else {
+            *c *= beta;
+        }
+        return;
+    }
+    let [ars, acs] = [a.strides()[0], a.strides()[1]];
+    let [brs, bcs] = [b.strides()[0], b.strides()[1]];
+    let [crs, ccs] = [c.strides()[0], c.strides()[1]];
+    // SAFETY: pointers and element strides come from views of shapes m×k, k×n and m×n
+    // (checked by the caller), so every element the product reads or writes is in a view;
+    // c is a unique borrow. The crate computes dst ← α'·dst + β'·lhs·rhs, reading dst only
+    // when asked: α' = our β, β' = our α.
+    unsafe {
+        gemm::gemm(
+            m,
+            n,
+            k,
+            c.as_mut_ptr(),
+            ccs,
+            crs,
+            beta != 0.0,
+            a.as_ptr(),
+            acs,
+            ars,
+            b.as_ptr(),
+            bcs,
+            brs,
+            beta,
+            alpha,
+            false,
+            false,
+            false,
+            Parallelism::None,
+        );
     }
 }
 
 /// An AVX-512 product for the small matrices of a training step (`b` and `c` row-major).
 ///
-/// matrixmultiply's kernels stop at AVX2 and pack both operands on every call; this
-/// unpacked 6 × 64 register tile is faster at a training step's small shapes (measured:
-/// BENCHMARKS.md, section "How fast is training?"). Each entry of c is summed over k in
+/// This unpacked 6 × 64 register tile is a little faster than the `gemm` crate's AVX-512
+/// kernels at a training step's small shapes, which the crate packs on every call
+/// (measured: BENCHMARKS.md, section "How fast is training?"). Each entry of c is summed over k in
 /// order with fused multiply–adds, so the result depends on neither the thread count nor
 /// the tiling.
 mod small_gemm {
@@ -127,10 +190,14 @@ mod small_gemm {
                 return true;
             }
         }
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = (alpha, a, b, beta, c);
         false
     }
 
+    #[cfg(target_arch = "x86_64")]
     const ROWS: usize = 6;
+    #[cfg(target_arch = "x86_64")]
     const VECS: usize = 4;
 
     /// 6 rows × 64 columns of c per tile, in 24 of the 32 vector registers; a's entries
@@ -198,6 +265,7 @@ mod small_gemm {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use ndarray::linalg::general_mat_mul;
     use ndarray::Array2;
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
@@ -215,6 +283,9 @@ mod tests {
             (7, 3, 17),
             (13, 9, 70),
             (64, 128, 256),
+            // split over threads, 8 blocks of rows or of columns
+            (300, 200, 500),
+            (500, 200, 300),
         ] {
             for transposed_a in [false, true] {
                 let a_owned = if transposed_a {
@@ -247,5 +318,46 @@ mod tests {
         let mut got = Array2::zeros((6, 5));
         par_gemm(1.0, &a.view(), &b.t(), 0.0, &mut got.view_mut());
         assert!((got - a.dot(&b.t())).iter().all(|d| d.abs() < 1e-5));
+        // c written through a transposed view, and an empty inner dimension.
+        let mut got = Array2::zeros((5, 6));
+        par_gemm(
+            1.0,
+            &a.view(),
+            &b.t(),
+            0.0,
+            &mut got.view_mut().reversed_axes(),
+        );
+        assert!((got.t().to_owned() - a.dot(&b.t()))
+            .iter()
+            .all(|d| d.abs() < 1e-5));
+        let mut scaled = Array2::from_elem((6, 5), 2.0f32);
+        let (empty_a, empty_b) = (Array2::zeros((6, 0)), Array2::zeros((0, 5)));
+        par_gemm(
+            1.0,
+            &empty_a.view(),
+            &empty_b.view(),
+            0.5,
+            &mut scaled.view_mut(),
+        );
+        assert!(scaled.iter().all(|&x| x == 1.0));
+    }
+
+    #[test]
+    fn split_products_do_not_depend_on_the_thread_count() {
+        let mut rng = ChaCha8Rng::seed_from_u64(2);
+        let mut random = |r, c| Array2::from_shape_simple_fn((r, c), || standard_normal(&mut rng));
+        let (a, b) = (random(300, 700), random(700, 400));
+        let run = |threads| {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            let mut c = Array2::zeros((300, 400));
+            pool.install(|| par_gemm(1.0, &a.view(), &b.view(), 0.0, &mut c.view_mut()));
+            c
+        };
+        let one = run(1);
+        assert_eq!(one, run(2));
+        assert_eq!(one, run(3));
     }
 }

@@ -3,7 +3,8 @@
 //! Why run time: the default x86-64 target stops at SSE2 and the project does not pin a
 //! target CPU, so a plain build would run these loops 4 wide. [`simd`] runs a loop inside a
 //! function compiled for AVX-512 or AVX2 when the CPU has it; the products in [`gemm`] use
-//! an AVX-512 kernel for small shapes. Every path computes the same bits (Rust never fuses
+//! an AVX-512 kernel for small shapes and the `gemm` crate (AVX-512, AVX2+FMA or NEON)
+//! otherwise. Every path computes the same bits (Rust never fuses
 //! or reorders float operations), so results never depend on the CPU.
 
 mod gemm;
