@@ -157,7 +157,7 @@ fn generate(args: &Args, folder: &Path, n: usize) -> anyhow::Result<Value> {
         .map(|i| -> anyhow::Result<usize> {
             let sidecar = write_picture(folder, seed, i)?;
             let k = written.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
-            if k % 2000 == 0 {
+            if k.is_multiple_of(2000) {
                 eprintln!("  {k}/{n} ({:.0} s)", started.elapsed().as_secs_f64());
             }
             Ok(usize::from(sidecar))
@@ -245,9 +245,9 @@ fn paint(rng: &mut ChaCha8Rng) -> RgbImage {
             for x in x0..x1 {
                 let (u, v) = ((x as f32 - cx) / rx, (y as f32 - cy) / ry);
                 let inside = match kind {
-                    0 => true,                                             // rectangle
-                    1 => u * u + v * v <= 1.0,                             // ellipse
-                    _ => ((x as f32 + y as f32) / stripe) as u32 % 2 == 0, // stripes
+                    0 => true,                                                        // rectangle
+                    1 => u * u + v * v <= 1.0,                                        // ellipse
+                    _ => (((x as f32 + y as f32) / stripe) as u32).is_multiple_of(2), // stripes
                 };
                 if inside {
                     img.put_pixel(x, y, Rgb(c.map(|v| v as u8)));
