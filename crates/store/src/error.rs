@@ -36,6 +36,17 @@ pub enum StoreError {
         source: sled::Error,
     },
 
+    #[error(
+        "the disk holding the store at {dir} is full (no space left on the device); free \
+         some space there and run the command again (what was written before stays \
+         readable, and a scan picks up where this one stopped)"
+    )]
+    DiskFull {
+        dir: PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+
     #[error("the store at {dir} holds a damaged entry `{key}` ({detail}); rebuild it with `tagweave scan FOLDER --rebuild`")]
     Corrupt {
         dir: PathBuf,

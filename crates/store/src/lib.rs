@@ -73,9 +73,14 @@ impl Store {
     /// the folder does not exist yet.
     pub fn open_or_create(dir: &Path, collection_root: &Path) -> Result<Store> {
         let fresh = !dir.join("db").exists();
-        std::fs::create_dir_all(dir).map_err(|source| StoreError::Io {
-            path: dir.to_path_buf(),
-            source,
+        std::fs::create_dir_all(dir).map_err(|source| {
+            disk_full_named(
+                dir,
+                StoreError::Io {
+                    path: dir.to_path_buf(),
+                    source,
+                },
+            )
         })?;
         let mut store = Store::open_locked(dir, false)?;
         if fresh || store.is_unfinished()? {
@@ -186,21 +191,16 @@ impl Store {
     }
 
     fn open_locked(dir: &Path, brief: bool) -> Result<Store> {
-        let lock = StoreLock::acquire_for(dir, brief)?;
+        let lock = StoreLock::acquire_for(dir, brief).map_err(|e| disk_full_named(dir, e))?;
         let db = sled::Config::new()
             .path(dir.join("db"))
             .mode(sled::Mode::LowSpace)
             .cache_capacity(PAGE_CACHE_BYTES)
             .open()
-            .map_err(|source| StoreError::Database {
-                dir: dir.to_path_buf(),
-                source,
-            })?;
+            .map_err(|source| database_error(dir, source))?;
         let tree = |name: &str| {
-            db.open_tree(name).map_err(|source| StoreError::Database {
-                dir: dir.to_path_buf(),
-                source,
-            })
+            db.open_tree(name)
+                .map_err(|source| database_error(dir, source))
         };
         Ok(Store {
             dir: dir.to_path_buf(),
@@ -494,10 +494,7 @@ impl Store {
     }
 
     fn db_error(&self, source: sled::Error) -> StoreError {
-        StoreError::Database {
-            dir: self.dir.clone(),
-            source,
-        }
+        database_error(&self.dir, source)
     }
 
     fn corrupt(&self, key: &str, detail: &str) -> StoreError {
@@ -513,6 +510,37 @@ impl Drop for Store {
     fn drop(&mut self) {
         // Best effort: every writer already flushed; this covers readers' bookkeeping.
         let _ = self.db.flush();
+    }
+}
+
+/// A database error of the store at `dir`; a full disk is said as such, since only the
+/// user can make room.
+fn database_error(dir: &Path, source: sled::Error) -> StoreError {
+    match source {
+        sled::Error::Io(io) if io.kind() == std::io::ErrorKind::StorageFull => {
+            StoreError::DiskFull {
+                dir: dir.to_path_buf(),
+                source: io,
+            }
+        }
+        source => StoreError::Database {
+            dir: dir.to_path_buf(),
+            source,
+        },
+    }
+}
+
+/// `error`, or [`StoreError::DiskFull`] when it is a file of the store at `dir` that could
+/// not be written for want of space.
+fn disk_full_named(dir: &Path, error: StoreError) -> StoreError {
+    match error {
+        StoreError::Io { source, .. } if source.kind() == std::io::ErrorKind::StorageFull => {
+            StoreError::DiskFull {
+                dir: dir.to_path_buf(),
+                source,
+            }
+        }
+        error => error,
     }
 }
 

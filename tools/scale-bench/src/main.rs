@@ -9,14 +9,24 @@
 //!    (no picture file exists; queries read what the store holds).
 //! 3. Runs tagweave's commands on it through the real binary, one process each, and reports
 //!    wall time and peak resident memory (`wait4`), stopping any that passes `--memory-cap-gb`
-//!    or `--time-limit-min`.
+//!    or `--time-limit-min`. Then starts `tagweave serve --read-only` on it and times its
+//!    start-up and its main pages, one request at a time (`serve.rs`).
+//!
+//! With `--scan-flatness`, instead: generates `--scan-pictures` JPEG pictures and times the
+//! real `tagweave scan` on the first `--scan-first` of them and on all, to show whether
+//! pictures/s and memory stay flat as the folder grows (`scan.rs`).
 //!
 //! ```sh
 //! cargo build --release -p tagweave -p tagweave-scale-bench
 //! target/release/scale-bench --pictures 1000000 --work /tmp/scale
+//! target/release/scale-bench --pictures 100000 --work /tmp/scale --only serve
+//! target/release/scale-bench --scan-flatness --scan-pictures 20000 --work /tmp/scale
 //! ```
 //!
 //! Figures go to BENCHMARKS.md ("How big does it get").
+
+mod scan;
+mod serve;
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
@@ -68,6 +78,21 @@ struct Args {
     /// Build the store only.
     #[arg(long)]
     build_only: bool,
+    /// Time only these of the commands (comma-separated: train, tags, find, suggest,
+    /// shift, audit, serve); all when not given.
+    #[arg(long, value_delimiter = ',')]
+    only: Vec<String>,
+    /// Instead of the store of `--pictures`: generate pictures and time real scans of a
+    /// few of them and of all.
+    #[arg(long)]
+    scan_flatness: bool,
+    /// Pictures generated for `--scan-flatness`.
+    #[arg(long, default_value_t = 20_000)]
+    scan_pictures: usize,
+    /// The smaller scans of `--scan-flatness`: the first this many of the generated
+    /// pictures, each in a folder of its own (comma-separated, rising).
+    #[arg(long, value_delimiter = ',', default_values_t = [400, 4000])]
+    scan_first: Vec<usize>,
 }
 
 /// Pictures written per store batch.
@@ -82,6 +107,12 @@ fn main() -> anyhow::Result<()> {
             args.tagweave.display()
         )
     })?;
+    if args.scan_flatness {
+        let report = scan::scan_flatness(&args, &tagweave)?;
+        println!("{}", serde_json::to_string_pretty(&report)?);
+        print_scan_table(&report);
+        return Ok(());
+    }
     let archive = args.work.join(format!("archive-{}", args.pictures));
     let mut report = json!({ "pictures": args.pictures, "seed": args.seed });
     if archive.join(".tagweave/db").exists() {
@@ -110,17 +141,77 @@ fn print_table(report: &Value) {
     for c in report["commands"].as_array().into_iter().flatten() {
         let f = &c["figures"];
         let result = match (f["stopped"].as_str(), f["exit_code"].as_i64()) {
+            _ if f["result"].is_string() => f["result"].as_str().unwrap_or("").to_string(),
             (Some(why), _) => format!("stopped: {why}"),
             (None, Some(0)) => "done".to_string(),
             (None, code) => format!("exit {code:?}: {}", f["last_words"].as_str().unwrap_or("")),
         };
+        let seconds = f["seconds"].as_f64().unwrap_or(0.0);
+        let wall = if seconds < 1.0 {
+            format!("{:.0} ms", seconds * 1000.0)
+        } else {
+            format!("{seconds:.2} s")
+        };
         eprintln!(
-            "| {} | {:.2} s | {:.0} MB | {result} |",
+            "| {} | {wall} | {:.0} MB | {result} |",
             c["command"].as_str().unwrap_or(""),
-            f["seconds"].as_f64().unwrap_or(0.0),
             f["peak_rss_mb"].as_f64().unwrap_or(0.0)
         );
     }
+}
+
+/// The scan-flatness figures as a Markdown table on standard error.
+fn print_scan_table(report: &Value) {
+    eprintln!(
+        "\n{} generated pictures ({}, {:.0} MB, {} with a text sidecar)",
+        report["pictures"],
+        report["size"].as_str().unwrap_or(""),
+        report["picture_mb"].as_f64().unwrap_or(0.0),
+        report["generation"]["sidecars"]
+    );
+    eprintln!(
+        "| scan | wall | pictures/s | pictures/s past the smaller scan | peak RSS | RSS max by quarter of the run | load before → after |\n\
+         | --- | --- | --- | --- | --- | --- | --- |"
+    );
+    for r in report["runs"].as_array().into_iter().flatten() {
+        let quarters: Vec<String> = r["rss_mb_by_quarter_of_wall_time"]
+            .as_array()
+            .into_iter()
+            .flatten()
+            .map(|q| format!("{:.0}", q.as_f64().unwrap_or(0.0)))
+            .collect();
+        let marginal = r["marginal_pictures_per_s"]
+            .as_f64()
+            .map_or("—".to_string(), |m| format!("{m:.1}"));
+        eprintln!(
+            "| {} pictures | {:.1} s | {:.1} | {marginal} | {:.0} MB | {} MB | {} → {} |",
+            r["pictures"],
+            r["figures"]["seconds"].as_f64().unwrap_or(0.0),
+            r["pictures_per_s"].as_f64().unwrap_or(0.0),
+            r["figures"]["peak_rss_mb"].as_f64().unwrap_or(0.0),
+            quarters.join(" / "),
+            r["loadavg_before"].as_str().unwrap_or("?"),
+            r["loadavg_after"].as_str().unwrap_or("?"),
+        );
+    }
+    eprintln!(
+        "all against the first scan: pictures/s ×{:.3}, pictures/s past the smaller scan ×{:.3} \
+         (against the second scan's), peak RSS ×{:.3}",
+        report["rate_all_over_first"].as_f64().unwrap_or(f64::NAN),
+        report["marginal_rate_last_over_first"]
+            .as_f64()
+            .unwrap_or(f64::NAN),
+        report["peak_rss_all_over_first"]
+            .as_f64()
+            .unwrap_or(f64::NAN)
+    );
+}
+
+/// The 1-, 5- and 15-minute load averages, as `/proc/loadavg` says them.
+pub(crate) fn loadavg() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .map(|l| l.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_default()
 }
 
 /// What the built store copies: real pictures' features and tags, and their extractor.
@@ -248,7 +339,7 @@ fn picture(args: &Args, source: &Source, cumulative: &[f64], i: usize) -> (ItemR
             }
         }
     }
-    let rel_path = format!("synthetic/{:04}/{i:07}.jpg", i / 1000);
+    let rel_path = synthetic_path(i);
     let item = ItemRecord {
         id: item_id(&rel_path),
         content_hash: blake3::hash(rel_path.as_bytes()).to_hex().to_string(),
@@ -263,6 +354,11 @@ fn picture(args: &Args, source: &Source, cumulative: &[f64], i: usize) -> (ItemR
         accepted: Vec::new(),
     };
     (item, features)
+}
+
+/// The made-up path of the built store's picture `i`.
+fn synthetic_path(i: usize) -> String {
+    format!("synthetic/{:04}/{i:07}.jpg", i / 1000)
 }
 
 fn time_commands(args: &Args, tagweave: &Path, archive: &Path) -> anyhow::Result<Value> {
@@ -301,26 +397,60 @@ fn time_commands(args: &Args, tagweave: &Path, archive: &Path) -> anyhow::Result
         ),
         ("audit", vec!["audit", "--json"]),
     ];
+    let wanted = |argv: &[&str]| args.only.is_empty() || args.only.iter().any(|o| o == argv[0]);
     let mut out = Vec::new();
     for (name, argv) in commands {
+        if !wanted(&argv) {
+            continue;
+        }
         eprintln!("running tagweave {}…", argv.join(" "));
-        let figures = run_measured(args, tagweave, archive, &argv)?;
+        let figures = run_measured(args, tagweave, archive, &argv)?.figures;
         eprintln!("  {figures}");
         out.push(json!({ "command": name, "args": argv, "figures": figures }));
+    }
+    if wanted(&["serve"]) {
+        out.extend(serve::time_serve(
+            tagweave,
+            archive,
+            args.seed,
+            synthetic_path,
+        )?);
     }
     Ok(Value::Array(out))
 }
 
-/// Runs one command; its wall time, peak RSS (wait4), exit code, and why it was stopped.
-fn run_measured(args: &Args, tagweave: &Path, cwd: &Path, argv: &[&str]) -> anyhow::Result<Value> {
+/// What [`run_measured`] saw of one command.
+pub(crate) struct Measured {
+    /// Wall time, peak RSS (wait4), exit code, why it was stopped, its last words.
+    figures: Value,
+    stdout: String,
+    /// (seconds since start, resident kB), every 100 ms.
+    samples: Vec<(f64, u64)>,
+}
+
+/// Runs one command and measures it.
+pub(crate) fn run_measured(
+    args: &Args,
+    tagweave: &Path,
+    cwd: &Path,
+    argv: &[&str],
+) -> anyhow::Result<Measured> {
     let started = Instant::now();
     let mut child = Command::new(tagweave)
         .args(argv)
         .current_dir(cwd)
-        .stdout(Stdio::null())
+        .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .spawn()?;
     let pid = child.id();
+    let stdout = child.stdout.take();
+    let out = std::thread::spawn(move || {
+        let mut text = String::new();
+        if let Some(mut s) = stdout {
+            let _ = std::io::Read::read_to_string(&mut s, &mut text);
+        }
+        text
+    });
     let stderr = child.stderr.take();
     let tail = std::thread::spawn(move || {
         let mut text = String::new();
@@ -336,8 +466,10 @@ fn run_measured(args: &Args, tagweave: &Path, cwd: &Path, argv: &[&str]) -> anyh
         let cap_kb = (args.memory_cap_gb * 1e6) as u64;
         let limit = Duration::from_secs_f64(args.time_limit_min * 60.0);
         std::thread::spawn(move || {
+            let mut samples = Vec::new();
             while !done.load(Ordering::Relaxed) {
                 let rss = rss_kb(pid).unwrap_or(0);
+                samples.push((started.elapsed().as_secs_f64(), rss));
                 let why = if rss > cap_kb {
                     1
                 } else if started.elapsed() > limit {
@@ -349,10 +481,11 @@ fn run_measured(args: &Args, tagweave: &Path, cwd: &Path, argv: &[&str]) -> anyh
                     stopped.store(why, Ordering::Relaxed);
                     // SAFETY: `pid` is our own child, not yet waited for.
                     unsafe { libc::kill(pid as libc::pid_t, libc::SIGKILL) };
-                    return;
+                    return samples;
                 }
                 std::thread::sleep(Duration::from_millis(100));
             }
+            samples
         })
     };
     let mut status = 0;
@@ -360,7 +493,7 @@ fn run_measured(args: &Args, tagweave: &Path, cwd: &Path, argv: &[&str]) -> anyh
     let mut usage: libc::rusage = unsafe { std::mem::zeroed() };
     let waited = unsafe { libc::wait4(pid as libc::pid_t, &mut status, 0, &mut usage) };
     done.store(true, Ordering::Relaxed);
-    let _ = watch.join();
+    let samples = watch.join().unwrap_or_default();
     if waited < 0 {
         bail!("waiting for tagweave failed");
     }
@@ -371,13 +504,17 @@ fn run_measured(args: &Args, tagweave: &Path, cwd: &Path, argv: &[&str]) -> anyh
         2 => Some(format!("ran past {} min", args.time_limit_min)),
         _ => None,
     };
-    Ok(json!({
-        "seconds": seconds,
-        "peak_rss_mb": usage.ru_maxrss as f64 / 1000.0,
-        "exit_code": code,
-        "stopped": stopped,
-        "last_words": tail.join().unwrap_or_default(),
-    }))
+    Ok(Measured {
+        figures: json!({
+            "seconds": seconds,
+            "peak_rss_mb": usage.ru_maxrss as f64 / 1000.0,
+            "exit_code": code,
+            "stopped": stopped,
+            "last_words": tail.join().unwrap_or_default(),
+        }),
+        stdout: out.join().unwrap_or_default(),
+        samples,
+    })
 }
 
 fn rss_kb(pid: u32) -> Option<u64> {
