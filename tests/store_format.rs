@@ -12,9 +12,9 @@ use common::*;
 use tagweave_store::FORMAT_VERSION;
 
 /// The committed store of the current version.
-const FIXTURE_VERSION: u32 = 2;
+const FIXTURE_VERSION: u32 = 3;
 /// Committed stores of earlier versions, each to be refused with the way out.
-const OLDER_FIXTURES: [u32; 1] = [1];
+const OLDER_FIXTURES: [u32; 2] = [1, 2];
 /// `.gitignore` keeps every `.tagweave/` out of git, so the committed store sits under this
 /// name and is put in place as `.tagweave` in each test's copy.
 const FIXTURE_STORE: &str = "dot-tagweave";

@@ -11,6 +11,7 @@ mod packing;
 mod reader;
 mod search;
 mod table;
+mod vector_log;
 
 use std::path::{Path, PathBuf};
 
@@ -23,6 +24,7 @@ use lock::StoreLock;
 pub use reader::{PackedVector, VectorReader};
 pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
 pub use table::FeatureTable;
+use vector_log::{Location, VectorFiles};
 
 /// `values` as a vector of `kind` reads back from the store (its packing applied), for work
 /// done outside the store that must match work done on what the store holds.
@@ -32,8 +34,9 @@ pub fn as_stored(kind: &str, values: &[f32]) -> Vec<f32> {
 
 /// Bumped whenever the on-disk layout changes in a way older code cannot read.
 /// 2: one tree per vector kind, vectors packed (`packing`: codes as bytes, features in
-/// 8-bit blocks).
-pub const FORMAT_VERSION: u32 = 2;
+/// 8-bit blocks). 3: the packed vectors in files beside the database (`vector_log`), the
+/// trees holding where each lies.
+pub const FORMAT_VERSION: u32 = 3;
 
 /// sled's page cache. Its default (about 1 GiB) made loading 1,000,000 codes peak at 1.25 GB
 /// of RAM; with 64 MiB the peak was 542 MB and loading was faster (3.7 s against 6.8 s),
@@ -48,8 +51,11 @@ pub const PATIENCE: std::time::Duration = std::time::Duration::from_secs(5);
 pub const DEFAULT_DIR_NAME: &str = ".tagweave";
 
 const META_FORMAT: &str = "format_version";
-/// Vectors of kind K live in the tree `vectors/K`.
+/// Where the vectors of kind K lie is kept in the tree `vectors/K`.
 const VECTOR_TREE_PREFIX: &str = "vectors/";
+/// Bytes of live vectors of kind K, under `live_bytes/K` in the meta tree: how much of
+/// the vector files is not garbage, to know when to compact them.
+const META_LIVE_PREFIX: &str = "live_bytes/";
 const META_ROOT: &str = "collection_root";
 /// Root recorded as this when the store sits directly inside the collection, so the
 /// collection can be moved or renamed with its store.
@@ -157,7 +163,13 @@ impl Store {
             .meta
             .contains_key(META_FORMAT)
             .map_err(|e| self.db_error(e))?;
-        let no_vectors = self.vector_trees()?.iter().all(sled::Tree::is_empty);
+        let no_vectors = self
+            .vector_kinds()?
+            .iter()
+            .map(|kind| self.vector_tree(kind))
+            .collect::<Result<Vec<_>>>()?
+            .iter()
+            .all(sled::Tree::is_empty);
         Ok(!versioned && self.items.is_empty() && self.blobs.is_empty() && no_vectors)
     }
 
@@ -295,13 +307,17 @@ impl Store {
         // Vectors go first, flushed: a crash in between leaves an item without vectors
         // (recomputed by the next scan), never an item with vectors of other bytes.
         if !stale.is_empty() {
-            for tree in self.vector_trees()? {
+            for kind in self.vector_kinds()? {
+                let tree = self.vector_tree(&kind)?;
                 let mut vector_batch = sled::Batch::default();
                 for id in &stale {
                     vector_batch.remove(id.as_bytes());
                 }
+                let dropped = self.held_bytes(&tree, stale.iter().copied())?;
                 tree.apply_batch(vector_batch)
                     .map_err(|e| self.db_error(e))?;
+                let live = self.live_bytes(&kind)?.saturating_sub(dropped);
+                self.set_live_bytes(&kind, live)?;
             }
             self.flush()?;
         }
@@ -397,15 +413,32 @@ impl Store {
 
     /// Stores several vectors of one kind (`"features"`, `"code"` …), keyed by item id,
     /// packed as `packing` says (features and codes compactly, anything else exactly).
+    /// The bytes are durable before the index points at them (`vector_log`).
     pub fn put_vectors(&self, kind: &str, rows: &[(String, Vec<f32>)]) -> Result<()> {
+        let files = self.vector_files(kind)?;
+        let tree = self.vector_tree(kind)?;
+        let packed: Vec<Vec<u8>> = rows
+            .iter()
+            .map(|(_, values)| packing::pack(kind, values))
+            .collect();
+        let replaced = self.held_bytes(&tree, rows.iter().map(|(id, _)| id.as_str()))?;
+        let locations = files.append(packed.iter().map(Vec::as_slice))?;
         let mut batch = sled::Batch::default();
-        for (id, values) in rows {
-            batch.insert(id.as_bytes(), packing::pack(kind, values));
+        let mut added = 0;
+        for ((id, _), location) in rows.iter().zip(&locations) {
+            batch.insert(id.as_bytes(), &location.to_bytes());
+            added += location.len();
         }
-        self.vector_tree(kind)?
-            .apply_batch(batch)
-            .map_err(|e| self.db_error(e))?;
-        self.flush()
+        tree.apply_batch(batch).map_err(|e| self.db_error(e))?;
+        let live = (self.live_bytes(kind)? + added).saturating_sub(replaced);
+        self.set_live_bytes(kind, live)?;
+        self.flush()?;
+        if files.worth_compacting(live)? {
+            let live = files.compact(&tree)?;
+            self.set_live_bytes(kind, live)?;
+            self.flush()?;
+        }
+        Ok(())
     }
 
     /// One item's vector of a kind; `None` when it has none yet.
@@ -417,6 +450,7 @@ impl Store {
     pub fn vector_reader(&self, kind: &str) -> Result<VectorReader> {
         Ok(VectorReader {
             tree: self.vector_tree(kind)?,
+            files: self.vector_files(kind)?,
             dir: self.dir.clone(),
         })
     }
@@ -425,30 +459,26 @@ impl Store {
     /// would keep them (packed: a vector that packs to the stored bytes is the same).
     pub fn holds_vector(&self, kind: &str, id: &str, values: &[f32]) -> Result<bool> {
         Ok(self
-            .vector_tree(kind)?
-            .get(id.as_bytes())
-            .map_err(|e| self.db_error(e))?
-            .is_some_and(|held| *held == *packing::pack(kind, values)))
+            .vector_reader(kind)?
+            .get_packed(id)?
+            .is_some_and(|held| held.bytes() == packing::pack(kind, values).as_slice()))
     }
 
     /// Every stored vector of one kind as `(id, values)`, in id order. Streams: a million
     /// codes are never held twice, and no other kind is read.
-    pub fn vectors_of_kind<'a>(
-        &'a self,
+    pub fn vectors_of_kind(
+        &self,
         kind: &str,
-    ) -> impl Iterator<Item = Result<(String, Vec<f32>)>> + 'a {
-        let tree = self.vector_tree(kind);
-        let entries: Box<dyn Iterator<Item = Result<(String, Vec<f32>)>>> = match tree {
+    ) -> Box<dyn Iterator<Item = Result<(String, Vec<f32>)>>> {
+        match self.vector_reader(kind) {
+            Ok(reader) => Box::new(reader.iter()),
             Err(e) => Box::new(std::iter::once(Err(e))),
-            Ok(tree) => Box::new(tree.iter().map(move |entry| {
-                let (key, value) = entry.map_err(|e| self.db_error(e))?;
-                let id = String::from_utf8_lossy(&key).into_owned();
-                let values =
-                    packing::unpack(&value).map_err(|problem| self.corrupt(&id, problem))?;
-                Ok((id, values))
-            })),
-        };
-        entries
+        }
+    }
+
+    /// Bytes the files of `kind` take on disk, garbage not yet compacted away included.
+    pub fn vector_bytes_on_disk(&self, kind: &str) -> Result<u64> {
+        self.vector_files(kind)?.bytes_on_disk()
     }
 
     /// Drops every vector of one kind (for example after relearning features).
@@ -456,25 +486,66 @@ impl Store {
         self.vector_tree(kind)?
             .clear()
             .map_err(|e| self.db_error(e))?;
-        self.flush()
+        self.set_live_bytes(kind, 0)?;
+        self.flush()?;
+        self.vector_files(kind)?.remove_all()
     }
 
-    /// The tree holding the vectors of `kind` (one per kind, so reading one kind never
-    /// walks the others).
+    /// The tree holding where the vectors of `kind` lie (one per kind, so reading one
+    /// kind never walks the others).
     fn vector_tree(&self, kind: &str) -> Result<sled::Tree> {
         self.db
             .open_tree(format!("{VECTOR_TREE_PREFIX}{kind}"))
             .map_err(|e| self.db_error(e))
     }
 
-    /// Every vector tree the store holds.
-    fn vector_trees(&self) -> Result<Vec<sled::Tree>> {
-        self.db
+    fn vector_files(&self, kind: &str) -> Result<VectorFiles> {
+        if kind.is_empty() || !kind.bytes().all(|b| b.is_ascii_lowercase() || b == b'_') {
+            return Err(StoreError::Inconsistent(format!(
+                "`{kind}` cannot name a vector kind (lower-case letters and `_` only)"
+            )));
+        }
+        Ok(VectorFiles::new(&self.dir, kind))
+    }
+
+    /// Every vector kind the store holds.
+    fn vector_kinds(&self) -> Result<Vec<String>> {
+        Ok(self
+            .db
             .tree_names()
             .into_iter()
-            .filter(|name| name.starts_with(VECTOR_TREE_PREFIX.as_bytes()))
-            .map(|name| self.db.open_tree(name).map_err(|e| self.db_error(e)))
-            .collect()
+            .filter_map(|name| {
+                name.strip_prefix(VECTOR_TREE_PREFIX.as_bytes())
+                    .map(|kind| String::from_utf8_lossy(kind).into_owned())
+            })
+            .collect())
+    }
+
+    /// Bytes of the vectors `tree` holds for `ids` (for the live count).
+    fn held_bytes<'a>(&self, tree: &sled::Tree, ids: impl Iterator<Item = &'a str>) -> Result<u64> {
+        let mut total = 0;
+        for id in ids {
+            if let Some(value) = tree.get(id.as_bytes()).map_err(|e| self.db_error(e))? {
+                total += Location::from_bytes(&value).map_or(0, Location::len);
+            }
+        }
+        Ok(total)
+    }
+
+    fn live_bytes(&self, kind: &str) -> Result<u64> {
+        Ok(self
+            .meta
+            .get(format!("{META_LIVE_PREFIX}{kind}"))
+            .map_err(|e| self.db_error(e))?
+            .and_then(|bytes| <[u8; 8]>::try_from(bytes.as_ref()).ok())
+            .map_or(0, u64::from_be_bytes))
+    }
+
+    fn set_live_bytes(&self, kind: &str, live: u64) -> Result<()> {
+        self.meta
+            .insert(format!("{META_LIVE_PREFIX}{kind}"), &live.to_be_bytes())
+            .map(|_| ())
+            .map_err(|e| self.db_error(e))
     }
 
     /// Makes everything written so far durable.
@@ -515,7 +586,7 @@ impl Drop for Store {
 
 /// A database error of the store at `dir`; a full disk is said as such, since only the
 /// user can make room.
-fn database_error(dir: &Path, source: sled::Error) -> StoreError {
+pub(crate) fn database_error(dir: &Path, source: sled::Error) -> StoreError {
     match source {
         sled::Error::Io(io) if io.kind() == std::io::ErrorKind::StorageFull => {
             StoreError::DiskFull {
@@ -532,7 +603,7 @@ fn database_error(dir: &Path, source: sled::Error) -> StoreError {
 
 /// `error`, or [`StoreError::DiskFull`] when it is a file of the store at `dir` that could
 /// not be written for want of space.
-fn disk_full_named(dir: &Path, error: StoreError) -> StoreError {
+pub(crate) fn disk_full_named(dir: &Path, error: StoreError) -> StoreError {
     match error {
         StoreError::Io { source, .. } if source.kind() == std::io::ErrorKind::StorageFull => {
             StoreError::DiskFull {

@@ -3,6 +3,7 @@
 
 use std::path::{Path, PathBuf};
 
+use crate::vector_log::{Location, VectorFiles};
 use crate::{packing, Result, StoreError};
 
 /// The vectors of one kind, read by item id when asked. Read through it only while the
@@ -10,7 +11,9 @@ use crate::{packing, Result, StoreError};
 /// (the review page's) keeps [`PackedVector`]s instead.
 #[derive(Clone)]
 pub struct VectorReader {
+    /// Where each item's vector lies in `files`.
     pub(crate) tree: sled::Tree,
+    pub(crate) files: VectorFiles,
     pub(crate) dir: PathBuf,
 }
 
@@ -23,14 +26,12 @@ impl VectorReader {
     }
 
     /// Every vector of the kind as `(id, values)`, in id order, read as it goes.
-    pub fn iter(&self) -> impl Iterator<Item = Result<(String, Vec<f32>)>> + '_ {
+    pub fn iter(&self) -> impl Iterator<Item = Result<(String, Vec<f32>)>> + 'static {
+        let reader = self.clone();
         self.tree.iter().map(move |entry| {
-            let (key, value) = entry.map_err(|source| StoreError::Database {
-                dir: self.dir.clone(),
-                source,
-            })?;
+            let (key, value) = entry.map_err(|source| reader.db_error(source))?;
             let id = String::from_utf8_lossy(&key).into_owned();
-            let values = PackedVector(value.as_ref().into()).values(&self.dir, &id)?;
+            let values = reader.read_at(&value, &id)?.values(&reader.dir, &id)?;
             Ok((id, values))
         })
     }
@@ -40,11 +41,22 @@ impl VectorReader {
         let held = self
             .tree
             .get(id.as_bytes())
-            .map_err(|source| StoreError::Database {
-                dir: self.dir.clone(),
-                source,
-            })?;
-        Ok(held.map(|bytes| PackedVector(bytes.as_ref().into())))
+            .map_err(|source| self.db_error(source))?;
+        held.map(|location| self.read_at(&location, id)).transpose()
+    }
+
+    /// The vector whose stored location is `location`.
+    fn read_at(&self, location: &[u8], id: &str) -> Result<PackedVector> {
+        let location = Location::from_bytes(location).ok_or_else(|| StoreError::Corrupt {
+            dir: self.dir.clone(),
+            key: id.to_string(),
+            detail: "its vector's location is not 16 bytes".into(),
+        })?;
+        Ok(PackedVector(self.files.read(location, id)?))
+    }
+
+    fn db_error(&self, source: sled::Error) -> StoreError {
+        crate::database_error(&self.dir, source)
     }
 }
 
@@ -66,5 +78,9 @@ impl PackedVector {
     /// Bytes it takes in memory (besides its own small header).
     pub fn len_bytes(&self) -> usize {
         self.0.len()
+    }
+
+    pub(crate) fn bytes(&self) -> &[u8] {
+        &self.0
     }
 }

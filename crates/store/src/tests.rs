@@ -360,3 +360,147 @@ fn as_stored_is_what_the_store_gives_back() {
     assert!(!store.holds_vector(FEATURES, "a", &other).unwrap());
     assert!(!store.holds_vector(FEATURES, "b", &features).unwrap());
 }
+
+fn features_of(store: &Store, ids: &[&str]) -> Vec<Option<Vec<f32>>> {
+    ids.iter()
+        .map(|id| store.vector("features", id).unwrap())
+        .collect()
+}
+
+#[test]
+fn compaction_keeps_every_live_vector_and_drops_the_garbage() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let a = item("a.png", &[]);
+    let b = item("b.png", &[]);
+    store.update_items(&[a.clone(), b.clone()], &[]).unwrap();
+    // Whole numbers, the same in a block, read back exactly from 8-bit blocks.
+    for round in 0..5 {
+        let value = round as f32;
+        store
+            .put_vectors(
+                "features",
+                &[
+                    (a.id.clone(), vec![value; 40]),
+                    (b.id.clone(), vec![-value; 40]),
+                ],
+            )
+            .unwrap();
+    }
+    store
+        .update_items(&[], std::slice::from_ref(&b.id))
+        .unwrap();
+    let before = features_of(&store, &[&a.id, &b.id]);
+    let files = store.vector_files("features").unwrap();
+    let on_disk = files.bytes_on_disk().unwrap();
+    let live = files
+        .compact(&store.vector_tree("features").unwrap())
+        .unwrap();
+    assert_eq!(
+        live,
+        store.live_bytes("features").unwrap(),
+        "the count kept tracks"
+    );
+    assert!(live * 5 <= on_disk, "{live} live of {on_disk}");
+    assert_eq!(
+        files.bytes_on_disk().unwrap(),
+        live,
+        "only live bytes remain"
+    );
+    assert_eq!(features_of(&store, &[&a.id, &b.id]), before);
+    assert_eq!(before[0].as_ref().map(|v| v[0]), Some(4.0));
+    assert_eq!(before[1], None);
+    assert_eq!(files.generations().unwrap(), [1], "older files deleted");
+}
+
+#[test]
+fn bytes_a_crash_left_unreferenced_are_ignored_and_a_half_done_compaction_finishes() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    store
+        .put_vectors("features", &[("a".into(), vec![1.0; 8])])
+        .unwrap();
+    let files = store.vector_files("features").unwrap();
+    // A crash in the middle of an append: bytes on the file, none in the index.
+    {
+        let mut file = std::fs::OpenOptions::new()
+            .append(true)
+            .open(files.path_of(0))
+            .unwrap();
+        std::io::Write::write_all(&mut file, &[0xAB; 13]).unwrap();
+    }
+    store
+        .put_vectors("features", &[("b".into(), vec![2.0; 8])])
+        .unwrap();
+    // A crash part-way through a compaction: a newer file holding a copy of `a`, the index
+    // moved for `a` only.
+    let tree = store.vector_tree("features").unwrap();
+    let reader = store.vector_reader("features").unwrap();
+    let copy = reader.get_packed("a").unwrap().unwrap();
+    let moved = files.append_to(1, [copy.bytes()]).unwrap();
+    tree.insert("a", &moved[0].to_bytes()).unwrap();
+    assert_eq!(files.generations().unwrap(), [0, 1]);
+    // Appends go to the newest file; every entry reads whole.
+    store
+        .put_vectors("features", &[("c".into(), vec![3.0; 8])])
+        .unwrap();
+    let expect = vec![Some(vec![1.0; 8]), Some(vec![2.0; 8]), Some(vec![3.0; 8])];
+    assert_eq!(features_of(&store, &["a", "b", "c"]), expect);
+    assert_eq!(reader.get("b").unwrap(), Some(vec![2.0; 8]));
+    files.compact(&tree).unwrap();
+    assert_eq!(files.generations().unwrap(), [2]);
+    assert_eq!(features_of(&store, &["a", "b", "c"]), expect);
+    assert_eq!(
+        reader.get("c").unwrap(),
+        Some(vec![3.0; 8]),
+        "a reader made before the compaction follows it"
+    );
+}
+
+#[test]
+fn a_missing_vector_file_is_named_as_damage_to_rebuild() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    store
+        .put_vectors("features", &[("a".into(), vec![1.0; 8])])
+        .unwrap();
+    std::fs::remove_file(store.vector_files("features").unwrap().path_of(0)).unwrap();
+    let error = store.vector("features", "a").unwrap_err();
+    assert!(matches!(error, StoreError::Corrupt { .. }), "{error}");
+    assert!(error.to_string().contains("--rebuild"), "{error}");
+}
+
+#[test]
+fn readers_beside_a_writer_never_see_a_half_written_vector() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    store
+        .put_vectors("code", &[("x".into(), vec![0.0; 64])])
+        .unwrap();
+    let rounds = 60;
+    std::thread::scope(|scope| {
+        scope.spawn(|| {
+            for round in 1..=rounds {
+                // Codes are kept as one byte a value: 1/255 steps read back exactly.
+                let value = round as f32 / 255.0;
+                store
+                    .put_vectors("code", &[("x".into(), vec![value; 64])])
+                    .unwrap();
+            }
+        });
+        for _ in 0..2 {
+            scope.spawn(|| {
+                let reader = store.vector_reader("code").unwrap();
+                for _ in 0..rounds * 4 {
+                    let values = reader.get("x").unwrap().unwrap();
+                    assert_eq!(values.len(), 64);
+                    assert!(values.iter().all(|&v| v == values[0]), "{values:?}");
+                }
+            });
+        }
+    });
+    assert_eq!(
+        store.vector("code", "x").unwrap(),
+        Some(vec![rounds as f32 / 255.0; 64])
+    );
+}

@@ -461,8 +461,12 @@ fn vectors_of_kind_returns_only_that_kind_in_id_order_and_loads() {
         .put_vectors("features", &[(ids(1)[0].clone(), vec![9.0; 5])])
         .unwrap();
     store
-        .put_vectors("x/code", &[("zz".into(), vec![1.0])])
+        .put_vectors("code_extra", &[("zz".into(), vec![1.0])])
         .unwrap();
+    // A kind names a file: anything but lower-case letters and `_` is refused.
+    assert!(store
+        .put_vectors("x/code", &[("zz".into(), vec![1.0])])
+        .is_err());
     let read: Vec<(String, Vec<f32>)> = store
         .vectors_of_kind("code")
         .collect::<Result<_>>()
