@@ -103,12 +103,9 @@ impl Queries {
         let mut shares = Array2::zeros((rows.len(), self.columns.len()));
         for (b, batch) in rows.chunks(crate::READ_BATCH).enumerate() {
             let at = b * crate::READ_BATCH..b * crate::READ_BATCH + batch.len();
-            probabilities
-                .slice_mut(s![at.clone(), ..])
-                .assign(&self.suggest_rows(batch)?);
-            shares
-                .slice_mut(s![at, ..])
-                .assign(&self.neighbour_shares(batch)?);
+            let (p, share) = self.suggest_and_shares(batch)?;
+            probabilities.slice_mut(s![at.clone(), ..]).assign(&p);
+            shares.slice_mut(s![at, ..]).assign(&share);
         }
         let lists: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
         let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());

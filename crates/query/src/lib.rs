@@ -9,7 +9,7 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 use std::sync::OnceLock;
 
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{Array1, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
@@ -356,13 +356,34 @@ impl Queries {
     /// then come back likely; callers leave them out); the kNN part never leans on the
     /// picture itself.
     pub fn suggest_rows(&self, rows: &[usize]) -> Result<Array2<f32>> {
-        let carried: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
-        self.suggest_given_columns(rows, &carried)
+        let x = self.scaled_rows(rows)?;
+        self.suggest_scaled(rows, x.view())
     }
 
-    /// Tag probabilities for indexed pictures (rows), each given the tag columns
-    /// `carried[i]` as evidence (none: from the picture alone).
-    fn suggest_given_columns(&self, rows: &[usize], carried: &[Vec<usize>]) -> Result<Array2<f32>> {
+    /// [`Self::suggest_rows`] and [`Self::neighbour_shares`] of the same rows, their
+    /// features read once.
+    pub fn suggest_and_shares(&self, rows: &[usize]) -> Result<(Array2<f32>, Array2<f32>)> {
+        let x = self.scaled_rows(rows)?;
+        Ok((
+            self.suggest_scaled(rows, x.view())?,
+            self.shares_scaled(rows, x.view())?,
+        ))
+    }
+
+    /// [`Self::suggest_rows`] given the rows' scaled features `x`.
+    fn suggest_scaled(&self, rows: &[usize], x: ArrayView2<f32>) -> Result<Array2<f32>> {
+        let carried: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        self.suggest_given_columns(rows, x, &carried)
+    }
+
+    /// Tag probabilities for indexed pictures (rows, scaled features `x`), each given the
+    /// tag columns `carried[i]` as evidence (none: from the picture alone).
+    fn suggest_given_columns(
+        &self,
+        rows: &[usize],
+        x: ArrayView2<f32>,
+        carried: &[Vec<usize>],
+    ) -> Result<Array2<f32>> {
         let (partly, alone): (Vec<usize>, Vec<usize>) =
             (0..rows.len()).partition(|&i| !carried[i].is_empty());
         let mut out = Array2::zeros((rows.len(), self.columns.len()));
@@ -371,10 +392,11 @@ impl Queries {
             if positions.is_empty() {
                 continue;
             }
-            let picked: Vec<usize> = positions.iter().map(|&i| rows[i]).collect();
-            let x = self.scaled_rows(&picked)?;
-            let exclude: Vec<Option<usize>> =
-                picked.iter().map(|&r| self.neighbour_row[r]).collect();
+            let x = x.select(Axis(0), &positions);
+            let exclude: Vec<Option<usize>> = positions
+                .iter()
+                .map(|&i| self.neighbour_row[rows[i]])
+                .collect();
             let p = if with_tags {
                 let shown: Vec<Vec<usize>> =
                     positions.iter().map(|&i| carried[i].clone()).collect();
@@ -417,8 +439,12 @@ impl Queries {
     /// (never themselves) that carry each tag.
     pub fn neighbour_shares(&self, rows: &[usize]) -> Result<Array2<f32>> {
         let x = self.scaled_rows(rows)?;
+        self.shares_scaled(rows, x.view())
+    }
+
+    fn shares_scaled(&self, rows: &[usize], x: ArrayView2<f32>) -> Result<Array2<f32>> {
         let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
-        Ok(self.neighbours.shares_excluding(x.view(), &exclude)?)
+        Ok(self.neighbours.shares_excluding(x, &exclude)?)
     }
 
     /// Tag probabilities for a picture file outside the index, described on the fly
@@ -601,10 +627,11 @@ impl Queries {
     fn chance_of(&self, rows: &[usize], wanted: &[usize], shunned: &[usize]) -> Result<Vec<f32>> {
         let mut chance = vec![1.0f32; rows.len()];
         let mut assumed: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        let x = self.scaled_rows(rows)?;
         let steps = wanted.iter().map(|&c| (c, true));
         for (column, want) in steps.chain(shunned.iter().map(|&c| (c, false))) {
             let tag = std::slice::from_ref(&self.trained.vocabulary[column]);
-            let p = self.suggest_given_columns(rows, &assumed)?;
+            let p = self.suggest_given_columns(rows, x.view(), &assumed)?;
             for (i, &r) in rows.iter().enumerate() {
                 let fits = fits_all(&[column], tag, &self.items[r].tags, &p.row(i).to_vec());
                 chance[i] *= if want { fits } else { 1.0 - fits };

@@ -603,12 +603,8 @@ impl App {
     /// (less those set aside), and how far to trust their numbers.
     fn picture_content(&self, row: usize) -> Result<pages::PictureContent<'_>, Reply> {
         let item = self.item(row);
-        let probabilities = match self.queries.suggest_rows(&[row]) {
-            Ok(p) => p.row(0).to_vec(),
-            Err(error) => return Err(self.failed(&error)),
-        };
-        let shares = match self.queries.neighbour_shares(&[row]) {
-            Ok(s) => s.row(0).to_vec(),
+        let (probabilities, shares) = match self.queries.suggest_and_shares(&[row]) {
+            Ok((p, s)) => (p.row(0).to_vec(), s.row(0).to_vec()),
             Err(error) => return Err(self.failed(&error)),
         };
         let vocabulary = self.queries.vocabulary();

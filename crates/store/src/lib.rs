@@ -5,6 +5,7 @@
 //! a guess. One process at a time holds a store; the lock dies with the process.
 
 mod error;
+mod item_list;
 mod layout;
 mod lock;
 mod packing;
@@ -15,6 +16,7 @@ mod vector_log;
 
 use std::path::{Path, PathBuf};
 
+use rayon::prelude::*;
 use serde::{de::DeserializeOwned, Serialize};
 use tagweave_collection::{ItemRecord, Vocabulary};
 
@@ -71,6 +73,12 @@ pub struct Store {
     meta: sled::Tree,
     items: sled::Tree,
     blobs: sled::Tree,
+    /// Counts changes of the items in this process, so a list of them read before a
+    /// change is never written after it (`item_list`).
+    items_changed: std::sync::Mutex<u64>,
+    /// Set once the database reported an error: sled's flush then waits forever (seen
+    /// with a full disk), so nothing flushes it on drop.
+    failed: std::sync::atomic::AtomicBool,
     _lock: StoreLock,
 }
 
@@ -220,6 +228,8 @@ impl Store {
             meta: tree("meta")?,
             items: tree("items")?,
             blobs: tree("blobs")?,
+            items_changed: std::sync::Mutex::new(0),
+            failed: std::sync::atomic::AtomicBool::new(false),
             db,
             _lock: lock,
         })
@@ -267,15 +277,31 @@ impl Store {
         &self.dir
     }
 
-    /// Every indexed item, ordered by id.
+    /// Every indexed item, ordered by id. Read from the item list when it is there, else
+    /// from the database, after which the list is written for the next reader (best
+    /// effort: a store that cannot take it only starts slower).
     pub fn items(&self) -> Result<Vec<ItemRecord>> {
-        self.items
+        let list = item_list::path_in(&self.dir);
+        if let Some(listed) = item_list::read(&list, |key, bytes| self.decode(key, bytes)) {
+            return Ok(listed);
+        }
+        let seen = *self.items_changed.lock().unwrap_or_else(|e| e.into_inner());
+        let stored: Vec<(sled::IVec, sled::IVec)> = self
+            .items
             .iter()
-            .map(|entry| {
-                let (key, value) = entry.map_err(|e| self.db_error(e))?;
-                self.decode(&String::from_utf8_lossy(&key), &value)
-            })
-            .collect()
+            .collect::<std::result::Result<_, _>>()
+            .map_err(|e| self.db_error(e))?;
+        let items = stored
+            .par_iter()
+            .map(|(key, value)| self.decode(&String::from_utf8_lossy(key), value))
+            .collect::<Result<Vec<ItemRecord>>>()?;
+        let bytes = item_list::encode(stored.iter().map(|(_, value)| value));
+        drop(stored);
+        let changed = self.items_changed.lock().unwrap_or_else(|e| e.into_inner());
+        if *changed == seen {
+            let _ = item_list::write(&list, &bytes);
+        }
+        Ok(items)
     }
 
     /// One item by id.
@@ -287,15 +313,23 @@ impl Store {
             .transpose()
     }
 
-    /// Number of indexed items.
+    /// Number of indexed items (sled counts by walking them all; the item list knows).
     pub fn item_count(&self) -> usize {
-        self.items.len()
+        item_list::count(&item_list::path_in(&self.dir)).unwrap_or_else(|| self.items.len())
     }
 
     /// Writes a batch of new or refreshed items and removes the given ids, then flushes so
     /// a crash after this call loses nothing of it. Vectors computed from a picture whose
     /// bytes changed, or that is gone, are dropped with it.
     pub fn update_items(&self, upserts: &[ItemRecord], removals: &[String]) -> Result<()> {
+        if !upserts.is_empty() || !removals.is_empty() {
+            let mut changed = self.items_changed.lock().unwrap_or_else(|e| e.into_inner());
+            *changed += 1;
+            let list = item_list::path_in(&self.dir);
+            item_list::remove(&list).map_err(|source| {
+                disk_full_named(&self.dir, StoreError::Io { path: list, source })
+            })?;
+        }
         let mut stale: Vec<&str> = removals.iter().map(String::as_str).collect();
         for item in upserts {
             if let Some(old) = self.item(&item.id)? {
@@ -434,7 +468,10 @@ impl Store {
         self.set_live_bytes(kind, live)?;
         self.flush()?;
         if files.worth_compacting(live)? {
-            let live = files.compact(&tree)?;
+            let live = files.compact(&tree).inspect_err(|_| {
+                self.failed
+                    .store(true, std::sync::atomic::Ordering::Relaxed)
+            })?;
             self.set_live_bytes(kind, live)?;
             self.flush()?;
         }
@@ -565,6 +602,8 @@ impl Store {
     }
 
     fn db_error(&self, source: sled::Error) -> StoreError {
+        self.failed
+            .store(true, std::sync::atomic::Ordering::Relaxed);
         database_error(&self.dir, source)
     }
 
@@ -579,6 +618,12 @@ impl Store {
 
 impl Drop for Store {
     fn drop(&mut self) {
+        if self.failed.load(std::sync::atomic::Ordering::Relaxed) {
+            // sled flushes when its last handle goes and, after an I/O error, waits for
+            // that flush forever: keep one handle, so the process can end with its error.
+            std::mem::forget(self.db.clone());
+            return;
+        }
         // Best effort: every writer already flushed; this covers readers' bookkeeping.
         let _ = self.db.flush();
     }

@@ -504,3 +504,48 @@ fn readers_beside_a_writer_never_see_a_half_written_vector() {
         Some(vec![rounds as f32 / 255.0; 64])
     );
 }
+
+#[test]
+fn the_item_list_is_written_by_a_reader_and_never_outlives_a_change() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let mut a = item("a.png", &["harbour"]);
+    let b = item("b.png", &["night"]);
+    store.update_items(&[a.clone(), b.clone()], &[]).unwrap();
+    let list = item_list::path_in(&dir);
+    assert!(!list.exists(), "written by readers only");
+    let from_database = store.items().unwrap();
+    assert!(list.exists());
+    assert_eq!(
+        store.items().unwrap(),
+        from_database,
+        "the list reads the same"
+    );
+    assert_eq!(item_list::count(&list), Some(2));
+    assert_eq!(store.item_count(), 2);
+
+    a.tags.push("boats".into());
+    store.update_items(std::slice::from_ref(&a), &[]).unwrap();
+    assert!(!list.exists(), "a change deletes the list first");
+    let changed = store.items().unwrap();
+    assert!(changed.contains(&a) && changed.contains(&b));
+    drop(store);
+
+    // A list cut short (a crash while writing it, before the rename) is ignored.
+    let bytes = std::fs::read(&list).unwrap();
+    std::fs::write(&list, &bytes[..bytes.len() - 3]).unwrap();
+    let store = Store::open(&dir).unwrap();
+    assert_eq!(store.items().unwrap(), changed);
+    assert_eq!(
+        std::fs::read(&list).unwrap(),
+        bytes,
+        "and written whole again"
+    );
+    // A list whose record does not decode is read past: the database answers.
+    let mut garbled = bytes.clone();
+    let last = garbled.len() - 2;
+    garbled[last] = b'{';
+    std::fs::write(&list, &garbled).unwrap();
+    assert_eq!(store.items().unwrap(), changed);
+    assert_eq!(std::fs::read(&list).unwrap(), bytes);
+}
