@@ -141,6 +141,20 @@ struct CodeSearch {
     item_of_code: Vec<Option<usize>>,
 }
 
+/// The tagged pictures the kNN part leans on.
+struct Neighbours {
+    scorer: KnnScorer,
+    /// For each item row, its row among the scorer's pictures (tagged ones only).
+    row: Vec<Option<usize>>,
+}
+
+/// Every indexed item, by relative path (unique, so an unstable sort on every core).
+fn items_by_path(store: &Store) -> Result<Vec<ItemRecord>> {
+    let mut items = store.items()?;
+    items.par_sort_unstable_by(|a, b| a.rel_path.cmp(&b.rel_path));
+    Ok(items)
+}
+
 /// A trained store opened for questions.
 pub struct Queries {
     root: PathBuf,
@@ -154,9 +168,11 @@ pub struct Queries {
     search: OnceLock<CodeSearch>,
     /// Reads the codes for `search` (the commands; the page loads the search at open).
     code_reader: Option<VectorReader>,
-    neighbours: KnnScorer,
-    /// For each item row, its row among the neighbours' pictures (tagged ones only).
-    neighbour_row: Vec<Option<usize>>,
+    /// The kNN part, gathered when first needed: the audit's shares always need it,
+    /// suggestions only when the trained blend gives it weight.
+    neighbours: OnceLock<Neighbours>,
+    /// Answers for the kNN part where the blend gives it no weight.
+    no_neighbours: KnnScorer,
     columns: TagColumns,
     extractor: Option<FeatureExtractor>,
     /// The tagged pictures to judge familiarity by (see [`Familiarity`]), once asked.
@@ -175,8 +191,7 @@ impl Queries {
     /// features are held in memory, packed (the review page).
     pub fn open_to_keep(store: &Store) -> Result<Queries> {
         let reader = store.vector_reader(FEATURES)?;
-        let mut items = store.items()?;
-        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+        let items = items_by_path(store)?;
         let held = items
             .par_iter()
             .map(|item| reader.get_packed(&item.id))
@@ -185,9 +200,7 @@ impl Queries {
     }
 
     fn open_with(store: &Store, features: FeatureSource) -> Result<Queries> {
-        let mut items = store.items()?;
-        items.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
-        Queries::open_sorted(store, items, features)
+        Queries::open_sorted(store, items_by_path(store)?, features)
     }
 
     fn open_sorted(
@@ -207,8 +220,8 @@ impl Queries {
             features,
             search: OnceLock::new(),
             code_reader: Some(store.vector_reader(CODES)?),
-            neighbours: trained.empty_neighbours(),
-            neighbour_row: Vec::new(),
+            neighbours: OnceLock::new(),
+            no_neighbours: trained.empty_neighbours(),
             columns: trained.columns(),
             trained,
             memory: familiar::MemoryCache::new(),
@@ -218,7 +231,10 @@ impl Queries {
             queries.code_search()?;
             queries.code_reader = None;
         }
-        queries.gather_neighbours()?;
+        if keeps_features {
+            // The page asks for shares at once; gather while it starts.
+            queries.neighbours()?;
+        }
         Ok(queries)
     }
 
@@ -243,10 +259,16 @@ impl Queries {
         }))
     }
 
-    /// Gives the kNN part every described picture carrying a tag the model knows, a batch
-    /// at a time.
-    fn gather_neighbours(&mut self) -> Result<()> {
-        self.neighbour_row = vec![None; self.items.len()];
+    /// The kNN part: every described picture carrying a tag the model knows, read a
+    /// batch at a time when first asked.
+    fn neighbours(&self) -> Result<&Neighbours> {
+        if let Some(gathered) = self.neighbours.get() {
+            return Ok(gathered);
+        }
+        let mut gathered = Neighbours {
+            scorer: self.trained.empty_neighbours(),
+            row: vec![None; self.items.len()],
+        };
         let tagged: Vec<usize> = (0..self.items.len())
             .filter(|&i| !self.columns.encode(&self.items[i].tags).is_empty())
             .collect();
@@ -256,13 +278,26 @@ impl Queries {
                 .iter()
                 .map(|&r| self.columns.encode(&self.items[r].tags))
                 .collect();
-            let first = self.neighbours.train_len();
+            let first = gathered.scorer.train_len();
             for (j, &r) in described.iter().enumerate() {
-                self.neighbour_row[r] = Some(first + j);
+                gathered.row[r] = Some(first + j);
             }
-            self.neighbours.add_train_pictures(x.view(), &tags);
+            gathered.scorer.add_train_pictures(x.view(), &tags);
         }
-        Ok(())
+        Ok(self.neighbours.get_or_init(|| gathered))
+    }
+
+    /// The kNN part as suggestions use it, and for each of `rows` the picture it must
+    /// not lean on (itself); empty when the blend gives the kNN part no weight.
+    fn neighbours_for_suggestions(
+        &self,
+        rows: impl Iterator<Item = usize>,
+    ) -> Result<(&KnnScorer, Vec<Option<usize>>)> {
+        if !self.trained.suggester.leans_on_neighbours() {
+            return Ok((&self.no_neighbours, rows.map(|_| None).collect()));
+        }
+        let neighbours = self.neighbours()?;
+        Ok((&neighbours.scorer, rows.map(|r| neighbours.row[r]).collect()))
     }
 
     /// The features of item rows, scaled for the model, of those that have features (the
@@ -393,16 +428,14 @@ impl Queries {
                 continue;
             }
             let x = x.select(Axis(0), &positions);
-            let exclude: Vec<Option<usize>> = positions
-                .iter()
-                .map(|&i| self.neighbour_row[rows[i]])
-                .collect();
+            let (neighbours, exclude) =
+                self.neighbours_for_suggestions(positions.iter().map(|&i| rows[i]))?;
             let p = if with_tags {
                 let shown: Vec<Vec<usize>> =
                     positions.iter().map(|&i| carried[i].clone()).collect();
-                suggester.suggest_given(x.view(), &shown, &self.neighbours, &exclude)?
+                suggester.suggest_given(x.view(), &shown, neighbours, &exclude)?
             } else {
-                suggester.suggest(x.view(), &self.neighbours, &exclude)?
+                suggester.suggest(x.view(), neighbours, &exclude)?
             };
             for (&i, row) in positions.iter().zip(p.outer_iter()) {
                 out.row_mut(i).assign(&row);
@@ -443,28 +476,25 @@ impl Queries {
     }
 
     fn shares_scaled(&self, rows: &[usize], x: ArrayView2<f32>) -> Result<Array2<f32>> {
-        let exclude: Vec<Option<usize>> = rows.iter().map(|&r| self.neighbour_row[r]).collect();
-        Ok(self.neighbours.shares_excluding(x, &exclude)?)
+        let neighbours = self.neighbours()?;
+        let exclude: Vec<Option<usize>> = rows.iter().map(|&r| neighbours.row[r]).collect();
+        Ok(neighbours.scorer.shares_excluding(x, &exclude)?)
     }
 
     /// Tag probabilities for a picture file outside the index, described on the fly
     /// with the collection's own feature extractor.
     pub fn suggest_file(&self, path: &Path) -> Result<Vec<f32>> {
         let x = self.scaled_file(path)?;
-        let p = self
-            .trained
-            .suggester
-            .suggest(x.view(), &self.neighbours, &[])?;
+        let (neighbours, _) = self.neighbours_for_suggestions(std::iter::empty())?;
+        let p = self.trained.suggester.suggest(x.view(), neighbours, &[])?;
         Ok(p.row(0).to_vec())
     }
 
     /// [`Self::suggest_file`] and how far the picture lies from the tagged pictures.
     pub fn judge_file(&self, path: &Path) -> Result<(Vec<f32>, Familiarity)> {
         let x = self.scaled_file(path)?;
-        let p = self
-            .trained
-            .suggester
-            .suggest(x.view(), &self.neighbours, &[])?;
+        let (neighbours, _) = self.neighbours_for_suggestions(std::iter::empty())?;
+        let p = self.trained.suggester.suggest(x.view(), neighbours, &[])?;
         let familiarity = self.familiarity_of_features(x.row(0))?;
 
         Ok((p.row(0).to_vec(), familiarity))

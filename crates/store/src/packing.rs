@@ -68,6 +68,15 @@ fn pack_blocks(values: &[f32]) -> Vec<u8> {
     bytes
 }
 
+/// The bytes of a vector kept as unit bytes (one byte a value of [0, 1]); `None` for any
+/// other layout.
+pub(crate) fn unit_bytes(bytes: &[u8]) -> Option<&[u8]> {
+    match bytes.split_first() {
+        Some((&UNIT_BYTES, body)) => Some(body),
+        _ => None,
+    }
+}
+
 /// The values of stored bytes, or what is wrong with them.
 pub fn unpack(bytes: &[u8]) -> Result<Vec<f32>, &'static str> {
     let (&layout, body) = bytes.split_first().ok_or("an empty vector entry")?;

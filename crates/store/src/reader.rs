@@ -3,6 +3,8 @@
 
 use std::path::{Path, PathBuf};
 
+use rayon::prelude::*;
+
 use crate::vector_log::{Location, VectorFiles};
 use crate::{packing, Result, StoreError};
 
@@ -34,6 +36,35 @@ impl VectorReader {
             let values = reader.read_at(&value, &id)?.values(&reader.dir, &id)?;
             Ok((id, values))
         })
+    }
+
+    /// Every vector of the kind as the store keeps it, `(id, vector)` in id order, handed
+    /// to `take` `batch` at a time; each batch is read from the files on every core.
+    pub fn packed_in_batches(
+        &self,
+        batch: usize,
+        mut take: impl FnMut(Vec<(String, PackedVector)>) -> Result<()>,
+    ) -> Result<()> {
+        let mut located: Vec<(String, sled::IVec)> = Vec::with_capacity(batch);
+        let mut read_and_take = |located: &mut Vec<(String, sled::IVec)>| {
+            let read = located
+                .par_iter()
+                .map(|(id, location)| Ok((id.clone(), self.read_at(location, id)?)))
+                .collect::<Result<Vec<_>>>()?;
+            located.clear();
+            take(read)
+        };
+        for entry in self.tree.iter() {
+            let (key, location) = entry.map_err(|source| self.db_error(source))?;
+            located.push((String::from_utf8_lossy(&key).into_owned(), location));
+            if located.len() == batch {
+                read_and_take(&mut located)?;
+            }
+        }
+        if !located.is_empty() {
+            read_and_take(&mut located)?;
+        }
+        Ok(())
     }
 
     /// One item's vector as the store keeps it (compact); `None` when it has none yet.
@@ -82,5 +113,10 @@ impl PackedVector {
 
     pub(crate) fn bytes(&self) -> &[u8] {
         &self.0
+    }
+
+    /// The values as unit bytes (`round(v · 255)`), when the vector is kept so.
+    pub(crate) fn unit_bytes(&self) -> Option<&[u8]> {
+        packing::unit_bytes(&self.0)
     }
 }

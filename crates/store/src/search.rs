@@ -22,7 +22,7 @@ use std::collections::BinaryHeap;
 
 use rayon::prelude::*;
 
-use crate::{Result, Store, StoreError, VectorReader};
+use crate::{PackedVector, Result, Store, StoreError, VectorReader};
 
 /// Candidates kept by the Hamming pre-filter when the caller has no better idea. On
 /// 1,000,000 synthetic 256-unit codes (`tools/code-search-bench`) recall@10 against exact
@@ -91,7 +91,13 @@ pub struct CodeIndex {
 /// Adds codes one at a time, so loading from the store never holds the float codes at once.
 pub struct CodeIndexBuilder {
     index: CodeIndex,
+    /// Per unit, the smallest byte `b` whose value `b / 255` lies above the unit's hash
+    /// threshold (256: none), so a code kept as bytes hashes as its values would.
+    lowest_byte_above: Vec<u16>,
 }
+
+/// Codes read from the store at once while the search loads (16 MB of 256-unit codes).
+const LOAD_BATCH: usize = 65_536;
 
 impl CodeIndexBuilder {
     /// An empty index for codes of `dim` units hashed against `hash_thresholds` (one per unit).
@@ -107,6 +113,14 @@ impl CodeIndexBuilder {
                 thresholds: hash_thresholds.to_vec(),
                 ids: IdTable::default(),
             },
+            lowest_byte_above: hash_thresholds
+                .iter()
+                .map(|&t| {
+                    (0..=255u16)
+                        .find(|&b| f32::from(b as u8) / 255.0 > t)
+                        .unwrap_or(256)
+                })
+                .collect(),
         })
     }
 
@@ -128,6 +142,39 @@ impl CodeIndexBuilder {
             &mut index.hashes[hash_start..],
         );
         index.inv_norms.push(inv_norm);
+        index.ids.push(id);
+        Ok(())
+    }
+
+    /// Adds one item's code as the store keeps it. Codes kept as unit bytes are taken as
+    /// they are (the bytes `push` would make of their values, and the same hash bits);
+    /// any other is read as values first.
+    pub(crate) fn push_packed(
+        &mut self,
+        id: &str,
+        packed: &PackedVector,
+        reader: &VectorReader,
+    ) -> Result<()> {
+        let bytes = match packed.unit_bytes() {
+            Some(bytes) if bytes.len() == self.index.dim => bytes,
+            _ => return self.push(id, &packed.values(&reader.dir, id)?),
+        };
+        let index = &mut self.index;
+        if index.len() >= u32::MAX as usize {
+            return Err(too_many_rows());
+        }
+        index.codes.extend_from_slice(bytes);
+        let hash_start = index.hashes.len();
+        index.hashes.resize(hash_start + index.words, 0);
+        let hash = &mut index.hashes[hash_start..];
+        let mut squares = 0u64;
+        for (j, (&b, &lowest_above)) in bytes.iter().zip(&self.lowest_byte_above).enumerate() {
+            squares += u64::from(b) * u64::from(b);
+            if u16::from(b) >= lowest_above {
+                hash[j / 64] |= 1 << (j % 64);
+            }
+        }
+        index.inv_norms.push(inv_sqrt(squares as f64));
         index.ids.push(id);
         Ok(())
     }
@@ -210,10 +257,12 @@ impl CodeIndex {
     /// [`Self::load`] through a reader of the codes' kind (while its store is open).
     pub fn load_from(codes: &VectorReader, hash_thresholds: &[f32]) -> Result<CodeIndex> {
         let mut builder = CodeIndexBuilder::new(hash_thresholds.len(), hash_thresholds)?;
-        for row in codes.iter() {
-            let (id, code) = row?;
-            builder.push(&id, &code)?;
-        }
+        codes.packed_in_batches(LOAD_BATCH, |batch| {
+            for (id, packed) in batch {
+                builder.push_packed(&id, &packed, codes)?;
+            }
+            Ok(())
+        })?;
         Ok(builder.finish())
     }
 

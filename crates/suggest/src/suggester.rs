@@ -238,6 +238,12 @@ impl TagSuggester {
         Ok(calibrated(blended, &self.completion.calibration))
     }
 
+    /// Whether either blend gives the kNN part any weight; when neither does, the
+    /// neighbours need not be gathered (an empty [`KnnScorer`] answers the same).
+    pub fn leans_on_neighbours(&self) -> bool {
+        self.picture_weights[2] > 0.0 || self.completion.weights[3] > 0.0
+    }
+
     /// Whether the completion blend gives carried tags any weight (through the network
     /// given them or through co-occurrence); where the validation fold found them
     /// uninformative it gives them none.
@@ -455,6 +461,26 @@ mod tests {
             .suggest(test_x, &suggester.neighbours(&train), &[])
             .unwrap();
         assert_eq!(again, p);
+
+        // A blend that gives the kNN part no weight answers the same without it.
+        let mut unneighbourly = suggester.clone();
+        unneighbourly.picture_weights = [0.5, 0.5, 0.0];
+        unneighbourly.completion.weights[3] = 0.0;
+        assert!(!unneighbourly.leans_on_neighbours());
+        let none = KnnScorer::empty(suggester.k, 10);
+        let exclude = vec![None; 60];
+        assert_eq!(
+            unneighbourly.suggest(test_x, &knn, &[]).unwrap(),
+            unneighbourly.suggest(test_x, &none, &exclude).unwrap()
+        );
+        assert_eq!(
+            unneighbourly
+                .suggest_given(test_x, &carried, &knn, &[])
+                .unwrap(),
+            unneighbourly
+                .suggest_given(test_x, &carried, &none, &exclude)
+                .unwrap()
+        );
     }
 
     // Outside the validation fold the train pictures are noise and only their variants

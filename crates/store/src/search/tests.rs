@@ -499,3 +499,37 @@ fn vectors_of_kind_returns_only_that_kind_in_id_order_and_loads() {
         "wrong length"
     );
 }
+
+#[test]
+fn codes_loaded_as_bytes_hash_as_their_values_even_on_the_thresholds() {
+    // Every byte in every unit, with thresholds on the byte grid and between its steps:
+    // loading takes the stored bytes as they are, and must give the index that building
+    // from the values gives.
+    let temp = tempfile::tempdir().unwrap();
+    let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
+    let dim = 64;
+    let n = 256;
+    let thresholds: Vec<f32> = (0..dim)
+        .map(|j| {
+            let step = (j * 4) as f32;
+            if j % 2 == 0 {
+                step / 255.0
+            } else {
+                (step + 0.5) / 255.0
+            }
+        })
+        .collect();
+    let codes: Vec<f32> = (0..n)
+        .flat_map(|i| (0..dim).map(move |j| ((i + j) % 256) as f32 / 255.0))
+        .collect();
+    let rows: Vec<(String, Vec<f32>)> = ids(n)
+        .into_iter()
+        .zip(codes.chunks(dim).map(<[f32]>::to_vec))
+        .collect();
+    store.put_vectors("code", &rows).unwrap();
+    let loaded = CodeIndex::load(&store, "code", &thresholds).unwrap();
+    assert_eq!(
+        loaded,
+        CodeIndex::build(ids(n), &codes, dim, &thresholds).unwrap()
+    );
+}
