@@ -297,7 +297,10 @@ impl Queries {
             return Ok((&self.no_neighbours, rows.map(|_| None).collect()));
         }
         let neighbours = self.neighbours()?;
-        Ok((&neighbours.scorer, rows.map(|r| neighbours.row[r]).collect()))
+        Ok((
+            &neighbours.scorer,
+            rows.map(|r| neighbours.row[r]).collect(),
+        ))
     }
 
     /// The features of item rows, scaled for the model, of those that have features (the

@@ -3,10 +3,9 @@
 //! Walking a million records in sled and decoding each took 4.8 s with the disk cache warm
 //! and 7 s cold; every question starts by reading them. The list holds the same records
 //! (as the database stores them, length-prefixed) so they are read with one `read` and
-//! decoded on every core. It exists only while it is true: it is deleted before any item
-//! changes and written again by the next reader of all items, under the store's lock.
+//! decoded on every core. Like every derived file (`derived`) it exists only while it is
+//! true.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use rayon::prelude::*;
@@ -66,28 +65,4 @@ pub(crate) fn count(path: &Path) -> Option<usize> {
     std::io::Read::read_exact(&mut std::fs::File::open(path).ok()?, &mut header).ok()?;
     let count = header.strip_prefix(MAGIC.as_slice())?;
     Some(u64::from_le_bytes(count.try_into().ok()?) as usize)
-}
-
-/// Writes the list through a temporary file renamed into place, so a reader finds the
-/// whole list or none.
-pub(crate) fn write(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
-    let temporary = path.with_extension("tmp");
-    let written = (|| {
-        let mut file = std::fs::File::create(&temporary)?;
-        file.write_all(bytes)?;
-        file.sync_data()?;
-        std::fs::rename(&temporary, path)
-    })();
-    if written.is_err() {
-        let _ = std::fs::remove_file(&temporary);
-    }
-    written
-}
-
-/// Deletes the list (before items change); a list already gone is fine.
-pub(crate) fn remove(path: &Path) -> std::io::Result<()> {
-    match std::fs::remove_file(path) {
-        Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(e),
-        _ => Ok(()),
-    }
 }

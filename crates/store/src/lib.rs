@@ -4,6 +4,7 @@
 //! sidecars, so a format change or a damaged store is answered with "rebuild", never with
 //! a guess. One process at a time holds a store; the lock dies with the process.
 
+mod derived;
 mod error;
 mod item_list;
 mod layout;
@@ -73,9 +74,9 @@ pub struct Store {
     meta: sled::Tree,
     items: sled::Tree,
     blobs: sled::Tree,
-    /// Counts changes of the items in this process, so a list of them read before a
-    /// change is never written after it (`item_list`).
-    items_changed: std::sync::Mutex<u64>,
+    /// Counts changes, so a derived file (the item list, a saved code index) read before
+    /// a change is never written after it.
+    changes: derived::Changes,
     /// Set once the database reported an error: sled's flush then waits forever (seen
     /// with a full disk), so nothing flushes it on drop.
     failed: std::sync::atomic::AtomicBool,
@@ -228,7 +229,7 @@ impl Store {
             meta: tree("meta")?,
             items: tree("items")?,
             blobs: tree("blobs")?,
-            items_changed: std::sync::Mutex::new(0),
+            changes: derived::Changes::default(),
             failed: std::sync::atomic::AtomicBool::new(false),
             db,
             _lock: lock,
@@ -285,7 +286,7 @@ impl Store {
         if let Some(listed) = item_list::read(&list, |key, bytes| self.decode(key, bytes)) {
             return Ok(listed);
         }
-        let seen = *self.items_changed.lock().unwrap_or_else(|e| e.into_inner());
+        let seen = self.changes.seen();
         let stored: Vec<(sled::IVec, sled::IVec)> = self
             .items
             .iter()
@@ -297,10 +298,7 @@ impl Store {
             .collect::<Result<Vec<ItemRecord>>>()?;
         let bytes = item_list::encode(stored.iter().map(|(_, value)| value));
         drop(stored);
-        let changed = self.items_changed.lock().unwrap_or_else(|e| e.into_inner());
-        if *changed == seen {
-            let _ = item_list::write(&list, &bytes);
-        }
+        self.changes.write_if_unchanged(seen, &list, &bytes);
         Ok(items)
     }
 
@@ -323,12 +321,7 @@ impl Store {
     /// bytes changed, or that is gone, are dropped with it.
     pub fn update_items(&self, upserts: &[ItemRecord], removals: &[String]) -> Result<()> {
         if !upserts.is_empty() || !removals.is_empty() {
-            let mut changed = self.items_changed.lock().unwrap_or_else(|e| e.into_inner());
-            *changed += 1;
-            let list = item_list::path_in(&self.dir);
-            item_list::remove(&list).map_err(|source| {
-                disk_full_named(&self.dir, StoreError::Io { path: list, source })
-            })?;
+            self.before_change(vec![item_list::path_in(&self.dir)])?;
         }
         let mut stale: Vec<&str> = removals.iter().map(String::as_str).collect();
         for item in upserts {
@@ -341,7 +334,9 @@ impl Store {
         // Vectors go first, flushed: a crash in between leaves an item without vectors
         // (recomputed by the next scan), never an item with vectors of other bytes.
         if !stale.is_empty() {
-            for kind in self.vector_kinds()? {
+            let kinds = self.vector_kinds()?;
+            self.before_change(kinds.iter().map(|k| self.saved_search(k)).collect())?;
+            for kind in kinds {
                 let tree = self.vector_tree(&kind)?;
                 let mut vector_batch = sled::Batch::default();
                 for id in &stale {
@@ -451,6 +446,7 @@ impl Store {
     pub fn put_vectors(&self, kind: &str, rows: &[(String, Vec<f32>)]) -> Result<()> {
         let files = self.vector_files(kind)?;
         let tree = self.vector_tree(kind)?;
+        self.before_change(vec![self.saved_search(kind)])?;
         let packed: Vec<Vec<u8>> = rows
             .iter()
             .map(|(_, values)| packing::pack(kind, values))
@@ -489,6 +485,8 @@ impl Store {
             tree: self.vector_tree(kind)?,
             files: self.vector_files(kind)?,
             dir: self.dir.clone(),
+            kind: kind.to_string(),
+            changes: self.changes.clone(),
         })
     }
 
@@ -520,6 +518,7 @@ impl Store {
 
     /// Drops every vector of one kind (for example after relearning features).
     pub fn clear_vectors(&self, kind: &str) -> Result<()> {
+        self.before_change(vec![self.saved_search(kind)])?;
         self.vector_tree(kind)?
             .clear()
             .map_err(|e| self.db_error(e))?;
@@ -543,6 +542,23 @@ impl Store {
             )));
         }
         Ok(VectorFiles::new(&self.dir, kind))
+    }
+
+    /// Counts a change and deletes the derived files it makes untrue (`derived`).
+    fn before_change(&self, untrue: Vec<PathBuf>) -> Result<()> {
+        self.changes.before(&untrue).map_err(|source| {
+            disk_full_named(
+                &self.dir,
+                StoreError::Io {
+                    path: self.dir.clone(),
+                    source,
+                },
+            )
+        })
+    }
+
+    fn saved_search(&self, kind: &str) -> PathBuf {
+        search::saved_path(&self.dir, kind)
     }
 
     /// Every vector kind the store holds.

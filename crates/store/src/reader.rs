@@ -17,6 +17,9 @@ pub struct VectorReader {
     pub(crate) tree: sled::Tree,
     pub(crate) files: VectorFiles,
     pub(crate) dir: PathBuf,
+    pub(crate) kind: String,
+    /// The store's change count, so files derived from these vectors stay true.
+    pub(crate) changes: crate::derived::Changes,
 }
 
 impl VectorReader {

@@ -14,8 +14,11 @@
 //! the same numbers; equal similarities are ordered by row.
 
 mod kernels;
+mod saved;
 #[cfg(test)]
 mod tests;
+
+pub(crate) use saved::path_in as saved_path;
 
 use std::cmp::Ordering;
 use std::collections::BinaryHeap;
@@ -255,7 +258,22 @@ impl CodeIndex {
     }
 
     /// [`Self::load`] through a reader of the codes' kind (while its store is open).
+    /// The index saved beside the database when there is one (and it was hashed alike),
+    /// else built from the codes and saved for the next load.
     pub fn load_from(codes: &VectorReader, hash_thresholds: &[f32]) -> Result<CodeIndex> {
+        let path = saved::path_in(&codes.dir, &codes.kind);
+        if let Some(index) = saved::read(&path, hash_thresholds) {
+            return Ok(index);
+        }
+        let seen = codes.changes.seen();
+        let index = CodeIndex::build_from(codes, hash_thresholds)?;
+        codes
+            .changes
+            .write_if_unchanged(seen, &path, &saved::encode(&index));
+        Ok(index)
+    }
+
+    fn build_from(codes: &VectorReader, hash_thresholds: &[f32]) -> Result<CodeIndex> {
         let mut builder = CodeIndexBuilder::new(hash_thresholds.len(), hash_thresholds)?;
         codes.packed_in_batches(LOAD_BATCH, |batch| {
             for (id, packed) in batch {

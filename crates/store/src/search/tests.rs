@@ -533,3 +533,60 @@ fn codes_loaded_as_bytes_hash_as_their_values_even_on_the_thresholds() {
         CodeIndex::build(ids(n), &codes, dim, &thresholds).unwrap()
     );
 }
+
+#[test]
+fn a_saved_index_is_read_back_only_while_the_codes_and_thresholds_are_unchanged() {
+    let temp = tempfile::tempdir().unwrap();
+    let store = Store::open_or_create(&temp.path().join(".tagweave"), temp.path()).unwrap();
+    let (n, dim) = (40, 70);
+    let codes = clustered(n, dim, 5);
+    let rows: Vec<(String, Vec<f32>)> = ids(n)
+        .into_iter()
+        .zip(codes.chunks(dim).map(<[f32]>::to_vec))
+        .collect();
+    store.put_vectors("code", &rows).unwrap();
+    let thresholds = medians(&codes, dim);
+    let saved = super::saved_path(store.dir(), "code");
+    assert!(!saved.exists());
+    let built = CodeIndex::load(&store, "code", &thresholds).unwrap();
+    assert!(saved.exists(), "the first load saves the index");
+    assert_eq!(CodeIndex::load(&store, "code", &thresholds).unwrap(), built);
+    assert_eq!(super::saved::read(&saved, &thresholds), Some(built.clone()));
+
+    // Other thresholds (another model): not taken from the file.
+    let other: Vec<f32> = thresholds.iter().map(|t| t * 0.5).collect();
+    assert_eq!(super::saved::read(&saved, &other), None);
+    assert_eq!(
+        CodeIndex::load(&store, "code", &other).unwrap(),
+        CodeIndex::build(ids(n), &on_grid(&codes), dim, &other).unwrap()
+    );
+
+    // A changed code deletes the file first; the next load sees the change.
+    let mut changed = rows.clone();
+    changed[3].1 = vec![1.0; dim];
+    store.put_vectors("code", &changed[3..4]).unwrap();
+    assert!(!saved.exists(), "a change deletes the saved index");
+    let after: Vec<f32> = changed.iter().flat_map(|(_, c)| c.clone()).collect();
+    let expected = CodeIndex::build(ids(n), &on_grid(&after), dim, &thresholds).unwrap();
+    assert_eq!(
+        CodeIndex::load(&store, "code", &thresholds).unwrap(),
+        expected
+    );
+
+    // A file cut short is read past, and written whole again.
+    let bytes = std::fs::read(&saved).unwrap();
+    std::fs::write(&saved, &bytes[..bytes.len() - 1]).unwrap();
+    assert_eq!(
+        CodeIndex::load(&store, "code", &thresholds).unwrap(),
+        expected
+    );
+    assert_eq!(std::fs::read(&saved).unwrap(), bytes);
+
+    // Clearing the codes deletes it too.
+    store.clear_vectors("code").unwrap();
+    assert!(!saved.exists());
+}
+
+fn on_grid(codes: &[f32]) -> Vec<f32> {
+    codes.iter().map(|v| (v * 255.0).round() / 255.0).collect()
+}

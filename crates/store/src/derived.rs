@@ -1,0 +1,58 @@
+//! Files derived from the database and kept beside it for a fast start (the item list,
+//! saved code indexes). Each exists only while it is true: a change deletes it first
+//! (`Changes::before`), and a reader writes it again only if nothing changed in this
+//! process since it read what the file holds (`Changes::write_if_unchanged`); other
+//! processes are kept out by the store's lock.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex};
+
+/// Counts changes to what derived files hold, shared by a store and its readers.
+#[derive(Clone, Default)]
+pub(crate) struct Changes(Arc<Mutex<u64>>);
+
+impl Changes {
+    /// The count now, to hand back to [`Self::write_if_unchanged`].
+    pub(crate) fn seen(&self) -> u64 {
+        *self.0.lock().unwrap_or_else(|e| e.into_inner())
+    }
+
+    /// Counts a change and deletes the derived files it makes untrue.
+    pub(crate) fn before(&self, untrue: &[PathBuf]) -> std::io::Result<()> {
+        let mut count = self.0.lock().unwrap_or_else(|e| e.into_inner());
+        *count += 1;
+        for path in untrue {
+            match std::fs::remove_file(path) {
+                Err(e) if e.kind() != std::io::ErrorKind::NotFound => return Err(e),
+                _ => {}
+            }
+        }
+        Ok(())
+    }
+
+    /// Writes `bytes` to `path` if nothing changed since `seen`. Best effort: a store
+    /// that cannot take the file (full disk, read-only) only starts slower next time.
+    pub(crate) fn write_if_unchanged(&self, seen: u64, path: &Path, bytes: &[u8]) {
+        let count = self.0.lock().unwrap_or_else(|e| e.into_inner());
+        if *count == seen {
+            let _ = write_whole(path, bytes);
+        }
+    }
+}
+
+/// Writes through a temporary file renamed into place, so a reader finds the whole file
+/// or none.
+fn write_whole(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    let temporary = path.with_extension("tmp");
+    let written = (|| {
+        let mut file = std::fs::File::create(&temporary)?;
+        file.write_all(bytes)?;
+        file.sync_data()?;
+        std::fs::rename(&temporary, path)
+    })();
+    if written.is_err() {
+        let _ = std::fs::remove_file(&temporary);
+    }
+    written
+}
