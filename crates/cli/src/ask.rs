@@ -1,5 +1,6 @@
 //! `find`, `suggest`, `shift` and `audit`: questions to a trained collection.
 
+use std::mem::ManuallyDrop;
 use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context};
@@ -100,10 +101,13 @@ pub struct AuditArgs {
     pub json: bool,
 }
 
-fn open(store: &StoreArgs) -> anyhow::Result<(Store, Queries)> {
+/// The store and its questions. The questions are never dropped: the process ends after
+/// its answer, and freeing a million item records one by one took half a second of a
+/// three-second `suggest`; the store still closes (and flushes) as usual.
+fn open(store: &StoreArgs) -> anyhow::Result<(Store, ManuallyDrop<Queries>)> {
     let store = store_path::open_existing(store.store.as_deref())?;
     let queries = Queries::open(&store)?;
-    Ok((store, queries))
+    Ok((store, ManuallyDrop::new(queries)))
 }
 
 impl RankArgs {
