@@ -298,7 +298,7 @@ pub fn code_missing(
     let features = store.vector_reader(FEATURES)?;
     let mut missing = Vec::new();
     for item in store.items()? {
-        if codes.get_packed(&item.id)?.is_none() {
+        if !codes.has(&item.id)? {
             missing.push(item.id);
         }
     }

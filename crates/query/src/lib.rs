@@ -14,7 +14,7 @@ use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
 use tagweave_store::{
-    CodeIndex, PackedVector, SearchMode, Store, StoreError, VectorReader, CODES, EXTRACTOR_BLOB,
+    CodeIndex, HeldVectors, SearchMode, Store, StoreError, VectorReader, CODES, EXTRACTOR_BLOB,
     FEATURES,
 };
 use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_FORMAT};
@@ -128,9 +128,9 @@ enum FeatureSource {
     /// From the open store, a picture at a time: memory follows what is asked, not the
     /// size of the collection (the commands).
     Store(VectorReader),
-    /// Held as the store keeps them, by item row (the review page, which lets the store
-    /// go while it runs): 1.25 bytes a value.
-    Held(Vec<Option<PackedVector>>),
+    /// Where each lies, by item row, with the files held open (the review page, which lets
+    /// the store go while it runs): 16 bytes a picture in memory.
+    Held(HeldVectors),
 }
 
 /// Every picture's code, searchable, and the item of each.
@@ -162,8 +162,6 @@ pub struct Queries {
     /// Every indexed picture, by relative path.
     items: Vec<ItemRecord>,
     features: FeatureSource,
-    /// The store folder (named when a held vector turns out damaged).
-    store_dir: PathBuf,
     /// The code search, loaded when first asked (suggestions and the audit never need it).
     search: OnceLock<CodeSearch>,
     /// Reads the codes for `search` (the commands; the page loads the search at open).
@@ -187,15 +185,13 @@ impl Queries {
         Queries::open_with(store, FeatureSource::Store(reader))
     }
 
-    /// Opens a trained store for questions asked after it is closed: every picture's
-    /// features are held in memory, packed (the review page).
+    /// Opens a trained store for questions asked after it is closed (the review page):
+    /// where every picture's features lie is held, with their files open, and the
+    /// features read as they were at open, whatever is written since.
     pub fn open_to_keep(store: &Store) -> Result<Queries> {
-        let reader = store.vector_reader(FEATURES)?;
         let items = items_by_path(store)?;
-        let held = items
-            .par_iter()
-            .map(|item| reader.get_packed(&item.id))
-            .collect::<std::result::Result<Vec<_>, _>>()?;
+        let ids: Vec<&str> = items.iter().map(|item| item.id.as_str()).collect();
+        let held = store.vector_reader(FEATURES)?.hold(&ids)?;
         Queries::open_sorted(store, items, FeatureSource::Held(held))
     }
 
@@ -215,7 +211,6 @@ impl Queries {
         let mut queries = Queries {
             root: store.collection_root().to_path_buf(),
             extractor: store.blob(EXTRACTOR_BLOB)?,
-            store_dir: store.dir().to_path_buf(),
             items,
             features,
             search: OnceLock::new(),
@@ -345,8 +340,8 @@ impl Queries {
     /// Whether an indexed picture has features (a cut-short scan leaves some without).
     pub fn is_described(&self, row: usize) -> Result<bool> {
         Ok(match &self.features {
-            FeatureSource::Store(reader) => reader.get_packed(&self.items[row].id)?.is_some(),
-            FeatureSource::Held(held) => held[row].is_some(),
+            FeatureSource::Store(reader) => reader.has(&self.items[row].id)?,
+            FeatureSource::Held(held) => held.has(row),
         })
     }
 
@@ -354,10 +349,7 @@ impl Queries {
         let id = &self.items[row].id;
         Ok(match &self.features {
             FeatureSource::Store(reader) => reader.get(id)?,
-            FeatureSource::Held(held) => held[row]
-                .as_ref()
-                .map(|packed| packed.values(&self.store_dir, id))
-                .transpose()?,
+            FeatureSource::Held(held) => held.get(row, id)?,
         })
     }
 

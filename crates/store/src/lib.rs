@@ -24,7 +24,7 @@ use tagweave_collection::{ItemRecord, Vocabulary};
 pub use error::StoreError;
 pub use layout::{CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
 use lock::StoreLock;
-pub use reader::{PackedVector, VectorReader};
+pub use reader::{HeldVectors, PackedVector, VectorReader};
 pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
 pub use table::FeatureTable;
 use vector_log::{Location, VectorFiles};

@@ -70,6 +70,36 @@ impl VectorReader {
         Ok(())
     }
 
+    /// Where the vectors of `ids` lie, with their files held open, to read after the store
+    /// is closed (the review page, which lets the store go while it runs). They read as
+    /// they were when taken: the files are only appended to, and a file that a compaction
+    /// or a rebuild deletes stays readable through a handle opened before.
+    pub fn hold(&self, ids: &[&str]) -> Result<HeldVectors> {
+        let locations = ids
+            .par_iter()
+            .map(|id| {
+                let held = self
+                    .tree
+                    .get(id.as_bytes())
+                    .map_err(|source| self.db_error(source))?;
+                held.map(|bytes| self.location(&bytes, id)).transpose()
+            })
+            .collect::<Result<Vec<_>>>()?;
+        self.files.open_all()?;
+        Ok(HeldVectors {
+            files: self.files.clone(),
+            locations,
+            dir: self.dir.clone(),
+        })
+    }
+
+    /// Whether an item has a vector of the kind (without reading it).
+    pub fn has(&self, id: &str) -> Result<bool> {
+        self.tree
+            .contains_key(id.as_bytes())
+            .map_err(|source| self.db_error(source))
+    }
+
     /// One item's vector as the store keeps it (compact); `None` when it has none yet.
     pub fn get_packed(&self, id: &str) -> Result<Option<PackedVector>> {
         let held = self
@@ -81,16 +111,47 @@ impl VectorReader {
 
     /// The vector whose stored location is `location`.
     fn read_at(&self, location: &[u8], id: &str) -> Result<PackedVector> {
-        let location = Location::from_bytes(location).ok_or_else(|| StoreError::Corrupt {
+        let location = self.location(location, id)?;
+        Ok(PackedVector(self.files.read(location, id)?))
+    }
+
+    fn location(&self, bytes: &[u8], id: &str) -> Result<Location> {
+        Location::from_bytes(bytes).ok_or_else(|| StoreError::Corrupt {
             dir: self.dir.clone(),
             key: id.to_string(),
             detail: "its vector's location is not 16 bytes".into(),
-        })?;
-        Ok(PackedVector(self.files.read(location, id)?))
+        })
     }
 
     fn db_error(&self, source: sled::Error) -> StoreError {
         crate::database_error(&self.dir, source)
+    }
+}
+
+/// The vectors of some items as [`VectorReader::hold`] took them: 16 bytes an item in
+/// memory, the vectors read from their files when asked.
+pub struct HeldVectors {
+    files: VectorFiles,
+    /// By the position of the item in the ids given to `hold`.
+    locations: Vec<Option<Location>>,
+    dir: PathBuf,
+}
+
+impl HeldVectors {
+    /// Whether the item at `position` had a vector.
+    pub fn has(&self, position: usize) -> bool {
+        self.locations.get(position).is_some_and(Option::is_some)
+    }
+
+    /// The vector of the item at `position` (`id` names it in an error); `None` when it had
+    /// none.
+    pub fn get(&self, position: usize, id: &str) -> Result<Option<Vec<f32>>> {
+        match self.locations.get(position).copied().flatten() {
+            None => Ok(None),
+            Some(location) => PackedVector(self.files.read(location, id)?)
+                .values(&self.dir, id)
+                .map(Some),
+        }
     }
 }
 
@@ -107,11 +168,6 @@ impl PackedVector {
             key: id.to_string(),
             detail: problem.to_string(),
         })
-    }
-
-    /// Bytes it takes in memory (besides its own small header).
-    pub fn len_bytes(&self) -> usize {
-        self.0.len()
     }
 
     pub(crate) fn bytes(&self) -> &[u8] {

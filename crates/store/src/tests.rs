@@ -549,3 +549,40 @@ fn the_item_list_is_written_by_a_reader_and_never_outlives_a_change() {
     assert_eq!(store.items().unwrap(), changed);
     assert_eq!(std::fs::read(&list).unwrap(), bytes);
 }
+
+#[test]
+fn held_vectors_read_as_taken_after_compaction_clearing_and_closing() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    store
+        .put_vectors(
+            "features",
+            &[("a".into(), vec![1.0; 8]), ("b".into(), vec![2.0; 8])],
+        )
+        .unwrap();
+    let reader = store.vector_reader("features").unwrap();
+    let held = reader.hold(&["b", "none", "a"]).unwrap();
+    assert!(held.has(0) && !held.has(1) && held.has(2));
+    // Overwritten, compacted, then cleared and written anew: the held ones do not change.
+    store
+        .put_vectors("features", &[("a".into(), vec![5.0; 8])])
+        .unwrap();
+    let files = store.vector_files("features").unwrap();
+    files
+        .compact(&store.vector_tree("features").unwrap())
+        .unwrap();
+    store.clear_vectors("features").unwrap();
+    store
+        .put_vectors("features", &[("a".into(), vec![7.0; 8])])
+        .unwrap();
+    assert_eq!(
+        files.generations().unwrap(),
+        [2],
+        "generations are never reused"
+    );
+    drop(reader);
+    drop(store);
+    assert_eq!(held.get(0, "b").unwrap(), Some(vec![2.0; 8]));
+    assert_eq!(held.get(1, "none").unwrap(), None);
+    assert_eq!(held.get(2, "a").unwrap(), Some(vec![1.0; 8]));
+}

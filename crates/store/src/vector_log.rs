@@ -210,6 +210,14 @@ impl VectorFiles {
         Ok(file)
     }
 
+    /// Opens every file of the kind now, so reads keep working if a file is deleted later.
+    pub(crate) fn open_all(&self) -> Result<()> {
+        for generation in self.generations()? {
+            self.file(generation, "")?;
+        }
+        Ok(())
+    }
+
     fn damaged(&self, key: &str, detail: &str) -> StoreError {
         StoreError::Corrupt {
             dir: self.store_dir.clone(),
@@ -268,14 +276,13 @@ impl VectorFiles {
         Ok(live)
     }
 
-    /// Deletes every file of the kind (after its index was cleared).
+    /// Deletes every file of the kind (after its index was cleared), leaving an empty file
+    /// of the next generation: a generation number is never used twice, so a file handle
+    /// held open for one never reads another's bytes.
     pub(crate) fn remove_all(&self) -> Result<()> {
-        self.remove_files_below(u32::MAX)?;
-        let path = self.path_of(u32::MAX);
-        match std::fs::remove_file(&path) {
-            Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(self.io_error(&path, e)),
-            _ => Ok(()),
-        }
+        let next = self.generations()?.last().map_or(0, |g| g + 1);
+        self.append_to(next, std::iter::empty())?;
+        self.remove_files_below(next)
     }
 
     fn remove_files_below(&self, generation: u32) -> Result<()> {
