@@ -1128,6 +1128,21 @@ fn features_held_or_read_when_asked_give_the_same_answers() {
         read.neighbour_shares(&rows).unwrap(),
         held.neighbour_shares(&rows).unwrap()
     );
+    // Read once for both, a batch at a time: the same answers, each row in its place
+    // (asked alone, a row gets what it gets among all, up to float summation order).
+    let (p, shares) = read.suggest_and_shares(&rows).unwrap();
+    assert_eq!(p, read.suggest_rows(&rows).unwrap());
+    assert_eq!(shares, read.neighbour_shares(&rows).unwrap());
+    for r in (0..rows.len()).step_by(37) {
+        let alone = read.suggest_rows(&[r]).unwrap();
+        let gap = alone
+            .row(0)
+            .iter()
+            .zip(p.row(r))
+            .map(|(a, b)| (a - b).abs())
+            .fold(0.0f32, f32::max);
+        assert!(gap < 1e-4, "row {r} alone differs by {gap}");
+    }
     let (a, b) = (read.audit().unwrap(), held.audit().unwrap());
     assert_eq!(a.queue.len(), b.queue.len());
     assert!(a

@@ -9,7 +9,7 @@
 //! it is and once with one tag it does not carry added at random, and the weight that
 //! best ranks the altered copies first wins. People's tags are never the test here.
 
-use ndarray::{s, Array2, ArrayView2};
+use ndarray::ArrayView2;
 use rand::seq::IndexedRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -99,14 +99,7 @@ impl Queries {
             });
         }
         // A batch at a time: only the answers (pictures × tags) are held for every picture.
-        let mut probabilities = Array2::zeros((rows.len(), self.columns.len()));
-        let mut shares = Array2::zeros((rows.len(), self.columns.len()));
-        for (b, batch) in rows.chunks(crate::READ_BATCH).enumerate() {
-            let at = b * crate::READ_BATCH..b * crate::READ_BATCH + batch.len();
-            let (p, share) = self.suggest_and_shares(batch)?;
-            probabilities.slice_mut(s![at.clone(), ..]).assign(&p);
-            shares.slice_mut(s![at, ..]).assign(&share);
-        }
+        let (probabilities, shares) = self.suggest_and_shares(&rows)?;
         let lists: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
         let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());
         let mix = evidence.choose_mix();

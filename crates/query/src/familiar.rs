@@ -160,9 +160,13 @@ impl Queries {
 
     /// How similar each indexed picture (rows) is to the tagged pictures, itself left out.
     pub fn familiarity_of_rows(&self, rows: &[usize]) -> Result<Vec<Familiarity>> {
-        let x = self.scaled_rows(rows)?;
-        let items: Vec<Option<usize>> = rows.iter().map(|&r| Some(r)).collect();
-        Ok(self.memory()?.judge(x.view(), &items))
+        let mut judged = Vec::with_capacity(rows.len());
+        for batch in rows.chunks(crate::READ_BATCH) {
+            let x = self.scaled_rows(batch)?;
+            let items: Vec<Option<usize>> = batch.iter().map(|&r| Some(r)).collect();
+            judged.extend(self.memory()?.judge(x.view(), &items));
+        }
+        Ok(judged)
     }
 
     /// How similar a picture outside the index (its scaled features) is to the tagged

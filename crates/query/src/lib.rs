@@ -9,7 +9,7 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 use std::sync::OnceLock;
 
-use ndarray::{Array1, Array2, ArrayView2, Axis};
+use ndarray::{s, Array1, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
@@ -385,19 +385,35 @@ impl Queries {
     /// model knows is judged from its pixels and those tags together (its carried tags
     /// then come back likely; callers leave them out); the kNN part never leans on the
     /// picture itself.
+    /// Asked of many rows (every tagged picture of a million, on the page's walk), the
+    /// features are read and judged `READ_BATCH` rows at a time: only the answers are held
+    /// for all.
     pub fn suggest_rows(&self, rows: &[usize]) -> Result<Array2<f32>> {
-        let x = self.scaled_rows(rows)?;
-        self.suggest_scaled(rows, x.view())
+        let mut out = Array2::zeros((rows.len(), self.columns.len()));
+        for (b, batch) in rows.chunks(READ_BATCH).enumerate() {
+            let x = self.scaled_rows(batch)?;
+            out.slice_mut(s![b * READ_BATCH..b * READ_BATCH + batch.len(), ..])
+                .assign(&self.suggest_scaled(batch, x.view())?);
+        }
+        Ok(out)
     }
 
     /// [`Self::suggest_rows`] and [`Self::neighbour_shares`] of the same rows, their
-    /// features read once.
+    /// features read once, a batch at a time.
     pub fn suggest_and_shares(&self, rows: &[usize]) -> Result<(Array2<f32>, Array2<f32>)> {
-        let x = self.scaled_rows(rows)?;
-        Ok((
-            self.suggest_scaled(rows, x.view())?,
-            self.shares_scaled(rows, x.view())?,
-        ))
+        let mut probabilities = Array2::zeros((rows.len(), self.columns.len()));
+        let mut shares = Array2::zeros((rows.len(), self.columns.len()));
+        for (b, batch) in rows.chunks(READ_BATCH).enumerate() {
+            let at = b * READ_BATCH..b * READ_BATCH + batch.len();
+            let x = self.scaled_rows(batch)?;
+            probabilities
+                .slice_mut(s![at.clone(), ..])
+                .assign(&self.suggest_scaled(batch, x.view())?);
+            shares
+                .slice_mut(s![at, ..])
+                .assign(&self.shares_scaled(batch, x.view())?);
+        }
+        Ok((probabilities, shares))
     }
 
     /// [`Self::suggest_rows`] given the rows' scaled features `x`.
