@@ -148,13 +148,6 @@ struct Neighbours {
     row: Vec<Option<usize>>,
 }
 
-/// Every indexed item, by relative path (unique, so an unstable sort on every core).
-fn items_by_path(store: &Store) -> Result<Vec<ItemRecord>> {
-    let mut items = store.items()?;
-    items.par_sort_unstable_by(|a, b| a.rel_path.cmp(&b.rel_path));
-    Ok(items)
-}
-
 /// A trained store opened for questions.
 pub struct Queries {
     root: PathBuf,
@@ -189,14 +182,14 @@ impl Queries {
     /// where every picture's features lie is held, with their files open, and the
     /// features read as they were at open, whatever is written since.
     pub fn open_to_keep(store: &Store) -> Result<Queries> {
-        let items = items_by_path(store)?;
+        let items = store.items_by_path()?;
         let ids: Vec<&str> = items.iter().map(|item| item.id.as_str()).collect();
         let held = store.vector_reader(FEATURES)?.hold(&ids)?;
         Queries::open_sorted(store, items, FeatureSource::Held(held))
     }
 
     fn open_with(store: &Store, features: FeatureSource) -> Result<Queries> {
-        Queries::open_sorted(store, items_by_path(store)?, features)
+        Queries::open_sorted(store, store.items_by_path()?, features)
     }
 
     fn open_sorted(

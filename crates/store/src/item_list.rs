@@ -11,8 +11,9 @@ use std::path::{Path, PathBuf};
 use rayon::prelude::*;
 use tagweave_collection::ItemRecord;
 
-/// The file's first bytes; a file without them (or cut short) is ignored and rewritten.
-const MAGIC: &[u8; 8] = b"twitems1";
+/// The file's first bytes (2: records by relative path); a file without them (or cut short)
+/// is ignored and rewritten.
+const MAGIC: &[u8; 8] = b"twitems2";
 
 pub(crate) const FILE_NAME: &str = "item-list.bin";
 
@@ -20,7 +21,8 @@ pub(crate) fn path_in(store_dir: &Path) -> PathBuf {
     store_dir.join(FILE_NAME)
 }
 
-/// The stored bytes of each record, in id order, as one file's contents.
+/// The stored bytes of each record, in the order given (by relative path), as one file's
+/// contents.
 pub(crate) fn encode<'a>(records: impl ExactSizeIterator<Item = &'a sled::IVec>) -> Vec<u8> {
     let mut out = Vec::with_capacity(MAGIC.len() + 8);
     out.extend_from_slice(MAGIC);

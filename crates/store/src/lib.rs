@@ -282,6 +282,14 @@ impl Store {
     /// from the database, after which the list is written for the next reader (best
     /// effort: a store that cannot take it only starts slower).
     pub fn items(&self) -> Result<Vec<ItemRecord>> {
+        let mut items = self.items_by_path()?;
+        items.par_sort_unstable_by(|a, b| a.id.cmp(&b.id));
+        Ok(items)
+    }
+
+    /// Every indexed item, ordered by relative path (the order the item list keeps, so
+    /// the questions' start sorts nothing).
+    pub fn items_by_path(&self) -> Result<Vec<ItemRecord>> {
         let list = item_list::path_in(&self.dir);
         if let Some(listed) = item_list::read(&list, |key, bytes| self.decode(key, bytes)) {
             return Ok(listed);
@@ -292,14 +300,19 @@ impl Store {
             .iter()
             .collect::<std::result::Result<_, _>>()
             .map_err(|e| self.db_error(e))?;
-        let items = stored
+        let mut items = stored
             .par_iter()
-            .map(|(key, value)| self.decode(&String::from_utf8_lossy(key), value))
-            .collect::<Result<Vec<ItemRecord>>>()?;
-        let bytes = item_list::encode(stored.iter().map(|(_, value)| value));
+            .enumerate()
+            .map(|(i, (key, value))| {
+                let item: ItemRecord = self.decode(&String::from_utf8_lossy(key), value)?;
+                Ok((i, item))
+            })
+            .collect::<Result<Vec<(usize, ItemRecord)>>>()?;
+        items.par_sort_unstable_by(|(_, a), (_, b)| a.rel_path.cmp(&b.rel_path));
+        let bytes = item_list::encode(items.iter().map(|&(i, _)| &stored[i].1));
         drop(stored);
         self.changes.write_if_unchanged(seen, &list, &bytes);
-        Ok(items)
+        Ok(items.into_iter().map(|(_, item)| item).collect())
     }
 
     /// One item by id.
@@ -367,7 +380,8 @@ impl Store {
 
     /// Tag counts over all indexed items, most frequent first.
     pub fn vocabulary(&self) -> Result<Vocabulary> {
-        let items = self.items()?;
+        // Counted, so any order does; the list's own order needs no sort.
+        let items = self.items_by_path()?;
         Ok(Vocabulary::from_tag_lists(
             items.iter().map(|item| item.tags.as_slice()),
         ))

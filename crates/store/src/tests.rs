@@ -586,3 +586,25 @@ fn held_vectors_read_as_taken_after_compaction_clearing_and_closing() {
     assert_eq!(held.get(1, "none").unwrap(), None);
     assert_eq!(held.get(2, "a").unwrap(), Some(vec![1.0; 8]));
 }
+
+#[test]
+fn items_come_by_id_or_by_path_from_the_database_and_from_the_list() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let paths = ["e.png", "a/b.png", "c.png", "sub/d.png", "b.png", "z/y.png"];
+    let records: Vec<ItemRecord> = paths.iter().map(|p| item(p, &["x"])).collect();
+    store.update_items(&records, &[]).unwrap();
+    let mut by_id = records.clone();
+    by_id.sort_by(|a, b| a.id.cmp(&b.id));
+    let mut by_path = records;
+    by_path.sort_by(|a, b| a.rel_path.cmp(&b.rel_path));
+    assert_ne!(by_id, by_path, "the two orders differ for these paths");
+    let list = item_list::path_in(&dir);
+    assert!(!list.exists());
+    assert_eq!(store.items_by_path().unwrap(), by_path, "from the database");
+    assert!(list.exists());
+    assert_eq!(store.items_by_path().unwrap(), by_path, "from the list");
+    assert_eq!(store.items().unwrap(), by_id, "from the list");
+    std::fs::remove_file(&list).unwrap();
+    assert_eq!(store.items().unwrap(), by_id, "from the database");
+}
