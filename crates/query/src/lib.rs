@@ -175,7 +175,7 @@ impl Queries {
     /// `store` open while asking.
     pub fn open(store: &Store) -> Result<Queries> {
         let reader = store.vector_reader(FEATURES)?;
-        Queries::open_with(store, FeatureSource::Store(reader))
+        Queries::open_with(store, store.items_by_path()?, FeatureSource::Store(reader))
     }
 
     /// Opens a trained store for questions asked after it is closed (the review page):
@@ -185,14 +185,10 @@ impl Queries {
         let items = store.items_by_path()?;
         let ids: Vec<&str> = items.iter().map(|item| item.id.as_str()).collect();
         let held = store.vector_reader(FEATURES)?.hold(&ids)?;
-        Queries::open_sorted(store, items, FeatureSource::Held(held))
+        Queries::open_with(store, items, FeatureSource::Held(held))
     }
 
-    fn open_with(store: &Store, features: FeatureSource) -> Result<Queries> {
-        Queries::open_sorted(store, store.items_by_path()?, features)
-    }
-
-    fn open_sorted(
+    fn open_with(
         store: &Store,
         items: Vec<ItemRecord>,
         features: FeatureSource,
@@ -215,12 +211,10 @@ impl Queries {
             memory: familiar::MemoryCache::new(),
         };
         if keeps_features {
-            // Outlives the store: load now, and keep no reader of it.
+            // Outlives the store: load the code search now and keep no reader of it; the
+            // page asks for shares at once, so gather the neighbours while it starts.
             queries.code_search()?;
             queries.code_reader = None;
-        }
-        if keeps_features {
-            // The page asks for shares at once; gather while it starts.
             queries.neighbours()?;
         }
         Ok(queries)

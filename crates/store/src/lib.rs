@@ -172,13 +172,10 @@ impl Store {
             .meta
             .contains_key(META_FORMAT)
             .map_err(|e| self.db_error(e))?;
-        let no_vectors = self
-            .vector_kinds()?
-            .iter()
-            .map(|kind| self.vector_tree(kind))
-            .collect::<Result<Vec<_>>>()?
-            .iter()
-            .all(sled::Tree::is_empty);
+        let mut no_vectors = true;
+        for kind in self.vector_kinds()? {
+            no_vectors &= self.vector_tree(&kind)?.is_empty();
+        }
         Ok(!versioned && self.items.is_empty() && self.blobs.is_empty() && no_vectors)
     }
 
@@ -523,11 +520,6 @@ impl Store {
             Ok(reader) => Box::new(reader.iter()),
             Err(e) => Box::new(std::iter::once(Err(e))),
         }
-    }
-
-    /// Bytes the files of `kind` take on disk, garbage not yet compacted away included.
-    pub fn vector_bytes_on_disk(&self, kind: &str) -> Result<u64> {
-        self.vector_files(kind)?.bytes_on_disk()
     }
 
     /// Drops every vector of one kind (for example after relearning features).

@@ -129,24 +129,10 @@ impl CodeIndexBuilder {
 
     /// Adds one item's code; refuses codes of the wrong length or with values outside [0, 1].
     pub fn push(&mut self, id: &str, code: &[f32]) -> Result<()> {
-        let index = &mut self.index;
-        check_code(id, code, index.dim)?;
-        if index.len() >= u32::MAX as usize {
-            return Err(too_many_rows());
-        }
-        let row_start = index.codes.len();
-        index.codes.resize(row_start + index.dim, 0);
-        let hash_start = index.hashes.len();
-        index.hashes.resize(hash_start + index.words, 0);
-        let inv_norm = encode_row(
-            code,
-            &index.thresholds,
-            &mut index.codes[row_start..],
-            &mut index.hashes[hash_start..],
-        );
-        index.inv_norms.push(inv_norm);
-        index.ids.push(id);
-        Ok(())
+        check_code(id, code, self.index.dim)?;
+        self.index.add_row(id, |thresholds, out, hash| {
+            encode_row(code, thresholds, out, hash)
+        })
     }
 
     /// Adds one item's code as the store keeps it. Codes kept as unit bytes are taken as
@@ -162,24 +148,18 @@ impl CodeIndexBuilder {
             Some(bytes) if bytes.len() == self.index.dim => bytes,
             _ => return self.push(id, &packed.values(&reader.dir, id)?),
         };
-        let index = &mut self.index;
-        if index.len() >= u32::MAX as usize {
-            return Err(too_many_rows());
-        }
-        index.codes.extend_from_slice(bytes);
-        let hash_start = index.hashes.len();
-        index.hashes.resize(hash_start + index.words, 0);
-        let hash = &mut index.hashes[hash_start..];
-        let mut squares = 0u64;
-        for (j, (&b, &lowest_above)) in bytes.iter().zip(&self.lowest_byte_above).enumerate() {
-            squares += u64::from(b) * u64::from(b);
-            if u16::from(b) >= lowest_above {
-                hash[j / 64] |= 1 << (j % 64);
+        let lowest_byte_above = &self.lowest_byte_above;
+        self.index.add_row(id, |_, out, hash| {
+            out.copy_from_slice(bytes);
+            let mut squares = 0u64;
+            for (j, (&b, &lowest_above)) in bytes.iter().zip(lowest_byte_above).enumerate() {
+                squares += u64::from(b) * u64::from(b);
+                if u16::from(b) >= lowest_above {
+                    hash[j / 64] |= 1 << (j % 64);
+                }
             }
-        }
-        index.inv_norms.push(inv_sqrt(squares as f64));
-        index.ids.push(id);
-        Ok(())
+            inv_sqrt(squares as f64)
+        })
     }
 
     /// The finished index, trimmed to its size.
@@ -194,6 +174,30 @@ impl CodeIndexBuilder {
 }
 
 impl CodeIndex {
+    /// Appends one row: `encode` fills its code bytes and zeroed hash words (given the
+    /// thresholds) and returns 1 / ‖code‖.
+    fn add_row(
+        &mut self,
+        id: &str,
+        encode: impl FnOnce(&[f32], &mut [u8], &mut [u64]) -> f32,
+    ) -> Result<()> {
+        if self.len() >= u32::MAX as usize {
+            return Err(too_many_rows());
+        }
+        let row_start = self.codes.len();
+        self.codes.resize(row_start + self.dim, 0);
+        let hash_start = self.hashes.len();
+        self.hashes.resize(hash_start + self.words, 0);
+        let inv_norm = encode(
+            &self.thresholds,
+            &mut self.codes[row_start..],
+            &mut self.hashes[hash_start..],
+        );
+        self.inv_norms.push(inv_norm);
+        self.ids.push(id);
+        Ok(())
+    }
+
     /// Builds the index from `ids.len()` codes laid out row-major in `codes` (`dim` values per
     /// row, each in [0, 1]) and one hash threshold per unit.
     pub fn build(
