@@ -222,7 +222,7 @@ pub fn shift(args: &ShiftArgs) -> anyhow::Result<Outcome> {
         bail!("say what to change: --away TAG… and/or --toward TAG…");
     }
     let (_store, queries) = open(&args.common.store)?;
-    let row = queries.row_of_path(&args.picture).ok_or_else(|| {
+    let row = queries.row_of_path(&args.picture)?.ok_or_else(|| {
         tagweave_query::QueryError::NotIndexed {
             path: args.picture.clone(),
         }
@@ -236,9 +236,10 @@ pub fn shift(args: &ShiftArgs) -> anyhow::Result<Outcome> {
     };
     let (away, toward) = (asked(&args.away)?, asked(&args.toward)?);
     let found = queries.shift(row, &away, &toward, args.common.ranking())?;
+    let start = queries.items().get(row)?.rel_path.clone();
     let json = args.common.json.then(|| {
         serde_json::json!({
-            "start": queries.items()[row].rel_path,
+            "start": start,
             "away": away,
             "toward": toward,
         })
@@ -274,8 +275,14 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
     let (store, queries) = open(&args.store)?;
     let mut answers = Vec::new();
     let mut listed = Vec::new();
-    for i in 0..queries.items().len() {
-        let tagged = !queries.items()[i].tags.is_empty();
+    // Listing asks for every item; one picture asks for its own record only.
+    let every_item = if args.untagged || args.partly_tagged {
+        queries.items().all()?
+    } else {
+        &[]
+    };
+    for (i, item) in every_item.iter().enumerate() {
+        let tagged = !item.tags.is_empty();
         if ((args.untagged && !tagged) || (args.partly_tagged && tagged))
             && queries.is_described(i)?
         {
@@ -287,11 +294,11 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
     for (r, &i) in listed.iter().enumerate() {
         answers.push(answer(
             &queries,
-            queries.items()[i].rel_path.clone(),
+            every_item[i].rel_path.clone(),
             Some(i),
             (&probabilities.row(r).to_vec(), familiarity[r]),
             args.limit,
-        ));
+        )?);
     }
     // One picture that cannot be read does not cost the others their answers.
     let mut failed = Vec::new();
@@ -304,7 +311,7 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
                 row,
                 (&probabilities, familiarity),
                 args.limit,
-            )),
+            )?),
             Err(error) => failed.push(Unjudged {
                 picture,
                 error: crate::output::describe(&error),
@@ -363,7 +370,7 @@ pub fn suggest(args: &SuggestArgs) -> anyhow::Result<Outcome> {
 /// Tag probabilities and familiarity of a picture given on the command line: from the
 /// index when it is there (its row), else described from the file.
 fn judge(queries: &Queries, path: &Path) -> anyhow::Result<(Option<usize>, Vec<f32>, Familiarity)> {
-    Ok(match queries.row_of_path(path) {
+    Ok(match queries.row_of_path(path)? {
         Some(row) => (
             Some(row),
             queries.suggest_rows(&[row])?.row(0).to_vec(),
@@ -423,12 +430,15 @@ fn answer(
     row: Option<usize>,
     (probabilities, familiarity): (&[f32], Familiarity),
     limit: usize,
-) -> PictureSuggestions {
-    let carried = row.map_or_else(Vec::new, |r| queries.items()[r].tags.clone());
-    PictureSuggestions {
+) -> anyhow::Result<PictureSuggestions> {
+    let (carried, evidence) = match row {
+        Some(r) => (queries.items().get(r)?.tags.clone(), queries.evidence(r)?),
+        None => (Vec::new(), Vec::new()),
+    };
+    Ok(PictureSuggestions {
         picture,
         indexed: row.is_some(),
-        evidence: row.map_or_else(Vec::new, |r| queries.evidence(r)),
+        evidence,
         calibrated: queries.calibrated(row),
         familiarity,
         suggestions: queries
@@ -438,7 +448,7 @@ fn answer(
             .take(limit)
             .collect(),
         carried,
-    }
+    })
 }
 
 /// How the queue weighed its evidence, in words.

@@ -85,9 +85,7 @@ impl Queries {
     /// A picture is ranked by its MOST doubtful tag, not the mean over its tags: one
     /// wrong tag among several right ones is the usual mistake, and a mean hides it.
     pub fn audit(&self) -> Result<Audit> {
-        let rows: Vec<usize> = (0..self.items.len())
-            .filter(|&i| !self.items[i].tags.is_empty())
-            .collect();
+        let rows: Vec<usize> = self.items.tagged_rows()?.to_vec();
         if rows.is_empty() {
             return Ok(Audit {
                 mix: EvidenceMix {
@@ -100,10 +98,17 @@ impl Queries {
         }
         // A batch at a time: only the answers (pictures × tags) are held for every picture.
         let (probabilities, shares) = self.suggest_and_shares(&rows)?;
-        let lists: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        let lists: Vec<Vec<usize>> = rows
+            .iter()
+            .map(|&r| self.evidence_columns(r))
+            .collect::<Result<_>>()?;
         let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());
         let mix = evidence.choose_mix();
-        let judged: Vec<&ItemRecord> = rows.iter().map(|&i| &self.items[i]).collect();
+        let judged = rows
+            .iter()
+            .map(|&i| self.items.get(i))
+            .collect::<std::result::Result<Vec<_>, _>>()?;
+        let judged: Vec<&ItemRecord> = judged.iter().map(|item| item.as_ref()).collect();
         let queue = rank_disputes(&judged, &self.columns, probabilities.view(), &evidence, mix);
         Ok(Audit { mix, queue })
     }

@@ -149,10 +149,8 @@ impl Queries {
         if let Some(memory) = self.memory.get() {
             return Ok(memory);
         }
-        let tagged: Vec<usize> = (0..self.items.len())
-            .filter(|&i| !self.items[i].tags.is_empty())
-            .collect();
-        let (rows, scaled) = self.read_scaled(&spread(&tagged, MEMORY))?;
+        let tagged = self.items.tagged_rows()?;
+        let (rows, scaled) = self.read_scaled(&spread(tagged, MEMORY))?;
         Ok(self
             .memory
             .get_or_init(|| Memory::build(rows, scaled.view())))

@@ -14,8 +14,8 @@ use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
 use tagweave_store::{
-    CodeIndex, HeldVectors, SearchMode, Store, StoreError, VectorReader, CODES, EXTRACTOR_BLOB,
-    FEATURES,
+    CodeIndex, HeldVectors, Items, SearchMode, Store, StoreError, VectorReader, CODES,
+    EXTRACTOR_BLOB, FEATURES,
 };
 use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_FORMAT};
 use tagweave_vision::{FeatureExtractor, VisionError};
@@ -152,8 +152,9 @@ struct Neighbours {
 pub struct Queries {
     root: PathBuf,
     trained: TrainedModel,
-    /// Every indexed picture, by relative path.
-    items: Vec<ItemRecord>,
+    /// Every indexed picture, by relative path (read one at a time when asked by the
+    /// commands, held by the page).
+    items: Items,
     features: FeatureSource,
     /// The code search, loaded when first asked (suggestions and the audit never need it).
     search: OnceLock<CodeSearch>,
@@ -175,24 +176,20 @@ impl Queries {
     /// `store` open while asking.
     pub fn open(store: &Store) -> Result<Queries> {
         let reader = store.vector_reader(FEATURES)?;
-        Queries::open_with(store, store.items_by_path()?, FeatureSource::Store(reader))
+        Queries::open_with(store, store.items_to_ask()?, FeatureSource::Store(reader))
     }
 
     /// Opens a trained store for questions asked after it is closed (the review page):
     /// where every picture's features lie is held, with their files open, and the
     /// features read as they were at open, whatever is written since.
     pub fn open_to_keep(store: &Store) -> Result<Queries> {
-        let items = store.items_by_path()?;
-        let ids: Vec<&str> = items.iter().map(|item| item.id.as_str()).collect();
+        let items = store.items_to_keep()?;
+        let ids: Vec<&str> = items.all()?.iter().map(|item| item.id.as_str()).collect();
         let held = store.vector_reader(FEATURES)?.hold(&ids)?;
         Queries::open_with(store, items, FeatureSource::Held(held))
     }
 
-    fn open_with(
-        store: &Store,
-        items: Vec<ItemRecord>,
-        features: FeatureSource,
-    ) -> Result<Queries> {
+    fn open_with(store: &Store, items: Items, features: FeatureSource) -> Result<Queries> {
         let trained = store
             .model(MODEL_FORMAT, |m: &TrainedModel| m.format)?
             .ok_or(QueryError::NotTrained)?;
@@ -226,15 +223,9 @@ impl Queries {
         }
         let reader = self.code_reader.as_ref().ok_or(QueryError::NotTrained)?;
         let codes = CodeIndex::load_from(reader, &self.trained.hash_thresholds)?;
-        let row_of_id: HashMap<&str, usize> = self
+        let item_of_code = self
             .items
-            .iter()
-            .enumerate()
-            .map(|(i, item)| (item.id.as_str(), i))
-            .collect();
-        let item_of_code = (0..codes.len())
-            .map(|r| row_of_id.get(codes.id(r)).copied())
-            .collect();
+            .rows_of_ids((0..codes.len()).map(|r| codes.id(r)))?;
         Ok(self.search.get_or_init(|| CodeSearch {
             codes,
             item_of_code,
@@ -251,15 +242,20 @@ impl Queries {
             scorer: self.trained.empty_neighbours(),
             row: vec![None; self.items.len()],
         };
-        let tagged: Vec<usize> = (0..self.items.len())
-            .filter(|&i| !self.columns.encode(&self.items[i].tags).is_empty())
+        let known: Vec<(usize, Vec<usize>)> = self
+            .items
+            .tagged_rows()?
+            .par_iter()
+            .map(|&r| Ok((r, self.columns.encode(&self.items.get(r)?.tags))))
+            .collect::<Result<Vec<_>>>()?
+            .into_iter()
+            .filter(|(_, columns)| !columns.is_empty())
             .collect();
+        let tagged: Vec<usize> = known.iter().map(|&(r, _)| r).collect();
+        let columns_of: HashMap<usize, &Vec<usize>> = known.iter().map(|(r, c)| (*r, c)).collect();
         for batch in tagged.chunks(READ_BATCH) {
             let (described, x) = self.read_scaled(batch)?;
-            let tags: Vec<Vec<usize>> = described
-                .iter()
-                .map(|&r| self.columns.encode(&self.items[r].tags))
-                .collect();
+            let tags: Vec<Vec<usize>> = described.iter().map(|r| columns_of[r].clone()).collect();
             let first = gathered.scorer.train_len();
             for (j, &r) in described.iter().enumerate() {
                 gathered.row[r] = Some(first + j);
@@ -318,7 +314,10 @@ impl Queries {
         let (described, x) = self.read_scaled(rows)?;
         if described.len() < rows.len() {
             let missing = rows.iter().find(|r| !described.contains(r)).copied();
-            let path = missing.map_or_else(String::new, |r| self.items[r].rel_path.clone());
+            let path = match missing {
+                Some(r) => self.items.get(r)?.rel_path.clone(),
+                None => String::new(),
+            };
             return Err(QueryError::NotDescribed { path });
         }
         Ok(x)
@@ -327,20 +326,21 @@ impl Queries {
     /// Whether an indexed picture has features (a cut-short scan leaves some without).
     pub fn is_described(&self, row: usize) -> Result<bool> {
         Ok(match &self.features {
-            FeatureSource::Store(reader) => reader.has(&self.items[row].id)?,
+            FeatureSource::Store(reader) => reader.has(&self.items.get(row)?.id)?,
             FeatureSource::Held(held) => held.has(row),
         })
     }
 
     fn raw_features(&self, row: usize) -> Result<Option<Vec<f32>>> {
-        let id = &self.items[row].id;
+        let item = self.items.get(row)?;
         Ok(match &self.features {
-            FeatureSource::Store(reader) => reader.get(id)?,
-            FeatureSource::Held(held) => held.get(row, id)?,
+            FeatureSource::Store(reader) => reader.get(&item.id)?,
+            FeatureSource::Held(held) => held.get(row, &item.id)?,
         })
     }
 
-    pub fn items(&self) -> &[ItemRecord] {
+    /// Every indexed picture, by relative path (rows of the answers).
+    pub fn items(&self) -> &Items {
         &self.items
     }
 
@@ -350,7 +350,7 @@ impl Queries {
 
     /// The row of a picture given as a path (relative to the current folder, absolute,
     /// or relative to the collection root), if it is indexed.
-    pub fn row_of_path(&self, path: &Path) -> Option<usize> {
+    pub fn row_of_path(&self, path: &Path) -> Result<Option<usize>> {
         let absolute = std::fs::canonicalize(path).ok();
         let root = std::fs::canonicalize(&self.root).ok();
         let rel = match (absolute, root) {
@@ -362,10 +362,8 @@ impl Queries {
     }
 
     /// The row of a picture given by its path relative to the collection root.
-    pub fn row_of_rel_path(&self, rel: &str) -> Option<usize> {
-        self.items
-            .binary_search_by(|item| item.rel_path.as_str().cmp(rel))
-            .ok()
+    pub fn row_of_rel_path(&self, rel: &str) -> Result<Option<usize>> {
+        Ok(self.items.row_of_rel_path(rel)?)
     }
 
     /// Tag probabilities for indexed pictures (rows). A picture that carries tags the
@@ -405,7 +403,10 @@ impl Queries {
 
     /// [`Self::suggest_rows`] given the rows' scaled features `x`.
     fn suggest_scaled(&self, rows: &[usize], x: ArrayView2<f32>) -> Result<Array2<f32>> {
-        let carried: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        let carried: Vec<Vec<usize>> = rows
+            .iter()
+            .map(|&r| self.evidence_columns(r))
+            .collect::<Result<_>>()?;
         self.suggest_given_columns(rows, x, &carried)
     }
 
@@ -445,25 +446,28 @@ impl Queries {
     /// The tags of an indexed picture that the model takes as evidence when it
     /// suggests more: those it carries and the model knows. Empty when the trained
     /// blend gives carried tags no weight (its validation fold found them uninformative).
-    pub fn evidence(&self, row: usize) -> Vec<String> {
+    pub fn evidence(&self, row: usize) -> Result<Vec<String>> {
         if !self.trained.suggester.completion_uses_tags() {
-            return Vec::new();
+            return Ok(Vec::new());
         }
-        self.evidence_columns(row)
+        Ok(self
+            .evidence_columns(row)?
             .into_iter()
             .map(|c| self.trained.vocabulary[c].clone())
-            .collect()
+            .collect())
     }
 
-    fn evidence_columns(&self, row: usize) -> Vec<usize> {
-        let mut columns: Vec<usize> = self.items[row]
+    fn evidence_columns(&self, row: usize) -> Result<Vec<usize>> {
+        let mut columns: Vec<usize> = self
+            .items
+            .get(row)?
             .tags
             .iter()
             .filter_map(|t| self.columns.index_of(t))
             .collect();
         columns.sort_unstable();
         columns.dedup();
-        columns
+        Ok(columns)
     }
 
     /// For indexed pictures (rows): the share of their most similar tagged pictures
@@ -539,7 +543,7 @@ impl Queries {
             return false;
         }
         match row {
-            Some(r) if !self.evidence_columns(r).is_empty() => {
+            Some(r) if self.evidence_columns(r).is_ok_and(|c| !c.is_empty()) => {
                 suggester.completion.calibration.is_some()
             }
             _ => suggester.calibration.is_some(),
@@ -577,7 +581,7 @@ impl Queries {
             }
         }
         if !unknown.is_empty() {
-            let by_use = self.tags_by_use();
+            let by_use = self.tags_by_use()?;
             let unknown = unknown
                 .into_iter()
                 .map(|typed| UnknownTag {
@@ -595,9 +599,10 @@ impl Queries {
     }
 
     /// The model's tags, the most carried first (ties by tag).
-    fn tags_by_use(&self) -> Vec<String> {
+    fn tags_by_use(&self) -> Result<Vec<String>> {
         let mut count: HashMap<&str, usize> = HashMap::new();
-        for tag in self.items.iter().flat_map(|i| &i.tags) {
+        let all = self.items.all()?;
+        for tag in all.iter().flat_map(|i| &i.tags) {
             *count.entry(tag).or_default() += 1;
         }
         let mut tags = self.trained.vocabulary.clone();
@@ -605,7 +610,7 @@ impl Queries {
             let uses = |t: &String| count.get(t.as_str()).copied().unwrap_or(0);
             uses(b).cmp(&uses(a)).then(a.cmp(b))
         });
-        tags
+        Ok(tags)
     }
 
     /// Typed tags ([`Self::tags_asked`]) as a 0/1 row in model columns.
@@ -654,14 +659,21 @@ impl Queries {
     /// evidence. A tag its sidecar carries counts as sure.
     fn chance_of(&self, rows: &[usize], wanted: &[usize], shunned: &[usize]) -> Result<Vec<f32>> {
         let mut chance = vec![1.0f32; rows.len()];
-        let mut assumed: Vec<Vec<usize>> = rows.iter().map(|&r| self.evidence_columns(r)).collect();
+        let mut assumed: Vec<Vec<usize>> = rows
+            .iter()
+            .map(|&r| self.evidence_columns(r))
+            .collect::<Result<_>>()?;
+        let carried: Vec<Vec<String>> = rows
+            .iter()
+            .map(|&r| Ok(self.items.get(r)?.tags.clone()))
+            .collect::<Result<_>>()?;
         let x = self.scaled_rows(rows)?;
         let steps = wanted.iter().map(|&c| (c, true));
         for (column, want) in steps.chain(shunned.iter().map(|&c| (c, false))) {
             let tag = std::slice::from_ref(&self.trained.vocabulary[column]);
             let p = self.suggest_given_columns(rows, x.view(), &assumed)?;
-            for (i, &r) in rows.iter().enumerate() {
-                let fits = fits_all(&[column], tag, &self.items[r].tags, &p.row(i).to_vec());
+            for i in 0..rows.len() {
+                let fits = fits_all(&[column], tag, &carried[i], &p.row(i).to_vec());
                 chance[i] *= if want { fits } else { 1.0 - fits };
                 if want && !assumed[i].contains(&column) {
                     assumed[i].push(column);
@@ -746,8 +758,23 @@ impl Queries {
         };
         let hits = self.nearest_rows(query, wide, skip)?;
         let item_of_code = &self.code_search()?.item_of_code;
-        let rows: Vec<usize> = hits.iter().filter_map(|&(r, _)| item_of_code[r]).collect();
-        let mut found = answers(hits, item_of_code, &self.items, carries);
+        // Item rows with their similarity; a code row without an indexed picture is dropped.
+        let hits: Vec<(usize, f32)> = hits
+            .into_iter()
+            .filter_map(|(r, similarity)| Some((item_of_code[r]?, similarity)))
+            .collect();
+        let rows: Vec<usize> = hits.iter().map(|&(r, _)| r).collect();
+        let records = rows
+            .iter()
+            .map(|&r| self.items.get(r))
+            .collect::<std::result::Result<Vec<_>, _>>()?;
+        let mut found = answers(
+            records
+                .iter()
+                .map(|item| item.as_ref())
+                .zip(hits.iter().map(|h| h.1)),
+            carries,
+        );
         let chance = self.chance_of(&rows, wanted, shunned)?;
         for (f, c) in found.iter_mut().zip(chance) {
             f.probability = Some(c);
@@ -771,8 +798,10 @@ impl Queries {
         };
         let search = self.code_search()?;
         let item_of_code = &search.item_of_code;
+        let tagged = self.items.tagged_rows()?;
+        let is_tagged = |i: usize| tagged.binary_search(&i).is_ok();
         let hits = search.codes.search_where(query, ranking.limit, mode, |r| {
-            listable(item_of_code[r], skip, ranking.untagged_only, &self.items)
+            listable(item_of_code[r], skip, ranking.untagged_only, is_tagged)
         })?;
         Ok(hits
             .into_iter()
@@ -888,30 +917,25 @@ fn listable(
     item: Option<usize>,
     skip: Option<usize>,
     untagged_only: bool,
-    items: &[ItemRecord],
+    is_tagged: impl Fn(usize) -> bool,
 ) -> bool {
-    item.is_some_and(|i| Some(i) != skip && (!untagged_only || items[i].tags.is_empty()))
+    item.is_some_and(|i| Some(i) != skip && (!untagged_only || !is_tagged(i)))
 }
 
-/// Search hits `(code row, similarity)`, in their order, as answers; a code row without an
-/// indexed picture is dropped. An answer "carries" when its picture's tags include every
-/// `wanted` tag (never when nothing is wanted).
-fn answers(
-    hits: impl IntoIterator<Item = (usize, f32)>,
-    item_of_code: &[Option<usize>],
-    items: &[ItemRecord],
+/// Search hits (the picture's item, similarity), in their order, as answers. An answer
+/// "carries" when its picture's tags include every `wanted` tag (never when nothing is
+/// wanted).
+fn answers<'a>(
+    hits: impl IntoIterator<Item = (&'a ItemRecord, f32)>,
     wanted: &[String],
 ) -> Vec<Found> {
     hits.into_iter()
-        .filter_map(|(row, similarity)| {
-            let item = &items[item_of_code[row]?];
-            Some(Found {
-                picture: item.rel_path.clone(),
-                similarity,
-                probability: None,
-                carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
-                tagged: !item.tags.is_empty(),
-            })
+        .map(|(item, similarity)| Found {
+            picture: item.rel_path.clone(),
+            similarity,
+            probability: None,
+            carries: !wanted.is_empty() && wanted.iter().all(|t| item.tags.contains(t)),
+            tagged: !item.tags.is_empty(),
         })
         .collect()
 }
@@ -986,8 +1010,7 @@ pub(crate) mod tests {
         assert_eq!(shifted_code(&start, &[0.0; 3], &[0.0; 3]), start.to_vec());
     }
 
-    // Code rows 0..4 point at items [1, none, 0, 2]; item 0 is untagged. Hits come in the
-    // index's order (best first) and keep it; the row without an item is dropped.
+    // Hits come in the index's order (best first) and keep it.
     #[test]
     fn hits_become_answers_in_their_order() {
         let items = [
@@ -995,12 +1018,9 @@ pub(crate) mod tests {
             item("b.jpg", &["night", "harbour"]),
             item("c.jpg", &["night"]),
         ];
-        let item_of_code = [Some(1), None, Some(0), Some(2)];
         let wanted = strings(&["night", "harbour"]);
         let found = answers(
-            [(3, 0.9), (1, 0.8), (0, 0.7), (2, 0.5)],
-            &item_of_code,
-            &items,
+            [(&items[2], 0.9), (&items[1], 0.7), (&items[0], 0.5)],
             &wanted,
         );
         let got: Vec<(&str, f32, bool, bool)> = found
@@ -1016,23 +1036,27 @@ pub(crate) mod tests {
             ]
         );
         // nothing wanted (a plain shift): nothing "carries"
-        let plain = answers([(0, 0.7)], &item_of_code, &items, &[]);
+        let plain = answers([(&items[1], 0.7)], &[]);
         assert!(!plain[0].carries);
     }
 
     #[test]
     fn only_indexed_pictures_other_than_the_start_are_listed() {
-        let items = [item("a.jpg", &[]), item("b.jpg", &["night"])];
-        assert!(listable(Some(0), None, false, &items));
-        assert!(!listable(None, None, false, &items), "no item for the code");
+        // item 0 is untagged, item 1 tagged
+        let is_tagged = |i: usize| i == 1;
+        assert!(listable(Some(0), None, false, is_tagged));
         assert!(
-            !listable(Some(1), Some(1), false, &items),
+            !listable(None, None, false, is_tagged),
+            "no item for the code"
+        );
+        assert!(
+            !listable(Some(1), Some(1), false, is_tagged),
             "the start itself"
         );
-        assert!(listable(Some(1), Some(0), false, &items));
-        assert!(listable(Some(0), None, true, &items), "untagged");
+        assert!(listable(Some(1), Some(0), false, is_tagged));
+        assert!(listable(Some(0), None, true, is_tagged), "untagged");
         assert!(
-            !listable(Some(1), None, true, &items),
+            !listable(Some(1), None, true, is_tagged),
             "tagged, untagged asked for"
         );
     }

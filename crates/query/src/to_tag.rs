@@ -99,8 +99,9 @@ pub fn pictures_to_tag(
             let mut all = Array2::zeros((items.len(), q.vocabulary().len()));
             let asked: Vec<usize> = rows
                 .iter()
-                .filter_map(|&r| q.row_of_rel_path(&items[r].rel_path))
-                .collect();
+                .map(|&r| q.row_of_rel_path(&items[r].rel_path))
+                .filter_map(Result::transpose)
+                .collect::<Result<_>>()?;
             if !asked.is_empty() {
                 let some = q.suggest_rows(&asked)?;
                 for (&r, row) in rows.iter().zip(some.outer_iter()) {

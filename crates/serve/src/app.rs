@@ -4,7 +4,8 @@
 use std::collections::{BTreeSet, HashMap};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
-use std::sync::{Mutex, MutexGuard, OnceLock};
+use std::sync::{Arc, Mutex, MutexGuard, OnceLock};
+use std::time::{Duration, Instant};
 
 use tagweave_collection::{misleading_char, normalize_tag, CrawlOptions, ItemRecord};
 use tagweave_query::{Dispute, Queries, QueryError, Ranking};
@@ -59,6 +60,8 @@ pub struct Reply {
     pub allow: Option<&'static str>,
     /// Only on the answer to the one-time address: the pass.
     pub set_cookie: Option<String>,
+    /// Seconds after which to ask again (answers about work still under way).
+    pub retry_after: Option<u32>,
 }
 
 const HTML: &str = "text/html; charset=utf-8";
@@ -100,7 +103,28 @@ impl Reply {
             location: None,
             allow: None,
             set_cookie: None,
+            retry_after: None,
         }
+    }
+}
+
+/// How long a request waits for the review queue or the walk being worked out in the
+/// background before it answers "being worked out" (well inside a connection's 30 s).
+const WAIT_FOR_BACKGROUND: Duration = Duration::from_secs(10);
+/// Seconds after which a "being worked out" page reloads itself.
+const ASK_AGAIN_AFTER: u32 = 10;
+
+/// What `cell` holds once it holds something, waiting at most `limit`.
+fn wait_for<T>(cell: &OnceLock<T>, limit: Duration) -> Option<&T> {
+    let started = Instant::now();
+    loop {
+        if let Some(value) = cell.get() {
+            return Some(value);
+        }
+        if started.elapsed() >= limit {
+            return None;
+        }
+        std::thread::sleep(Duration::from_millis(20));
     }
 }
 
@@ -137,8 +161,11 @@ pub(crate) struct App {
     hosts: Vec<String>,
     renditions: Renditions,
     audit: OnceLock<Result<Vec<Dispute>, String>>,
-    /// The one-by-one walk, worked out on first use and kept in its order for the run.
+    /// The one-by-one walk, kept in its order for the run.
     walk: OnceLock<Result<Walk, String>>,
+    /// Whether the review queue and the walk are worked out in the background (else on
+    /// first use).
+    in_background: AtomicBool,
     /// What was done to each picture (by id) since this server started. Its lock also
     /// serialises writes, so two clicks never plan from the same old bytes.
     notes: Mutex<HashMap<String, PictureNotes>>,
@@ -181,9 +208,9 @@ impl App {
         ids: PageIds,
         port: u16,
         read_only: bool,
-    ) -> App {
+    ) -> Result<App, QueryError> {
         let root = store.collection_root().to_path_buf();
-        let items = queries.items();
+        let items = queries.items().all()?;
         let page_ids: Vec<String> = items.iter().map(|item| ids.of(&item.rel_path)).collect();
         let row_of_id = page_ids
             .iter()
@@ -195,7 +222,7 @@ impl App {
             .enumerate()
             .map(|(i, item)| (item.rel_path.clone(), i))
             .collect();
-        App {
+        Ok(App {
             renditions: Renditions::new(&root, store.dir()),
             root,
             page_ids,
@@ -209,10 +236,11 @@ impl App {
             hosts: loopback_hosts(port),
             audit: OnceLock::new(),
             walk: OnceLock::new(),
+            in_background: AtomicBool::new(false),
             notes: Mutex::new(HashMap::new()),
             store_dir: store.dir().to_path_buf(),
             queries,
-        }
+        })
     }
 
     /// The path of the one-time address `serve` prints.
@@ -417,8 +445,13 @@ impl App {
         self.row_of_id.get(id).copied()
     }
 
+    /// Every picture, by row: the page's queries hold them all (read in [`App::new`]).
+    fn items(&self) -> &[ItemRecord] {
+        self.queries.items().loaded().unwrap_or_default()
+    }
+
     fn item(&self, row: usize) -> &ItemRecord {
-        &self.queries.items()[row]
+        &self.items()[row]
     }
 
     fn page(&self, status: u16, page: Page) -> Reply {
@@ -500,17 +533,12 @@ impl App {
         let untagged_only = first(query, "untagged").is_some_and(|v| !v.is_empty());
         let limit = limit_of(query);
         let vocabulary = self.queries.vocabulary();
-        let tagged = self
-            .queries
-            .items()
-            .iter()
-            .filter(|i| !i.tags.is_empty())
-            .count();
+        let tagged = self.items().iter().filter(|i| !i.tags.is_empty()).count();
         let mut content = pages::SearchContent {
             typed: typed.clone(),
             untagged_only,
             vocabulary,
-            pictures: self.queries.items().len(),
+            pictures: self.items().len(),
             tagged,
             problem: None,
             cards: None,
@@ -651,9 +679,61 @@ impl App {
         Ok(content)
     }
 
-    fn walk(&self) -> &Result<Walk, String> {
+    /// Starts working out the review queue, then the one-by-one walk, on a thread of its
+    /// own, for requests to find ready (at a million pictures each takes minutes, past any
+    /// connection's limit). Without a thread to be had, the first request works each out.
+    pub(crate) fn work_out_in_background(app: &Arc<App>) {
+        app.in_background.store(true, Ordering::Release);
+        let worker = Arc::clone(app);
+        let spawned = std::thread::Builder::new()
+            .name("tagweave-review-work".into())
+            .spawn(move || {
+                worker.disputes_now();
+                worker.walk_now();
+            });
+        if spawned.is_err() {
+            app.in_background.store(false, Ordering::Release);
+        }
+    }
+
+    /// `cell` once worked out: by the background work when it runs (waiting up to
+    /// [`WAIT_FOR_BACKGROUND`], `None` after that), else here and now.
+    fn when_ready<'a, T>(
+        &'a self,
+        cell: &'a OnceLock<T>,
+        now: impl FnOnce() -> &'a T,
+    ) -> Option<&'a T> {
+        if self.in_background.load(Ordering::Acquire) {
+            wait_for(cell, WAIT_FOR_BACKGROUND)
+        } else {
+            Some(now())
+        }
+    }
+
+    /// The answer while the background work is not done: a page that reloads itself.
+    fn being_worked_out(&self, what: &str) -> Reply {
+        let tagged = self.items().iter().filter(|i| !i.tags.is_empty()).count();
+        let mut reply = self.message(
+            503,
+            &format!("The {what} is being worked out"),
+            &format!(
+                "tagweave is judging the collection's {tagged} tagged pictures for it, which \
+                 takes a while in a large collection. This page reloads itself every \
+                 {ASK_AGAIN_AFTER} seconds until it is ready; searching and picture pages \
+                 work meanwhile."
+            ),
+        );
+        reply.retry_after = Some(ASK_AGAIN_AFTER);
+        reply
+    }
+
+    fn walk(&self) -> Option<&Result<Walk, String>> {
+        self.when_ready(&self.walk, || self.walk_now())
+    }
+
+    fn walk_now(&self) -> &Result<Walk, String> {
         self.walk.get_or_init(|| {
-            let items = self.queries.items();
+            let items = self.items();
             let tagged: Vec<bool> = items.iter().map(|i| !i.tags.is_empty()).collect();
             let rows: Vec<usize> = (0..items.len()).filter(|&r| tagged[r]).collect();
             let mut strongest = vec![0.0; items.len()];
@@ -679,8 +759,9 @@ impl App {
     /// page, or (`part`) just the picture's fragment for the page's script.
     fn one_by_one(&self, query: &[(String, String)], part: bool) -> Reply {
         let walk = match self.walk() {
-            Ok(w) => w,
-            Err(error) => return self.failed(error),
+            Some(Ok(w)) => w,
+            Some(Err(error)) => return self.failed(error),
+            None => return self.being_worked_out("one-by-one walk"),
         };
         let calibrated = self.queries.all_calibrated();
         let above = first(query, "above")
@@ -731,7 +812,7 @@ impl App {
         if first(form, "answer") != Some("part") {
             return None;
         }
-        let walk = self.walk().as_ref().ok()?;
+        let walk = self.walk()?.as_ref().ok()?;
         let at = walk.rows.iter().position(|&r| r == row)? + 1;
         let mut query = vec![("at".to_string(), at.to_string())];
         if let Some(above) = first(form, "above") {
@@ -745,7 +826,11 @@ impl App {
         (!self.read_only).then(|| self.token.as_str())
     }
 
-    fn disputes(&self) -> &Result<Vec<Dispute>, String> {
+    fn disputes(&self) -> Option<&Result<Vec<Dispute>, String>> {
+        self.when_ready(&self.audit, || self.disputes_now())
+    }
+
+    fn disputes_now(&self) -> &Result<Vec<Dispute>, String> {
         self.audit.get_or_init(|| {
             self.queries
                 .audit()
@@ -756,8 +841,9 @@ impl App {
 
     fn review(&self, query: &[(String, String)]) -> Reply {
         let disputes = match self.disputes() {
-            Ok(d) => d,
-            Err(error) => return self.failed(error),
+            Some(Ok(d)) => d,
+            Some(Err(error)) => return self.failed(error),
+            None => return self.being_worked_out("review queue"),
         };
         let flagged: Vec<&Dispute> = disputes.iter().filter(|d| !d.disputed.is_empty()).collect();
         let pages_total = flagged.len().div_ceil(QUEUE_PAGE).max(1);
@@ -1105,6 +1191,27 @@ fn back_link(form: &[(String, String)], id: &str) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_request_waits_for_background_work_only_so_long() {
+        let cell: OnceLock<u32> = OnceLock::new();
+        assert_eq!(
+            wait_for(&cell, Duration::from_millis(30)),
+            None,
+            "not ready"
+        );
+        std::thread::scope(|scope| {
+            scope.spawn(|| {
+                std::thread::sleep(Duration::from_millis(50));
+                cell.set(7).unwrap();
+            });
+            assert_eq!(
+                wait_for(&cell, Duration::from_secs(60)),
+                Some(&7),
+                "ready meanwhile"
+            );
+        });
+    }
 
     #[test]
     fn back_links_never_echo_the_request() {

@@ -291,6 +291,11 @@ pub fn render_reply(reply: &Reply, head_only: bool, now: SystemTime) -> Vec<u8> 
     if let Some(cookie) = &reply.set_cookie {
         head.push_str(&format!("Set-Cookie: {cookie}\r\n"));
     }
+    // `Refresh` is not in the HTTP standard but every browser reloads by it; scripts read
+    // `Retry-After` (RFC 9110 §10.2.3).
+    if let Some(seconds) = reply.retry_after {
+        head.push_str(&format!("Retry-After: {seconds}\r\nRefresh: {seconds}\r\n"));
+    }
     head.push_str("\r\n");
     let mut out = head.into_bytes();
     if !head_only {
@@ -377,10 +382,27 @@ mod tests {
         assert!(text.contains("\r\nAllow: GET, HEAD\r\n"));
         assert!(text.contains("\r\nCache-Control: no-store\r\n"));
         assert!(!text.contains("Set-Cookie"));
+        assert!(!text.contains("Retry-After"));
         assert!(text.ends_with("\r\n\r\ngone"));
         let head = String::from_utf8(render_reply(&reply, true, UNIX_EPOCH)).unwrap();
         assert!(head.ends_with("\r\n\r\n"), "{head}");
         assert!(head.contains("Content-Length: 4"));
+    }
+
+    // source: RFC 9110 §10.2.3 (Retry-After as delay-seconds with a 503).
+    #[test]
+    fn work_under_way_says_when_to_ask_again() {
+        let mut reply = Reply::new(503, "text/html; charset=utf-8", b"wait".to_vec());
+        reply.retry_after = Some(10);
+        let text = String::from_utf8(render_reply(&reply, false, UNIX_EPOCH)).unwrap();
+        assert!(
+            text.starts_with("HTTP/1.1 503 Service Unavailable\r\n"),
+            "{text}"
+        );
+        assert!(
+            text.contains("\r\nRetry-After: 10\r\nRefresh: 10\r\n"),
+            "{text}"
+        );
     }
 
     #[test]

@@ -131,7 +131,7 @@ impl ReviewServer {
         let listener = TcpListener::bind(wanted).map_err(bind_error)?;
         let address = listener.local_addr().map_err(bind_error)?;
         let ids = PageIds::open(store.dir())?;
-        let app = App::new(&store, queries, ids, address.port(), options.read_only);
+        let app = App::new(&store, queries, ids, address.port(), options.read_only)?;
         drop(store);
         Ok(ReviewServer {
             listener,
@@ -155,6 +155,7 @@ impl ReviewServer {
     /// 64 at once (see `connections.rs`).
     pub fn run(self) -> Result<(), ServeError> {
         let connections = Arc::new(Connections::default());
+        App::work_out_in_background(&self.app);
         for stream in self.listener.incoming() {
             let stream = match stream {
                 Ok(stream) => stream,

@@ -7,6 +7,7 @@
 mod derived;
 mod error;
 mod item_list;
+mod items;
 mod layout;
 mod lock;
 mod packing;
@@ -22,6 +23,7 @@ use serde::{de::DeserializeOwned, Serialize};
 use tagweave_collection::{ItemRecord, Vocabulary};
 
 pub use error::StoreError;
+pub use items::Items;
 pub use layout::{CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
 use lock::StoreLock;
 pub use reader::{HeldVectors, PackedVector, VectorReader};
@@ -306,10 +308,30 @@ impl Store {
             })
             .collect::<Result<Vec<(usize, ItemRecord)>>>()?;
         items.par_sort_unstable_by(|(_, a), (_, b)| a.rel_path.cmp(&b.rel_path));
-        let bytes = item_list::encode(items.iter().map(|&(i, _)| &stored[i].1));
+        let records: Vec<(&[u8], &ItemRecord)> = items
+            .iter()
+            .map(|(i, item)| (stored[*i].1.as_ref(), item))
+            .collect();
+        let bytes = item_list::encode(&records);
+        drop(records);
         drop(stored);
         self.changes.write_if_unchanged(seen, &list, &bytes);
         Ok(items.into_iter().map(|(_, item)| item).collect())
+    }
+
+    /// Every indexed item for questions: read one at a time from the item list when it is
+    /// there, else all read from the database (which writes the list for the next reader).
+    pub fn items_to_ask(&self) -> Result<Items> {
+        match item_list::ListFile::open(&item_list::path_in(&self.dir)) {
+            Some(list) => Ok(Items::listed(self.dir.clone(), list)),
+            None => Ok(Items::held(self.dir.clone(), self.items_by_path()?)),
+        }
+    }
+
+    /// Every indexed item, held (by relative path), for questions asked after the store is
+    /// closed.
+    pub fn items_to_keep(&self) -> Result<Items> {
+        Ok(Items::held(self.dir.clone(), self.items_by_path()?))
     }
 
     /// One item by id.

@@ -543,8 +543,8 @@ fn the_item_list_is_written_by_a_reader_and_never_outlives_a_change() {
     );
     // A list whose record does not decode is read past: the database answers.
     let mut garbled = bytes.clone();
-    let last = garbled.len() - 2;
-    garbled[last] = b'{';
+    let first_record = 40 + 4; // after the header and the record's length
+    garbled[first_record] = b'}';
     std::fs::write(&list, &garbled).unwrap();
     assert_eq!(store.items().unwrap(), changed);
     assert_eq!(std::fs::read(&list).unwrap(), bytes);
@@ -607,4 +607,62 @@ fn items_come_by_id_or_by_path_from_the_database_and_from_the_list() {
     assert_eq!(store.items().unwrap(), by_id, "from the list");
     std::fs::remove_file(&list).unwrap();
     assert_eq!(store.items().unwrap(), by_id, "from the database");
+}
+
+#[test]
+fn items_read_one_at_a_time_answer_as_items_held() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let paths = [
+        "e.png",
+        "a/b.png",
+        "c.png",
+        "sub/d.png",
+        "b.png",
+        "z/y.png",
+        "ä/ö.png",
+    ];
+    let records: Vec<ItemRecord> = paths
+        .iter()
+        .enumerate()
+        .map(|(i, p)| item(p, if i % 3 == 0 { &[] } else { &["x"] }))
+        .collect();
+    store.update_items(&records, &[]).unwrap();
+    let held = store.items_to_ask().unwrap();
+    assert!(
+        held.loaded().is_some(),
+        "no list yet: all read from the database"
+    );
+    let listed = store.items_to_ask().unwrap();
+    assert!(
+        listed.loaded().is_none(),
+        "the list written: read when asked"
+    );
+    assert_eq!(listed.len(), paths.len());
+    let all = held.all().unwrap();
+    for (row, item) in all.iter().enumerate() {
+        assert_eq!(listed.get(row).unwrap().as_ref(), item);
+        assert_eq!(listed.row_of_rel_path(&item.rel_path).unwrap(), Some(row));
+        assert_eq!(held.row_of_rel_path(&item.rel_path).unwrap(), Some(row));
+        assert_eq!(listed.is_tagged(row).unwrap(), !item.tags.is_empty());
+    }
+    for missing in ["", "a", "d.png", "zz.png"] {
+        assert_eq!(listed.row_of_rel_path(missing).unwrap(), None, "{missing}");
+    }
+    // Ids asked in ascending order (a code index's), in another order, and unknown ones.
+    let mut ids: Vec<String> = all.iter().map(|i| i.id.clone()).collect();
+    ids.push("unknown".into());
+    ids.sort();
+    let expected = |ids: &[String]| -> Vec<Option<usize>> {
+        ids.iter()
+            .map(|id| all.iter().position(|i| &i.id == id))
+            .collect()
+    };
+    for order in [ids.clone(), ids.iter().rev().cloned().collect()] {
+        let asked = || order.iter().map(String::as_str);
+        assert_eq!(listed.rows_of_ids(asked()).unwrap(), expected(&order));
+        assert_eq!(held.rows_of_ids(asked()).unwrap(), expected(&order));
+    }
+    assert_eq!(listed.tagged_rows().unwrap(), held.tagged_rows().unwrap());
+    assert_eq!(listed.all().unwrap(), all);
 }
