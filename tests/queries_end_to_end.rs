@@ -1143,6 +1143,13 @@ fn features_held_or_read_when_asked_give_the_same_answers() {
             .fold(0.0f32, f32::max);
         assert!(gap < 1e-4, "row {r} alone differs by {gap}");
     }
+    // The familiarity memory, worked out once, is kept beside the store: a later opening
+    // reads it and judges alike.
+    let first = read.familiarity_of_rows(&rows).unwrap();
+    assert!(store.dir().join("answers-familiar.bin").exists());
+    let again = tagweave_query::Queries::open(&store).unwrap();
+    assert_eq!(again.familiarity_of_rows(&rows).unwrap(), first);
+    assert_eq!(held.familiarity_of_rows(&rows).unwrap(), first);
     let (a, b) = (read.audit().unwrap(), held.audit().unwrap());
     assert_eq!(a.queue.len(), b.queue.len());
     assert!(a

@@ -173,3 +173,14 @@ mod tests {
         assert_eq!((bar.position(), bar.length()), (1, Some(5)));
     }
 }
+
+/// Rewrites the store's database compactly when a writer left it much grown (see
+/// `Store::compact_if_grown`), with a spinner while it runs on a terminal.
+pub fn compact_with_note(store: &mut tagweave_store::Store) -> anyhow::Result<()> {
+    let spinner = ProgressBar::new_spinner().with_message("tidying the database");
+    spinner.enable_steady_tick(std::time::Duration::from_millis(200));
+    let compacted = store.compact_if_grown();
+    spinner.finish_and_clear();
+    compacted?;
+    Ok(())
+}

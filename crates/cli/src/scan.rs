@@ -36,8 +36,9 @@ pub struct ScanArgs {
 }
 
 pub fn run(args: &ScanArgs) -> anyhow::Result<Outcome> {
-    let store = open_for_scan(args)?;
+    let mut store = open_for_scan(args)?;
     let report = scan_with_progress(&store, &args.options())?;
+    crate::progress::compact_with_note(&mut store)?;
     if args.json {
         let json = ScanJson::new(store.collection_root(), &report);
         println!("{}", serde_json::to_string(&json)?);

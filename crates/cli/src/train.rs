@@ -31,13 +31,14 @@ pub struct TrainArgs {
 }
 
 pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
-    let store = store_path::open_existing(args.store.store.as_deref())?;
+    let mut store = store_path::open_existing(args.store.store.as_deref())?;
     let options = TrainRunOptions {
         seed: args.seed,
         person_tags_only: args.person_tags_only,
         ..TrainRunOptions::default()
     };
     let (report, curve_path) = train_with_progress(&store, &options)?;
+    crate::progress::compact_with_note(&mut store)?;
     if args.json {
         let mut value = serde_json::to_value(&report)?;
         value["curves"] = serde_json::json!(curve_path);

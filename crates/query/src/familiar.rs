@@ -70,6 +70,13 @@ pub(crate) struct Memory {
 
 pub(crate) type MemoryCache = OnceLock<Memory>;
 
+/// Name of the memory kept beside the store ([`tagweave_store::KeptAnswers`]): working it
+/// out reads 2,000 pictures' features and compares 1,000 of them with all 2,000, most of a
+/// `suggest PICTURE`'s time at a million pictures.
+pub(crate) const KEPT_AS: &str = "familiar";
+/// First bytes of a kept memory.
+const MAGIC: &[u8; 8] = b"twfamil1";
+
 /// Rows scaled to length 1 (an all-zero row stays zero).
 fn unit_rows(x: ArrayView2<f32>) -> Array2<f32> {
     let mut unit = x.to_owned();
@@ -129,6 +136,56 @@ impl Memory {
         Memory { rows, unit, usual }
     }
 
+    /// The memory as kept: magic, usual similarity (NaN: none), count and width (u64),
+    /// the item rows (u32), the unit features (f32), little-endian.
+    fn to_bytes(&self) -> Vec<u8> {
+        let (n, width) = self.unit.dim();
+        let mut out = Vec::with_capacity(32 + n * 4 + n * width * 4);
+        out.extend_from_slice(MAGIC);
+        out.extend_from_slice(&self.usual.unwrap_or(f32::NAN).to_le_bytes());
+        out.extend_from_slice(&(n as u64).to_le_bytes());
+        out.extend_from_slice(&(width as u64).to_le_bytes());
+        for &row in &self.rows {
+            out.extend_from_slice(&(row as u32).to_le_bytes());
+        }
+        for &value in self.unit.iter() {
+            out.extend_from_slice(&value.to_le_bytes());
+        }
+        out
+    }
+
+    /// A kept memory of features `width` wide over `items` item rows; `None` when it is
+    /// not one (damaged, cut short, of another width).
+    fn from_bytes(bytes: &[u8], width: usize, items: usize) -> Option<Memory> {
+        let rest = bytes.strip_prefix(MAGIC.as_slice())?;
+        let number = |at: usize| -> Option<u64> {
+            Some(u64::from_le_bytes(rest.get(at..at + 8)?.try_into().ok()?))
+        };
+        let usual = f32::from_le_bytes(rest.get(..4)?.try_into().ok()?);
+        let n = usize::try_from(number(4)?).ok()?;
+        if number(12)? != width as u64 || rest.len() != 20 + n * 4 + n * width * 4 {
+            return None;
+        }
+        let words = |from: usize| {
+            rest[from..]
+                .chunks_exact(4)
+                .map(|b| <[u8; 4]>::try_from(b).expect("four bytes"))
+        };
+        let rows: Vec<usize> = words(20)
+            .take(n)
+            .map(|b| u32::from_le_bytes(b) as usize)
+            .collect();
+        if rows.iter().any(|&r| r >= items) {
+            return None;
+        }
+        let values: Vec<f32> = words(20 + n * 4).map(f32::from_le_bytes).collect();
+        Some(Memory {
+            rows,
+            unit: Array2::from_shape_vec((n, width), values).ok()?,
+            usual: (!usual.is_nan()).then_some(usual),
+        })
+    }
+
     /// Familiarity of feature rows `x` (scaled); `items[i]`: the item row of `x`'s row
     /// `i`, if it is an indexed picture (never compared with itself).
     fn judge(&self, x: ArrayView2<f32>, items: &[Option<usize>]) -> Vec<Familiarity> {
@@ -145,15 +202,23 @@ impl Memory {
 }
 
 impl Queries {
-    fn memory(&self) -> Result<&Memory> {
+    pub(crate) fn memory(&self) -> Result<&Memory> {
         if let Some(memory) = self.memory.get() {
             return Ok(memory);
         }
-        let tagged = self.items.tagged_rows()?;
-        let (rows, scaled) = self.read_scaled(&spread(tagged, MEMORY))?;
-        Ok(self
-            .memory
-            .get_or_init(|| Memory::build(rows, scaled.view())))
+        let width = self.trained.feature_width();
+        let kept = self.kept_memory.read();
+        let memory = match kept.and_then(|b| Memory::from_bytes(&b, width, self.items.len())) {
+            Some(memory) => memory,
+            None => {
+                let tagged = self.items.tagged_rows()?;
+                let (rows, scaled) = self.read_scaled(&spread(tagged, MEMORY))?;
+                let memory = Memory::build(rows, scaled.view());
+                self.kept_memory.keep(&memory.to_bytes());
+                memory
+            }
+        };
+        Ok(self.memory.get_or_init(|| memory))
     }
 
     /// How similar each indexed picture (rows) is to the tagged pictures, itself left out.
@@ -201,6 +266,38 @@ mod tests {
         assert!(
             !Familiarity::judge(0.1, None).unlike_collection,
             "no reference, no flag"
+        );
+    }
+
+    #[test]
+    fn a_kept_memory_reads_back_as_it_was_and_a_damaged_one_not_at_all() {
+        let scaled = array![
+            [1.0f32, 0.0, 2.0],
+            [0.5, 0.5, 0.0],
+            [0.0, 3.0, 1.0],
+            [1.0, 1.0, 1.0],
+            [2.0, 0.0, 0.0]
+        ];
+        let memory = Memory::build(vec![4, 9, 2, 7, 0], scaled.view());
+        let bytes = memory.to_bytes();
+        let back = Memory::from_bytes(&bytes, 3, 10).unwrap();
+        assert_eq!(back.rows, memory.rows);
+        assert_eq!(back.unit, memory.unit);
+        assert_eq!(back.usual, memory.usual);
+        assert!(Memory::from_bytes(&bytes, 4, 10).is_none(), "another width");
+        assert!(
+            Memory::from_bytes(&bytes, 3, 9).is_none(),
+            "a row past the items"
+        );
+        assert!(
+            Memory::from_bytes(&bytes[..bytes.len() - 1], 3, 10).is_none(),
+            "cut short"
+        );
+        let none = Memory::build(vec![1], array![[1.0f32, 0.0, 0.0]].view());
+        assert_eq!(none.usual, None);
+        assert_eq!(
+            Memory::from_bytes(&none.to_bytes(), 3, 2).unwrap().usual,
+            None
         );
     }
 

@@ -14,7 +14,7 @@ use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::{closest_tag, normalize_tag, ItemRecord};
 use tagweave_store::{
-    CodeIndex, HeldVectors, Items, SearchMode, Store, StoreError, VectorReader, CODES,
+    CodeIndex, HeldVectors, Items, KeptAnswers, SearchMode, Store, StoreError, VectorReader, CODES,
     EXTRACTOR_BLOB, FEATURES,
 };
 use tagweave_suggest::{KnnScorer, SuggestError, TagColumns, TrainedModel, MODEL_FORMAT};
@@ -169,6 +169,8 @@ pub struct Queries {
     extractor: Option<FeatureExtractor>,
     /// The tagged pictures to judge familiarity by (see [`Familiarity`]), once asked.
     memory: familiar::MemoryCache,
+    /// Where that memory is kept between commands.
+    kept_memory: KeptAnswers,
 }
 
 impl Queries {
@@ -194,6 +196,13 @@ impl Queries {
             .model(MODEL_FORMAT, |m: &TrainedModel| m.format)?
             .ok_or(QueryError::NotTrained)?;
         let keeps_features = matches!(features, FeatureSource::Held(_));
+        // The page outlives the store and cannot know of changes made by others meanwhile:
+        // it reads a kept memory but keeps none.
+        let kept_memory = if keeps_features {
+            store.kept_answers_to_read(familiar::KEPT_AS)
+        } else {
+            store.kept_answers(familiar::KEPT_AS)
+        };
         let mut queries = Queries {
             root: store.collection_root().to_path_buf(),
             extractor: store.blob(EXTRACTOR_BLOB)?,
@@ -206,6 +215,7 @@ impl Queries {
             columns: trained.columns(),
             trained,
             memory: familiar::MemoryCache::new(),
+            kept_memory,
         };
         if keeps_features {
             // Outlives the store: load the code search now and keep no reader of it; the
@@ -213,6 +223,7 @@ impl Queries {
             queries.code_search()?;
             queries.code_reader = None;
             queries.neighbours()?;
+            queries.memory()?;
         }
         Ok(queries)
     }

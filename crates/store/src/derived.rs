@@ -56,3 +56,35 @@ fn write_whole(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     }
     written
 }
+
+/// A file of answers worked out from everything a store holds (items, vectors, model),
+/// kept beside it for the next reader: deleted before any change, written back only if
+/// nothing changed since this handle was taken.
+pub struct KeptAnswers {
+    path: PathBuf,
+    /// `None`: never written back (a handle that outlives its store cannot know of changes
+    /// made by others).
+    changes: Option<(Changes, u64)>,
+}
+
+impl KeptAnswers {
+    pub(crate) fn new(path: PathBuf, changes: Option<&Changes>) -> KeptAnswers {
+        KeptAnswers {
+            path,
+            changes: changes.map(|c| (c.clone(), c.seen())),
+        }
+    }
+
+    /// The kept bytes, if any (possibly damaged: the reader checks them).
+    pub fn read(&self) -> Option<Vec<u8>> {
+        std::fs::read(&self.path).ok()
+    }
+
+    /// Keeps `bytes` for the next reader, if nothing changed since the handle was taken
+    /// (best effort).
+    pub fn keep(&self, bytes: &[u8]) {
+        if let Some((changes, seen)) = &self.changes {
+            changes.write_if_unchanged(*seen, &self.path, bytes);
+        }
+    }
+}

@@ -666,3 +666,142 @@ fn items_read_one_at_a_time_answer_as_items_held() {
     assert_eq!(listed.tagged_rows().unwrap(), held.tagged_rows().unwrap());
     assert_eq!(listed.all().unwrap(), all);
 }
+
+/// A store with items, vectors and a blob, and what it should read back.
+fn store_with_some_of_everything(dir: &Path, root: &Path) -> (Store, Vec<ItemRecord>) {
+    let store = Store::open_or_create(dir, root).unwrap();
+    let records: Vec<ItemRecord> = (0..300)
+        .map(|i| item(&format!("p{i:03}.png"), &["harbour"]))
+        .collect();
+    store.update_items(&records, &[]).unwrap();
+    let features: Vec<(String, Vec<f32>)> = records
+        .iter()
+        .enumerate()
+        .map(|(i, r)| (r.id.clone(), vec![i as f32; 16]))
+        .collect();
+    store.put_vectors("features", &features).unwrap();
+    store.put_blob("notes", &vec!["kept".to_string()]).unwrap();
+    (store, records)
+}
+
+fn reads_everything_back(store: &Store, records: &[ItemRecord]) {
+    let items = store.items().unwrap();
+    assert!(records.iter().all(|r| items.contains(r)));
+    for (i, r) in records.iter().enumerate() {
+        assert_eq!(
+            store.vector("features", &r.id).unwrap(),
+            Some(vec![i as f32; 16])
+        );
+    }
+    assert_eq!(
+        store.blob::<Vec<String>>("notes").unwrap(),
+        Some(vec!["kept".to_string()])
+    );
+    store.check_format().unwrap();
+}
+
+#[test]
+fn a_compacted_database_keeps_every_entry_and_stays_writable() {
+    let (temp, dir) = collection();
+    let (mut store, records) = store_with_some_of_everything(&dir, temp.path());
+    assert!(
+        !store.compact_if_grown().unwrap(),
+        "a small database is left as it is"
+    );
+    store.compact_database().unwrap();
+    assert!(!dir.join(COMPACT_DIR).exists() && !dir.join(OLD_DIR).exists());
+    reads_everything_back(&store, &records);
+    let more = item("later.png", &[]);
+    store
+        .update_items(std::slice::from_ref(&more), &[])
+        .unwrap();
+    drop(store);
+    let store = Store::open(&dir).unwrap();
+    reads_everything_back(&store, &records);
+    let items = store.items().unwrap();
+    assert!(items.contains(&more) && items.len() == records.len() + 1);
+}
+
+fn copy_folder(from: &Path, to: &Path) {
+    std::fs::create_dir_all(to).unwrap();
+    for entry in std::fs::read_dir(from).unwrap() {
+        let entry = entry.unwrap();
+        let target = to.join(entry.file_name());
+        if entry.file_type().unwrap().is_dir() {
+            copy_folder(&entry.path(), &target);
+        } else {
+            std::fs::copy(entry.path(), &target).unwrap();
+        }
+    }
+}
+
+#[test]
+fn a_compaction_cut_short_is_undone_or_finished_at_the_next_open() {
+    let (temp, dir) = collection();
+    let (store, records) = store_with_some_of_everything(&dir, temp.path());
+    drop(store);
+    // Cut short while the copy was made: a partial copy beside the database goes.
+    std::fs::create_dir_all(dir.join(COMPACT_DIR)).unwrap();
+    std::fs::write(dir.join(COMPACT_DIR).join("db"), b"half").unwrap();
+    let store = Store::open(&dir).unwrap();
+    assert!(!dir.join(COMPACT_DIR).exists());
+    reads_everything_back(&store, &records);
+    drop(store);
+    // Cut short between the two renames: the whole copy takes the database's place.
+    copy_folder(&dir.join(DB_DIR), &dir.join(COMPACT_DIR));
+    std::fs::rename(dir.join(DB_DIR), dir.join(OLD_DIR)).unwrap();
+    assert_eq!(
+        Store::locate(temp.path()),
+        Some(dir.clone()),
+        "still a store"
+    );
+    let store = Store::open(&dir).unwrap();
+    assert!(!dir.join(COMPACT_DIR).exists() && !dir.join(OLD_DIR).exists());
+    reads_everything_back(&store, &records);
+    drop(store);
+    // Cut short before the old database was deleted: it goes.
+    copy_folder(&dir.join(DB_DIR), &dir.join(OLD_DIR));
+    let store = Store::open(&dir).unwrap();
+    assert!(!dir.join(OLD_DIR).exists());
+    reads_everything_back(&store, &records);
+}
+
+#[test]
+fn kept_answers_go_before_any_change_and_are_never_kept_after_one() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let kept = || store.kept_answers("familiar");
+    let file = dir.join("answers-familiar.bin");
+    let changes: [&dyn Fn(); 5] = [
+        &|| store.update_items(&[item("a.png", &["x"])], &[]).unwrap(),
+        &|| {
+            store
+                .put_vectors("features", &[("a".into(), vec![1.0; 4])])
+                .unwrap()
+        },
+        &|| store.clear_vectors("features").unwrap(),
+        &|| store.put_blob("model", &1u32).unwrap(),
+        &|| store.remove_blob("model").unwrap(),
+    ];
+    for (i, change) in changes.iter().enumerate() {
+        kept().keep(b"answers");
+        assert_eq!(
+            kept().read().as_deref(),
+            Some(&b"answers"[..]),
+            "change {i}"
+        );
+        let taken_before = kept();
+        change();
+        assert!(!file.exists(), "change {i} deletes them first");
+        taken_before.keep(b"stale");
+        assert!(
+            !file.exists(),
+            "change {i}: worked out before it, never kept"
+        );
+    }
+    store.kept_answers_to_read("familiar").keep(b"from a page");
+    assert!(
+        !file.exists(),
+        "a handle that outlives the store keeps nothing"
+    );
+}
