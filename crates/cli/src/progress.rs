@@ -174,13 +174,18 @@ mod tests {
     }
 }
 
-/// Rewrites the store's database compactly when a writer left it much grown (see
-/// `Store::compact_if_grown`), with a spinner while it runs on a terminal.
-pub fn compact_with_note(store: &mut tagweave_store::Store) -> anyhow::Result<()> {
-    let spinner = ProgressBar::new_spinner().with_message("tidying the database");
+/// `work` with a spinner named `what` while it runs (on a terminal).
+pub fn with_spinner<T>(what: &str, work: impl FnOnce() -> T) -> T {
+    let spinner = ProgressBar::new_spinner().with_message(what.to_string());
     spinner.enable_steady_tick(std::time::Duration::from_millis(200));
-    let compacted = store.compact_if_grown();
+    let done = work();
     spinner.finish_and_clear();
-    compacted?;
+    done
+}
+
+/// Rewrites the store's database compactly when a writer left it much grown (see
+/// `Store::compact_if_grown`).
+pub fn compact_with_note(store: &mut tagweave_store::Store) -> anyhow::Result<()> {
+    with_spinner("tidying the database", || store.compact_if_grown())?;
     Ok(())
 }

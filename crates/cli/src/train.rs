@@ -39,6 +39,10 @@ pub fn run(args: &TrainArgs) -> anyhow::Result<Outcome> {
     };
     let (report, curve_path) = train_with_progress(&store, &options)?;
     crate::progress::compact_with_note(&mut store)?;
+    // The first question after training would wait for these (8 s at a million pictures).
+    crate::progress::with_spinner("preparing for questions", || {
+        tagweave_query::Queries::open(&store)?.prepare()
+    })?;
     if args.json {
         let mut value = serde_json::to_value(&report)?;
         value["curves"] = serde_json::json!(curve_path);

@@ -228,6 +228,15 @@ impl Queries {
         Ok(queries)
     }
 
+    /// Works out what a first question would otherwise wait for (the code search, the
+    /// familiarity memory), which keeps it beside the store for later commands: for a
+    /// writer that just changed much (training).
+    pub fn prepare(&self) -> Result<()> {
+        self.code_search()?;
+        self.memory()?;
+        Ok(())
+    }
+
     fn code_search(&self) -> Result<&CodeSearch> {
         if let Some(search) = self.search.get() {
             return Ok(search);
