@@ -110,6 +110,22 @@ impl Progress {
     }
 }
 
+/// `work` with a spinner named `what` while it runs (on a terminal).
+pub fn with_spinner<T>(what: &str, work: impl FnOnce() -> T) -> T {
+    let spinner = ProgressBar::new_spinner().with_message(what.to_string());
+    spinner.enable_steady_tick(std::time::Duration::from_millis(200));
+    let done = work();
+    spinner.finish_and_clear();
+    done
+}
+
+/// Rewrites the store's database compactly when a writer left it much grown (see
+/// `Store::compact_if_grown`).
+pub fn compact_with_note(store: &mut tagweave_store::Store) -> anyhow::Result<()> {
+    with_spinner("tidying the database", || store.compact_if_grown())?;
+    Ok(())
+}
+
 #[cfg(test)]
 mod tests {
     use std::cell::Cell;
@@ -172,20 +188,4 @@ mod tests {
         assert_eq!(stage, "pretraining image layer");
         assert_eq!((bar.position(), bar.length()), (1, Some(5)));
     }
-}
-
-/// `work` with a spinner named `what` while it runs (on a terminal).
-pub fn with_spinner<T>(what: &str, work: impl FnOnce() -> T) -> T {
-    let spinner = ProgressBar::new_spinner().with_message(what.to_string());
-    spinner.enable_steady_tick(std::time::Duration::from_millis(200));
-    let done = work();
-    spinner.finish_and_clear();
-    done
-}
-
-/// Rewrites the store's database compactly when a writer left it much grown (see
-/// `Store::compact_if_grown`).
-pub fn compact_with_note(store: &mut tagweave_store::Store) -> anyhow::Result<()> {
-    with_spinner("tidying the database", || store.compact_if_grown())?;
-    Ok(())
 }

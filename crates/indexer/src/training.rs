@@ -10,9 +10,7 @@ use rayon::prelude::*;
 use serde::Serialize;
 use tagweave_collection::ItemRecord;
 use tagweave_model::{JointOptions, JointProgress};
-use tagweave_store::{
-    FeatureTable, Store, StoreError, CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB,
-};
+use tagweave_store::{FeatureTable, Store, StoreError, CODES, EXTRACTOR_BLOB, FEATURES};
 use tagweave_suggest::{
     Standardiser, TagColumns, TagSuggester, TrainSet, TrainedModel, TrainingData, TrainingHistory,
     TrainingRun, MODEL_FORMAT,
@@ -177,7 +175,7 @@ pub fn train(
 
     let trained = TrainedModel::new(&columns, standardiser, suggester, &data, history)?;
     store.clear_vectors(CODES)?;
-    store.put_blob(MODEL_BLOB, &trained)?;
+    store.put_model(&trained)?;
     let coded = code_missing(store, &trained, &mut |done, total| {
         progress(TrainProgress::Coding { done, total })
     })?;

@@ -104,11 +104,8 @@ impl Queries {
             .collect::<Result<_>>()?;
         let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());
         let mix = evidence.choose_mix();
-        let judged = rows
-            .iter()
-            .map(|&i| self.items.get(i))
-            .collect::<std::result::Result<Vec<_>, _>>()?;
-        let judged: Vec<&ItemRecord> = judged.iter().map(|item| item.as_ref()).collect();
+        let judged = self.items.records(&rows)?;
+        let judged: Vec<&ItemRecord> = judged.iter().collect();
         let queue = rank_disputes(&judged, &self.columns, probabilities.view(), &evidence, mix);
         Ok(Audit { mix, queue })
     }

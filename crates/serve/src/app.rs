@@ -61,7 +61,7 @@ pub struct Reply {
     /// Only on the answer to the one-time address: the pass.
     pub set_cookie: Option<String>,
     /// Seconds after which to ask again (answers about work still under way).
-    pub retry_after: Option<u32>,
+    pub retry_after: Option<u16>,
 }
 
 const HTML: &str = "text/html; charset=utf-8";
@@ -112,7 +112,7 @@ impl Reply {
 /// background before it answers "being worked out" (well inside a connection's 30 s).
 const WAIT_FOR_BACKGROUND: Duration = Duration::from_secs(10);
 /// Seconds after which a "being worked out" page reloads itself.
-const ASK_AGAIN_AFTER: u32 = 10;
+const ASK_AGAIN_AFTER: u16 = 10;
 
 /// What `cell` holds once it holds something, waiting at most `limit`.
 fn wait_for<T>(cell: &OnceLock<T>, limit: Duration) -> Option<&T> {

@@ -42,14 +42,18 @@ impl Changes {
 }
 
 /// Writes through a temporary file renamed into place, so a reader finds the whole file
-/// or none.
-fn write_whole(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+/// or none; the folder is made if missing and synced after the rename, so the file stays
+/// after a crash.
+pub(crate) fn write_whole(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     let temporary = path.with_extension("tmp");
     let written = (|| {
+        let folder = path.parent().unwrap_or(Path::new("."));
+        std::fs::create_dir_all(folder)?;
         let mut file = std::fs::File::create(&temporary)?;
         file.write_all(bytes)?;
         file.sync_data()?;
-        std::fs::rename(&temporary, path)
+        std::fs::rename(&temporary, path)?;
+        std::fs::File::open(folder)?.sync_all()
     })();
     if written.is_err() {
         let _ = std::fs::remove_file(&temporary);

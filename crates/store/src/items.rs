@@ -6,6 +6,7 @@ use std::borrow::Cow;
 use std::path::PathBuf;
 use std::sync::OnceLock;
 
+use rayon::prelude::*;
 use serde::Deserialize;
 use tagweave_collection::ItemRecord;
 
@@ -83,6 +84,13 @@ impl Items {
             }
             (None, None) => unreachable!("items are held or listed"),
         }
+    }
+
+    /// The items at `rows`, read on every core.
+    pub fn records(&self, rows: &[usize]) -> Result<Vec<ItemRecord>> {
+        rows.par_iter()
+            .map(|&row| Ok(self.get(row)?.into_owned()))
+            .collect()
     }
 
     /// Every item, by relative path (decoded on every core the first time).

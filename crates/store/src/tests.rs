@@ -263,7 +263,7 @@ fn a_holder_that_has_not_written_its_pid_yet_is_still_named() {
 }
 
 /// A model type of the caller's, as far as the store is concerned.
-#[derive(serde::Serialize, serde::Deserialize, Debug, PartialEq)]
+#[derive(serde::Serialize, serde::Deserialize, Debug, PartialEq, Clone)]
 struct Model {
     format: u32,
     weights: Vec<f32>,
@@ -283,7 +283,40 @@ fn the_model_is_read_only_in_the_format_asked_for() {
         weights: vec![0.5, -1.0],
     };
     store.put_blob(MODEL_BLOB, &model).unwrap();
-    assert_eq!(store.model(2, format_of).unwrap(), Some(model));
+    assert_eq!(
+        store.model(2, format_of).unwrap(),
+        Some(model.clone()),
+        "JSON"
+    );
+    store.put_model(&model).unwrap();
+    assert!(store
+        .blob_bytes(MODEL_BLOB)
+        .unwrap()
+        .unwrap()
+        .starts_with(BINARY_MODEL));
+    assert_eq!(store.model(2, format_of).unwrap(), Some(model), "binary");
+    // in binary, of another format: "train again"
+    store
+        .put_model(&Model {
+            format: 5,
+            weights: vec![1.0],
+        })
+        .unwrap();
+    assert!(matches!(
+        store.model(2, format_of),
+        Err(StoreError::ModelFormat {
+            found: 5,
+            expected: 2
+        })
+    ));
+    // binary that does not decode, of the asked format: damage
+    let mut garbled = BINARY_MODEL.to_vec();
+    garbled.extend_from_slice(&[2, 0xff]);
+    store.put_blob_bytes(MODEL_BLOB, &garbled).unwrap();
+    assert!(matches!(
+        store.model(2, format_of),
+        Err(StoreError::Corrupt { .. })
+    ));
     // readable but of another format, or of another shape with another format number:
     // "train again", not damage
     for (blob, found) in [
@@ -804,4 +837,33 @@ fn kept_answers_go_before_any_change_and_are_never_kept_after_one() {
         !file.exists(),
         "a handle that outlives the store keeps nothing"
     );
+}
+
+#[test]
+fn blobs_are_files_and_those_an_older_store_kept_in_the_database_still_read() {
+    let (temp, dir) = collection();
+    let store = Store::open_or_create(&dir, temp.path()).unwrap();
+    let file = dir.join(BLOB_DIR).join("notes.bin");
+    store.blobs.insert("notes", &b"[\"old\"]"[..]).unwrap();
+    assert_eq!(
+        store.blob::<Vec<String>>("notes").unwrap(),
+        Some(vec!["old".to_string()]),
+        "kept in the database"
+    );
+    store.put_blob("notes", &vec!["new".to_string()]).unwrap();
+    assert!(file.exists());
+    assert_eq!(
+        store.blobs.get("notes").unwrap(),
+        None,
+        "the older copy goes"
+    );
+    drop(store);
+    let store = Store::open(&dir).unwrap();
+    assert_eq!(
+        store.blob::<Vec<String>>("notes").unwrap(),
+        Some(vec!["new".to_string()])
+    );
+    store.remove_blob("notes").unwrap();
+    assert!(!file.exists());
+    assert_eq!(store.blob::<Vec<String>>("notes").unwrap(), None);
 }
