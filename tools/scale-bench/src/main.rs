@@ -483,7 +483,7 @@ pub(crate) fn run_measured(
                     unsafe { libc::kill(pid as libc::pid_t, libc::SIGKILL) };
                     return samples;
                 }
-                std::thread::sleep(Duration::from_millis(100));
+                std::thread::sleep(Duration::from_millis(10));
             }
             samples
         })
