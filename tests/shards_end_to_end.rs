@@ -147,7 +147,7 @@ fn parts_merged_make_the_store_one_scan_and_train_make() {
     assert_eq!(column(&again, "unchanged"), rows);
 
     ok(temp, &["train", "--store", path(&photos), "--json"]);
-    let model = temp.join("model.json");
+    let model = temp.join("model.bin");
     ok(
         temp,
         &[

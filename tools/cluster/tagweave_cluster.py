@@ -169,7 +169,7 @@ def main():
 
         if options.train:
             run_tagweave(binary, ["train", "--store", folder, "--json"])
-            model = os.path.join(work, "model.json")
+            model = os.path.join(work, "model.bin")
             run_tagweave(binary, ["shard", "model", "--store", folder, "--out", model])
             code_files = [os.path.join(work, f"codes-{k}.parquet") for k in parts]
             fan_out(client, code_part,

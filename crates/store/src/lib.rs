@@ -596,18 +596,8 @@ impl Store {
         let Some(bytes) = self.blob_bytes(MODEL_BLOB)? else {
             return Ok(None);
         };
-        let (model, header) = match bytes.strip_prefix(BINARY_MODEL.as_slice()) {
-            Some(binary) => (
-                postcard::from_bytes::<T>(binary).map_err(|e| e.to_string()),
-                postcard::take_from_bytes::<FormatOnly>(binary)
-                    .ok()
-                    .map(|(h, _)| h),
-            ),
-            None => (
-                serde_json::from_slice::<T>(&bytes).map_err(|e| e.to_string()),
-                serde_json::from_slice::<FormatOnly>(&bytes).ok(),
-            ),
-        };
+        let model = decode_model::<T>(&bytes);
+        let header = decode_model::<FormatOnly>(&bytes).ok();
         match (model, header) {
             (Ok(model), _) if format_of(&model) != format => Err(outdated(format_of(&model))),
             (Ok(model), _) => Ok(Some(model)),
@@ -872,6 +862,19 @@ impl Drop for Store {
         }
         // Best effort: every writer already flushed; this covers readers' bookkeeping.
         let _ = self.db.flush();
+    }
+}
+
+/// A model's bytes as [`Store::put_model`] writes them (binary), or as older stores kept
+/// them (JSON); the error says why they do not decode.
+pub fn decode_model<T: DeserializeOwned>(bytes: &[u8]) -> std::result::Result<T, String> {
+    match bytes.strip_prefix(BINARY_MODEL.as_slice()) {
+        // Read from the start, the rest left: a binary model's first field is its format
+        // number, which is how it is read alone.
+        Some(binary) => postcard::take_from_bytes::<T>(binary)
+            .map(|(model, _)| model)
+            .map_err(|e| e.to_string()),
+        None => serde_json::from_slice::<T>(bytes).map_err(|e| e.to_string()),
     }
 }
 

@@ -470,7 +470,15 @@ pub fn code_part(
     out: &Path,
 ) -> Result<CodeReport, IndexError> {
     let started = Instant::now();
-    let (model, bytes) = read_learned::<TrainedModel>(model_file, "a trained model")?;
+    let bytes = std::fs::read(model_file).map_err(|source| IndexError::Io {
+        path: model_file.to_path_buf(),
+        source,
+    })?;
+    let model: TrainedModel =
+        tagweave_store::decode_model(&bytes).map_err(|e| IndexError::ShardFile {
+            path: model_file.to_path_buf(),
+            problem: format!("not a trained model written by this tagweave ({e})"),
+        })?;
     if model.format != MODEL_FORMAT {
         return Err(StoreError::ModelFormat {
             found: model.format,
