@@ -8,7 +8,7 @@ use std::path::{Path, PathBuf};
 use std::process::Output;
 
 use common::*;
-use tagweave_store::{CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
+use tagweave_store::{CODES, EXTRACTOR_BLOB, FEATURES};
 
 fn ok(cwd: &Path, args: &[&str]) -> Output {
     let output = tagweave(cwd, args);
@@ -45,8 +45,14 @@ fn snapshot(store_dir: &Path) -> Snapshot {
             })
             .collect()
     };
-    let mut model: serde_json::Value =
-        serde_json::from_slice(&store.blob_bytes(MODEL_BLOB).unwrap().expect("a model")).unwrap();
+    let model = store
+        .model(
+            tagweave_suggest::MODEL_FORMAT,
+            |m: &tagweave_suggest::TrainedModel| m.format,
+        )
+        .unwrap()
+        .expect("a model");
+    let mut model = serde_json::to_value(&model).unwrap();
     model["history"]
         .as_object_mut()
         .expect("the model keeps its history")
