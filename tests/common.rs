@@ -13,6 +13,24 @@ pub fn tagweave(cwd: &Path, args: &[&str]) -> Output {
         .expect("the tagweave binary runs")
 }
 
+/// The store's trained model as JSON, without its wall-clock time (the one thing two
+/// identical trainings differ in), to compare runs.
+pub fn stored_model(store: &tagweave_store::Store) -> serde_json::Value {
+    let model = store
+        .model(
+            tagweave_suggest::MODEL_FORMAT,
+            |m: &tagweave_suggest::TrainedModel| m.format,
+        )
+        .unwrap()
+        .expect("a model");
+    let mut model = serde_json::to_value(&model).unwrap();
+    model["history"]
+        .as_object_mut()
+        .expect("the model keeps its history")
+        .remove("seconds");
+    model
+}
+
 pub fn json(output: &Output) -> serde_json::Value {
     serde_json::from_slice(&output.stdout).unwrap_or_else(|e| {
         panic!(

@@ -424,16 +424,7 @@ fn codes_and_model(folder: &Path) -> (Vec<(String, Vec<u32>)>, serde_json::Value
             (id, values.iter().map(|v| v.to_bits()).collect())
         })
         .collect();
-    let model = store
-        .model(
-            tagweave_suggest::MODEL_FORMAT,
-            |m: &tagweave_suggest::TrainedModel| m.format,
-        )
-        .unwrap()
-        .expect("a model");
-    let mut model = serde_json::to_value(&model).unwrap();
-    // wall-clock time is the one thing two identical trainings differ in
-    model["history"]["seconds"] = serde_json::Value::Null;
+    let model = stored_model(&store);
     (codes, model)
 }
 

@@ -45,18 +45,7 @@ fn snapshot(store_dir: &Path) -> Snapshot {
             })
             .collect()
     };
-    let model = store
-        .model(
-            tagweave_suggest::MODEL_FORMAT,
-            |m: &tagweave_suggest::TrainedModel| m.format,
-        )
-        .unwrap()
-        .expect("a model");
-    let mut model = serde_json::to_value(&model).unwrap();
-    model["history"]
-        .as_object_mut()
-        .expect("the model keeps its history")
-        .remove("seconds");
+    let model = stored_model(&store);
     Snapshot {
         items: store.items().unwrap(),
         features: vectors(FEATURES),

@@ -106,15 +106,7 @@ impl Store {
     /// the folder does not exist yet.
     pub fn open_or_create(dir: &Path, collection_root: &Path) -> Result<Store> {
         let fresh = !has_database(dir);
-        std::fs::create_dir_all(dir).map_err(|source| {
-            disk_full_named(
-                dir,
-                StoreError::Io {
-                    path: dir.to_path_buf(),
-                    source,
-                },
-            )
-        })?;
+        std::fs::create_dir_all(dir).map_err(|source| io_error(dir, dir, source))?;
         let mut store = Store::open_locked(dir, false)?;
         if fresh || store.is_unfinished()? {
             let root_value = if is_default_location(dir, collection_root) {
@@ -228,15 +220,7 @@ impl Store {
 
     fn open_locked(dir: &Path, brief: bool) -> Result<Store> {
         let lock = StoreLock::acquire_for(dir, brief).map_err(|e| disk_full_named(dir, e))?;
-        finish_compaction(dir).map_err(|source| {
-            disk_full_named(
-                dir,
-                StoreError::Io {
-                    path: dir.to_path_buf(),
-                    source,
-                },
-            )
-        })?;
+        finish_compaction(dir).map_err(|source| io_error(dir, dir, source))?;
         let db = open_database(&dir.join(DB_DIR)).map_err(|source| database_error(dir, source))?;
         let (meta, items, blobs) =
             store_trees(&db).map_err(|source| database_error(dir, source))?;
@@ -283,15 +267,7 @@ impl Store {
     /// Copies every tree into a fresh database and swaps it in (see [`Self::compact_if_grown`]).
     fn compact_database(&mut self) -> Result<()> {
         self.flush()?;
-        let io = |path: &Path, source| {
-            disk_full_named(
-                &self.dir,
-                StoreError::Io {
-                    path: path.to_path_buf(),
-                    source,
-                },
-            )
-        };
+        let io = |path: &Path, source| io_error(&self.dir, path, source);
         let fresh_path = self.dir.join(COMPACT_DIR);
         if fresh_path.exists() {
             std::fs::remove_dir_all(&fresh_path).map_err(|e| io(&fresh_path, e))?;
@@ -556,15 +532,7 @@ impl Store {
     pub fn put_blob_bytes(&self, name: &str, bytes: &[u8]) -> Result<()> {
         self.before_change(Vec::new())?;
         let file = self.blob_file(name);
-        derived::write_whole(&file, bytes).map_err(|source| {
-            disk_full_named(
-                &self.dir,
-                StoreError::Io {
-                    path: file.clone(),
-                    source,
-                },
-            )
-        })?;
+        derived::write_whole(&file, bytes).map_err(|source| io_error(&self.dir, &file, source))?;
         if self
             .blobs
             .remove(name)
@@ -766,15 +734,9 @@ impl Store {
     /// every file of kept answers (they are worked out from everything).
     fn before_change(&self, mut untrue: Vec<PathBuf>) -> Result<()> {
         untrue.extend(self.kept_answer_files());
-        self.changes.before(&untrue).map_err(|source| {
-            disk_full_named(
-                &self.dir,
-                StoreError::Io {
-                    path: self.dir.clone(),
-                    source,
-                },
-            )
-        })
+        self.changes
+            .before(&untrue)
+            .map_err(|source| io_error(&self.dir, &self.dir, source))
     }
 
     fn saved_search(&self, kind: &str) -> PathBuf {
@@ -938,6 +900,17 @@ pub(crate) fn database_error(dir: &Path, source: sled::Error) -> StoreError {
 
 /// `error`, or [`StoreError::DiskFull`] when it is a file of the store at `dir` that could
 /// not be written for want of space.
+/// An I/O error on `path` of the store at `dir`; a full disk said as such.
+fn io_error(dir: &Path, path: &Path, source: std::io::Error) -> StoreError {
+    disk_full_named(
+        dir,
+        StoreError::Io {
+            path: path.to_path_buf(),
+            source,
+        },
+    )
+}
+
 pub(crate) fn disk_full_named(dir: &Path, error: StoreError) -> StoreError {
     match error {
         StoreError::Io { source, .. } if source.kind() == std::io::ErrorKind::StorageFull => {
