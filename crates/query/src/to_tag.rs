@@ -97,6 +97,9 @@ pub fn pictures_to_tag(
         Some(q) => {
             let rows: Vec<usize> = (0..items.len()).filter(|&r| !tagged[r]).collect();
             let mut all = Array2::zeros((items.len(), q.vocabulary().len()));
+            // Every record at once: looking each path up in the list file would read it
+            // twenty times a picture.
+            q.items().all()?;
             let asked: Vec<usize> = rows
                 .iter()
                 .map(|&r| q.row_of_rel_path(&items[r].rel_path))

@@ -450,6 +450,11 @@ impl App {
         self.queries.items().loaded().unwrap_or_default()
     }
 
+    /// How many pictures carry tags (counted once, at the first asking).
+    fn tagged_count(&self) -> usize {
+        self.queries.items().tagged_rows().map_or(0, <[usize]>::len)
+    }
+
     fn item(&self, row: usize) -> &ItemRecord {
         &self.items()[row]
     }
@@ -533,7 +538,7 @@ impl App {
         let untagged_only = first(query, "untagged").is_some_and(|v| !v.is_empty());
         let limit = limit_of(query);
         let vocabulary = self.queries.vocabulary();
-        let tagged = self.items().iter().filter(|i| !i.tags.is_empty()).count();
+        let tagged = self.tagged_count();
         let mut content = pages::SearchContent {
             typed: typed.clone(),
             untagged_only,
@@ -712,7 +717,7 @@ impl App {
 
     /// The answer while the background work is not done: a page that reloads itself.
     fn being_worked_out(&self, what: &str) -> Reply {
-        let tagged = self.items().iter().filter(|i| !i.tags.is_empty()).count();
+        let tagged = self.tagged_count();
         let mut reply = self.message(
             503,
             &format!("The {what} is being worked out"),

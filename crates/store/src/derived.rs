@@ -22,13 +22,7 @@ impl Changes {
     pub(crate) fn before(&self, untrue: &[PathBuf]) -> std::io::Result<()> {
         let mut count = self.0.lock().unwrap_or_else(|e| e.into_inner());
         *count += 1;
-        for path in untrue {
-            match std::fs::remove_file(path) {
-                Err(e) if e.kind() != std::io::ErrorKind::NotFound => return Err(e),
-                _ => {}
-            }
-        }
-        Ok(())
+        untrue.iter().try_for_each(|path| remove_if_there(path))
     }
 
     /// Writes `bytes` to `path` if nothing changed since `seen`. Best effort: a store
@@ -38,6 +32,14 @@ impl Changes {
         if *count == seen {
             let _ = write_whole(path, bytes);
         }
+    }
+}
+
+/// Deletes `path`; one that is not there is fine.
+pub(crate) fn remove_if_there(path: &Path) -> std::io::Result<()> {
+    match std::fs::remove_file(path) {
+        Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(e),
+        _ => Ok(()),
     }
 }
 

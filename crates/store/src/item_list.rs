@@ -17,7 +17,6 @@ use std::os::unix::fs::FileExt;
 use std::path::{Path, PathBuf};
 
 use rayon::prelude::*;
-use serde::de::DeserializeOwned;
 use tagweave_collection::ItemRecord;
 
 use crate::{Result, StoreError};
@@ -119,17 +118,7 @@ pub(crate) fn read(
     path: &Path,
     decode: impl Fn(&str, &[u8]) -> Result<ItemRecord> + Sync,
 ) -> Option<Vec<ItemRecord>> {
-    let bytes = std::fs::read(path).ok()?;
-    let layout = Layout::parse(&bytes).filter(|l| l.file_len() == bytes.len())?;
-    (0..layout.count)
-        .into_par_iter()
-        .map(|row| {
-            let record = record_in(&bytes, &layout, row)
-                .ok_or_else(|| StoreError::Inconsistent(format!("item list #{row}")))?;
-            decode(&format!("item list #{row}"), record)
-        })
-        .collect::<Result<Vec<_>>>()
-        .ok()
+    ListFile::open(path)?.read_all(decode).ok()
 }
 
 /// The bytes of record `row` of a whole list file.
@@ -231,11 +220,6 @@ impl ListFile {
             })
             .collect()
     }
-}
-
-/// Decodes only some fields of a stored record (its path or id), to search the list.
-pub(crate) fn decode_part<T: DeserializeOwned>(bytes: &[u8]) -> Option<T> {
-    serde_json::from_slice(bytes).ok()
 }
 
 /// Item ids in ascending order with the row of each: `u32` row, `u8` length, the id.

@@ -7,10 +7,11 @@ use std::path::PathBuf;
 use std::sync::OnceLock;
 
 use rayon::prelude::*;
+use serde::de::DeserializeOwned;
 use serde::Deserialize;
 use tagweave_collection::ItemRecord;
 
-use crate::item_list::{decode_part, IdTable, ListFile};
+use crate::item_list::{IdTable, ListFile};
 use crate::{Result, StoreError};
 
 /// Every indexed item, each record read when asked (or all held, where they were read
@@ -18,11 +19,25 @@ use crate::{Result, StoreError};
 pub struct Items {
     dir: PathBuf,
     count: usize,
-    /// The item list, opened when the records are read when asked.
-    list: Option<ListFile>,
-    all: OnceLock<Vec<ItemRecord>>,
+    source: Source,
     ids: OnceLock<IdTable>,
     tagged: OnceLock<Vec<usize>>,
+}
+
+/// Where a record is read now (see [`Items::reading`]).
+enum Reading<'a> {
+    InMemory(&'a [ItemRecord]),
+    FromList(&'a ListFile),
+}
+
+enum Source {
+    /// All read already, by relative path.
+    Held(Vec<ItemRecord>),
+    /// The item list, a record read when asked; all of them once asked for all.
+    Listed {
+        list: ListFile,
+        all: OnceLock<Vec<ItemRecord>>,
+    },
 }
 
 impl Items {
@@ -31,8 +46,7 @@ impl Items {
         Items {
             dir,
             count: by_path.len(),
-            list: None,
-            all: OnceLock::from(by_path),
+            source: Source::Held(by_path),
             ids: OnceLock::new(),
             tagged: OnceLock::new(),
         }
@@ -43,8 +57,10 @@ impl Items {
         Items {
             dir,
             count: list.count(),
-            list: Some(list),
-            all: OnceLock::new(),
+            source: Source::Listed {
+                list,
+                all: OnceLock::new(),
+            },
             ids: OnceLock::new(),
             tagged: OnceLock::new(),
         }
@@ -66,23 +82,37 @@ impl Items {
         }
     }
 
-    /// The stored bytes of record `row` of the list.
-    fn record_bytes(&self, list: &ListFile, row: usize) -> Result<Vec<u8>> {
-        list.record(row)
-            .map_err(|e| self.damaged(&format!("item list #{row}"), e))
+    /// Record `row` of the list, decoded as `T` (the whole record, or some of its fields).
+    fn decode_record<T: DeserializeOwned>(&self, list: &ListFile, row: usize) -> Result<T> {
+        let key = format!("item list #{row}");
+        let bytes = list.record(row).map_err(|e| self.damaged(&key, e))?;
+        serde_json::from_slice(&bytes).map_err(|e| self.damaged(&key, e))
+    }
+
+    /// Every item, if all are read already (held, or read by [`Self::all`]).
+    pub fn loaded(&self) -> Option<&[ItemRecord]> {
+        match self.reading() {
+            Reading::InMemory(all) => Some(all),
+            Reading::FromList(_) => None,
+        }
+    }
+
+    /// Where a record is read now: among all of them in memory, or from the list.
+    fn reading(&self) -> Reading<'_> {
+        match &self.source {
+            Source::Held(all) => Reading::InMemory(all),
+            Source::Listed { list, all } => match all.get() {
+                Some(all) => Reading::InMemory(all),
+                None => Reading::FromList(list),
+            },
+        }
     }
 
     /// The item at `row` (relative-path order).
     pub fn get(&self, row: usize) -> Result<Cow<'_, ItemRecord>> {
-        match (self.all.get(), &self.list) {
-            (Some(all), _) => Ok(Cow::Borrowed(&all[row])),
-            (None, Some(list)) => {
-                let bytes = self.record_bytes(list, row)?;
-                let item = serde_json::from_slice(&bytes)
-                    .map_err(|e| self.damaged(&format!("item list #{row}"), e))?;
-                Ok(Cow::Owned(item))
-            }
-            (None, None) => unreachable!("items are held or listed"),
+        match self.reading() {
+            Reading::InMemory(all) => Ok(Cow::Borrowed(&all[row])),
+            Reading::FromList(list) => Ok(Cow::Owned(self.decode_record(list, row)?)),
         }
     }
 
@@ -95,39 +125,38 @@ impl Items {
 
     /// Every item, by relative path (decoded on every core the first time).
     pub fn all(&self) -> Result<&[ItemRecord]> {
-        if let Some(all) = self.all.get() {
-            return Ok(all);
+        match &self.source {
+            Source::Held(all) => Ok(all),
+            Source::Listed { list, all } => {
+                if let Some(all) = all.get() {
+                    return Ok(all);
+                }
+                let read = list.read_all(|key, bytes| {
+                    serde_json::from_slice(bytes).map_err(|e| self.damaged(key, e))
+                })?;
+                Ok(all.get_or_init(|| read))
+            }
         }
-        let list = self.list.as_ref().expect("items are held or listed");
-        let read = list.read_all(|key, bytes| {
-            serde_json::from_slice(bytes).map_err(|e| self.damaged(key, e))
-        })?;
-        Ok(self.all.get_or_init(|| read))
-    }
-
-    /// Every item, if all are read already (held, or read by [`Self::all`]).
-    pub fn loaded(&self) -> Option<&[ItemRecord]> {
-        self.all.get().map(Vec::as_slice)
     }
 
     /// The row of the item at `rel` (relative to the collection root, `/`-separated).
     pub fn row_of_rel_path(&self, rel: &str) -> Result<Option<usize>> {
-        if let Some(all) = self.all.get() {
-            return Ok(all
-                .binary_search_by(|item| item.rel_path.as_str().cmp(rel))
-                .ok());
-        }
+        let list = match self.reading() {
+            Reading::InMemory(all) => {
+                return Ok(all
+                    .binary_search_by(|item| item.rel_path.as_str().cmp(rel))
+                    .ok())
+            }
+            Reading::FromList(list) => list,
+        };
         #[derive(Deserialize)]
         struct PathOnly {
             rel_path: String,
         }
-        let list = self.list.as_ref().expect("items are held or listed");
         let (mut low, mut high) = (0, self.count);
         while low < high {
             let middle = (low + high) / 2;
-            let bytes = self.record_bytes(list, middle)?;
-            let path: PathOnly = decode_part(&bytes)
-                .ok_or_else(|| self.damaged(&format!("item list #{middle}"), "no path"))?;
+            let path: PathOnly = self.decode_record(list, middle)?;
             match path.rel_path.as_str().cmp(rel) {
                 std::cmp::Ordering::Less => low = middle + 1,
                 std::cmp::Ordering::Greater => high = middle,
@@ -146,12 +175,11 @@ impl Items {
         let table = match self.ids.get() {
             Some(table) => table,
             None => {
-                let table = match (&self.list, self.all.get()) {
-                    (Some(list), _) => list
+                let table = match &self.source {
+                    Source::Listed { list, .. } => list
                         .id_table()
                         .map_err(|e| self.damaged("item list ids", e))?,
-                    (None, Some(all)) => IdTable::of(all.iter().map(|item| item.id.as_str())),
-                    (None, None) => unreachable!("items are held or listed"),
+                    Source::Held(all) => IdTable::of(all.iter().map(|item| item.id.as_str())),
                 };
                 self.ids.get_or_init(|| table)
             }
@@ -164,26 +192,25 @@ impl Items {
         if let Some(rows) = self.tagged.get() {
             return Ok(rows);
         }
-        let rows = match (&self.list, self.all.get()) {
-            (Some(list), _) => list
+        let rows = match &self.source {
+            Source::Listed { list, .. } => list
                 .tagged_rows()
                 .map_err(|e| self.damaged("item list tagged rows", e))?
                 .into_iter()
                 .map(|r| r as usize)
                 .collect(),
-            (None, Some(all)) => (0..all.len())
+            Source::Held(all) => (0..all.len())
                 .filter(|&r| !all[r].tags.is_empty())
                 .collect(),
-            (None, None) => unreachable!("items are held or listed"),
         };
         Ok(self.tagged.get_or_init(|| rows))
     }
 
     /// Whether the item at `row` carries tags.
     pub fn is_tagged(&self, row: usize) -> Result<bool> {
-        if let Some(all) = self.all.get() {
-            return Ok(!all[row].tags.is_empty());
+        match self.reading() {
+            Reading::InMemory(all) => Ok(!all[row].tags.is_empty()),
+            Reading::FromList(_) => Ok(self.tagged_rows()?.binary_search(&row).is_ok()),
         }
-        Ok(self.tagged_rows()?.binary_search(&row).is_ok())
     }
 }

@@ -249,10 +249,7 @@ impl Store {
     pub fn compact_if_grown(&mut self) -> Result<bool> {
         let size = self.db.size_on_disk().map_err(|e| self.db_error(e))?;
         let last = self
-            .meta
-            .get(META_COMPACTED_SIZE)
-            .map_err(|e| self.db_error(e))?
-            .and_then(|bytes| <[u8; 8]>::try_from(bytes.as_ref()).ok())
+            .meta_array(META_COMPACTED_SIZE)?
             .map(u64::from_be_bytes);
         if size < COMPACT_FROM_BYTES || last.is_some_and(|last| size <= last / 2 * 3) {
             return Ok(false);
@@ -312,13 +309,17 @@ impl Store {
         Ok(())
     }
 
-    fn check_format(&self) -> Result<()> {
-        let found = self
+    /// A meta value of `N` bytes (a number); `None` when missing or of another length.
+    fn meta_array<const N: usize>(&self, key: &str) -> Result<Option<[u8; N]>> {
+        Ok(self
             .meta
-            .get(META_FORMAT)
+            .get(key)
             .map_err(|e| self.db_error(e))?
-            .and_then(|bytes| <[u8; 4]>::try_from(bytes.as_ref()).ok())
-            .map(u32::from_be_bytes);
+            .and_then(|bytes| <[u8; N]>::try_from(bytes.as_ref()).ok()))
+    }
+
+    fn check_format(&self) -> Result<()> {
+        let found = self.meta_array(META_FORMAT)?.map(u32::from_be_bytes);
         match found {
             Some(FORMAT_VERSION) => Ok(()),
             found => Err(StoreError::FormatMismatch {
@@ -564,13 +565,13 @@ impl Store {
         let Some(bytes) = self.blob_bytes(MODEL_BLOB)? else {
             return Ok(None);
         };
-        let model = decode_model::<T>(&bytes);
-        let header = decode_model::<FormatOnly>(&bytes).ok();
-        match (model, header) {
-            (Ok(model), _) if format_of(&model) != format => Err(outdated(format_of(&model))),
-            (Ok(model), _) => Ok(Some(model)),
-            (Err(_), Some(header)) if header.format != format => Err(outdated(header.format)),
-            (Err(error), _) => Err(self.corrupt(MODEL_BLOB, &error)),
+        match decode_model::<T>(&bytes) {
+            Ok(model) if format_of(&model) != format => Err(outdated(format_of(&model))),
+            Ok(model) => Ok(Some(model)),
+            Err(error) => match decode_model::<FormatOnly>(&bytes) {
+                Ok(header) if header.format != format => Err(outdated(header.format)),
+                _ => Err(self.corrupt(MODEL_BLOB, &error)),
+            },
         }
     }
 
@@ -591,13 +592,7 @@ impl Store {
         self.blobs.remove(name).map_err(|e| self.db_error(e))?;
         self.flush()?;
         let file = self.blob_file(name);
-        match std::fs::remove_file(&file) {
-            Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(StoreError::Io {
-                path: file,
-                source: e,
-            }),
-            _ => Ok(()),
-        }
+        derived::remove_if_there(&file).map_err(|source| io_error(&self.dir, &file, source))
     }
 
     /// Stores several vectors of one kind (`"features"`, `"code"` …), keyed by item id,
@@ -900,17 +895,6 @@ pub(crate) fn database_error(dir: &Path, source: sled::Error) -> StoreError {
 
 /// `error`, or [`StoreError::DiskFull`] when it is a file of the store at `dir` that could
 /// not be written for want of space.
-/// An I/O error on `path` of the store at `dir`; a full disk said as such.
-fn io_error(dir: &Path, path: &Path, source: std::io::Error) -> StoreError {
-    disk_full_named(
-        dir,
-        StoreError::Io {
-            path: path.to_path_buf(),
-            source,
-        },
-    )
-}
-
 pub(crate) fn disk_full_named(dir: &Path, error: StoreError) -> StoreError {
     match error {
         StoreError::Io { source, .. } if source.kind() == std::io::ErrorKind::StorageFull => {
@@ -921,6 +905,17 @@ pub(crate) fn disk_full_named(dir: &Path, error: StoreError) -> StoreError {
         }
         error => error,
     }
+}
+
+/// An I/O error on `path` of the store at `dir`; a full disk said as such.
+fn io_error(dir: &Path, path: &Path, source: std::io::Error) -> StoreError {
+    disk_full_named(
+        dir,
+        StoreError::Io {
+            path: path.to_path_buf(),
+            source,
+        },
+    )
 }
 
 fn is_default_location(dir: &Path, collection_root: &Path) -> bool {
