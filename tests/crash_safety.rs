@@ -82,7 +82,7 @@ fn kill_within(
         reference_seconds: duration.as_secs_f64(),
         ..KillReport::default()
     };
-    let total_items = open_store_copy(&reference).1.item_count();
+    let total_items = open_store_copy(&reference).1.item_count().unwrap();
     let reference_sidecars = sidecar_snapshot(&reference);
     // Runs vary with the machine's load: a run seen to end before its kill moment gives a
     // new estimate of the duration, and that slice is aimed at again (at most 3 times).

@@ -247,7 +247,7 @@ fn bad_part_files_are_refused_whole_by_name() {
     );
     let (_scratch, opened) = try_open_store_copy(&photos);
     if let Ok(opened) = opened {
-        assert_eq!(opened.item_count(), 0, "nothing half-merged");
+        assert_eq!(opened.item_count().unwrap(), 0, "nothing half-merged");
         assert_eq!(opened.blob_bytes(EXTRACTOR_BLOB).unwrap(), None);
     }
 

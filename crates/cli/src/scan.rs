@@ -39,6 +39,11 @@ pub fn run(args: &ScanArgs) -> anyhow::Result<Outcome> {
     let mut store = open_for_scan(args)?;
     let report = scan_with_progress(&store, &args.options())?;
     crate::progress::compact_with_note(&mut store)?;
+    // On a trained store, what the next question would wait for is worked out now (an
+    // untrained or outdated model has nothing to prepare; the summary says what to do).
+    if let Ok(queries) = tagweave_query::Queries::open(&store) {
+        crate::progress::with_spinner("preparing for questions", || queries.prepare())?;
+    }
     if args.json {
         let json = ScanJson::new(store.collection_root(), &report);
         println!("{}", serde_json::to_string(&json)?);

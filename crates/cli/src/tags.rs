@@ -40,7 +40,7 @@ pub fn run(args: &TagsArgs) -> anyhow::Result<Outcome> {
                 pictures: *pictures,
             })
             .collect();
-        let out = serde_json::json!({ "items": store.item_count(), "distinct": vocabulary.len(), "tags": tags });
+        let out = serde_json::json!({ "items": store.item_count()?, "distinct": vocabulary.len(), "tags": tags });
         println!("{out}");
     } else {
         print_table(&vocabulary, shown);

@@ -185,7 +185,7 @@ pub fn train(
     Ok(TrainReport {
         pictures: data.rows.len(),
         without_variants,
-        untagged: store.item_count().saturating_sub(tagged_in_all),
+        untagged: store.item_count()?.saturating_sub(tagged_in_all),
         sampled_from,
         accepted_suggestions,
         tags: trained.vocabulary.len(),

@@ -14,11 +14,10 @@ use rand::seq::IndexedRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
-use tagweave_collection::ItemRecord;
 use tagweave_suggest::ranking::roc_auc;
 use tagweave_suggest::{TagColumns, TagCounts};
 
-use crate::{tag_scores, Queries, Result, TagScore};
+use crate::{by_probability_then_tag, Queries, Result, TagScore};
 
 /// Carried tags whose mixed support is under this are listed as doubtful.
 const DISPUTED_BELOW: f32 = 0.05;
@@ -96,65 +95,137 @@ impl Queries {
                 queue: Vec::new(),
             });
         }
-        // A batch at a time: only the answers (pictures × tags) are held for every picture.
-        let (probabilities, shares) = self.suggest_and_shares(&rows)?;
-        let lists: Vec<Vec<usize>> = rows
-            .iter()
-            .map(|&r| self.evidence_columns(r))
-            .collect::<Result<_>>()?;
-        let evidence = Evidence::gather(&lists, shares.view(), self.columns.len());
+        // Of each picture only what the queue reads is kept (at a million pictures, the
+        // records of the tagged ones held 150 MB, rows over every tag 2 × 127 MB).
+        let (pictures, lists): (Vec<String>, Vec<Vec<usize>>) = self
+            .items
+            .records(&rows)?
+            .into_iter()
+            .map(|r| {
+                let list = self.columns_of_tags(&r.tags);
+                (r.rel_path, list)
+            })
+            .unzip();
+        let added = tags_added_at_random(&lists, self.columns.len());
+        let mut judged = Vec::with_capacity(rows.len());
+        let mut proposed = Vec::with_capacity(rows.len());
+        self.suggest_and_shares_by_batch(&rows, |at, probabilities, shares| {
+            judged.extend(judge(&lists[at.clone()], &added[at.clone()], shares));
+            proposed.extend(proposals(&lists[at], &self.columns, probabilities));
+            Ok(())
+        })?;
+        let evidence = Evidence::gather(judged, self.columns.len());
         let mix = evidence.choose_mix();
-        let judged = self.items.records(&rows)?;
-        let judged: Vec<&ItemRecord> = judged.iter().collect();
-        let queue = rank_disputes(&judged, &self.columns, probabilities.view(), &evidence, mix);
+        let queue = rank_disputes(pictures, &self.columns, proposed, &evidence, mix);
         Ok(Audit { mix, queue })
     }
 }
 
-/// Per judged picture: its carried tag columns and, for each, the two supports.
-struct Evidence<'a> {
-    lists: &'a [Vec<usize>],
-    shares: ArrayView2<'a, f32>,
+/// What the audit keeps of one judged picture.
+struct Judged {
+    /// Its carried tag columns, ascending.
+    carried: Vec<usize>,
+    /// The neighbour share of each carried tag.
+    shares: Vec<f32>,
+    /// The tag added at random to choose the mix, with its neighbour share.
+    added: Option<(usize, f32)>,
+}
+
+/// For each picture (its carried columns `lists[r]`), one tag it does not carry, drawn at
+/// random with a fixed seed (the same store gives the same queue); `None` when it carries
+/// every tag.
+fn tags_added_at_random(lists: &[Vec<usize>], n_tags: usize) -> Vec<Option<usize>> {
+    let mut rng = ChaCha8Rng::seed_from_u64(ADDED_TAG_SEED);
+    lists
+        .iter()
+        .map(|list| {
+            let absent: Vec<usize> = (0..n_tags).filter(|c| !list.contains(c)).collect();
+            absent.choose(&mut rng).copied()
+        })
+        .collect()
+}
+
+/// Row `r` of `shares` (pictures × tags) belongs to `lists[r]` and `added[r]`.
+fn judge(lists: &[Vec<usize>], added: &[Option<usize>], shares: ArrayView2<f32>) -> Vec<Judged> {
+    lists
+        .iter()
+        .zip(added)
+        .zip(shares.outer_iter())
+        .map(|((list, added), row)| Judged {
+            carried: list.clone(),
+            shares: list.iter().map(|&c| row[c]).collect(),
+            added: added.map(|c| (c, row[c])),
+        })
+        .collect()
+}
+
+/// The tags each picture does not carry but probably should, most probable first (row `r`
+/// of `probabilities` belongs to the picture carrying the columns `lists[r]`).
+fn proposals(
+    lists: &[Vec<usize>],
+    columns: &TagColumns,
+    probabilities: ArrayView2<f32>,
+) -> Vec<Vec<TagScore>> {
+    lists
+        .iter()
+        .zip(probabilities.outer_iter())
+        .map(|(list, row)| {
+            let mut likely: Vec<TagScore> = row
+                .iter()
+                .enumerate()
+                .filter(|&(c, &p)| p >= PROPOSED_FROM && !list.contains(&c))
+                .map(|(c, &p)| TagScore {
+                    tag: columns.tags()[c].clone(),
+                    probability: p,
+                    carried: false,
+                })
+                .collect();
+            likely.sort_by(by_probability_then_tag);
+            likely.truncate(PROPOSED_MAX);
+            likely
+        })
+        .collect()
+}
+
+/// Per judged picture: its carried tags and, for each, the two supports.
+struct Evidence {
+    judged: Vec<Judged>,
     counts: TagCounts,
-    /// `with_other_tags[r][k]`: co-occurrence support of `lists[r][k]`.
+    /// `with_other_tags[r][k]`: co-occurrence support of `judged[r].carried[k]`.
     with_other_tags: Vec<Vec<f32>>,
 }
 
-impl<'a> Evidence<'a> {
-    fn gather(lists: &'a [Vec<usize>], shares: ArrayView2<'a, f32>, n_tags: usize) -> Self {
-        let counts = TagCounts::count(lists, n_tags);
+impl Evidence {
+    fn gather(judged: Vec<Judged>, n_tags: usize) -> Self {
+        let lists: Vec<&[usize]> = judged.iter().map(|j| j.carried.as_slice()).collect();
+        let counts = TagCounts::count(&lists, n_tags);
         let with_other_tags = lists
             .iter()
             .map(|list| counts.support_without(list, list))
             .collect();
         Evidence {
-            lists,
-            shares,
+            judged,
             counts,
             with_other_tags,
         }
     }
 
-    /// The neighbour weight whose queue best ranks each picture with one added tag
-    /// (drawn at random among the tags it does not carry) above the pictures as they
-    /// are; the first of equals, so a collection with nothing to learn from keeps the
-    /// neighbours.
+    /// The neighbour weight whose queue best ranks each picture with its added tag above
+    /// the pictures as they are; the first of equals, so a collection with nothing to
+    /// learn from keeps the neighbours.
     fn choose_mix(&self) -> EvidenceMix {
-        let n_tags = self.shares.ncols();
-        let mut rng = ChaCha8Rng::seed_from_u64(ADDED_TAG_SEED);
         // (neighbour shares, co-occurrence supports) of each picture's tags, as it is
         // and with an added tag.
         let mut cases: Vec<(Vec<f32>, Vec<f32>, bool)> = Vec::new();
-        for (r, list) in self.lists.iter().enumerate() {
-            let absent: Vec<usize> = (0..n_tags).filter(|c| !list.contains(c)).collect();
-            let Some(&added) = absent.choose(&mut rng) else {
+        for (judged, with_other_tags) in self.judged.iter().zip(&self.with_other_tags) {
+            let Some((added, added_share)) = judged.added else {
                 continue;
             };
-            let shares_of = |tags: &[usize]| tags.iter().map(|&c| self.shares[[r, c]]).collect();
-            cases.push((shares_of(list), self.with_other_tags[r].clone(), false));
-            let altered = [list.as_slice(), &[added]].concat();
-            let supports = self.counts.support_without(&altered, list);
-            cases.push((shares_of(&altered), supports, true));
+            cases.push((judged.shares.clone(), with_other_tags.clone(), false));
+            let altered = [judged.carried.as_slice(), &[added]].concat();
+            let supports = self.counts.support_without(&altered, &judged.carried);
+            let shares = [judged.shares.as_slice(), &[added_share]].concat();
+            cases.push((shares, supports, true));
         }
         let added: Vec<bool> = cases.iter().map(|c| c.2).collect();
         let mut best = EvidenceMix {
@@ -197,44 +268,43 @@ fn doubts(neighbour_shares: &[f32], with_other_tags: &[f32], neighbours: f32) ->
         .collect()
 }
 
-/// Row `r` of `probabilities` and of the evidence belongs to `pictures[r]`; columns are
-/// `columns`. Each picture's carried tags (those the columns know) are judged by their
-/// mixed support; pictures come worst first.
+/// Row `r` of the evidence and of `proposed` belongs to the picture at `pictures[r]`
+/// (relative path); columns are `columns`. Each picture's carried tags (those the columns
+/// know) are judged by their mixed support; pictures come worst first.
 fn rank_disputes(
-    pictures: &[&ItemRecord],
+    pictures: Vec<String>,
     columns: &TagColumns,
-    probabilities: ArrayView2<f32>,
+    proposed: Vec<Vec<TagScore>>,
     evidence: &Evidence,
     mix: EvidenceMix,
 ) -> Vec<Dispute> {
     let mut out: Vec<Dispute> = pictures
-        .iter()
-        .enumerate()
-        .map(|(r, item)| {
-            let mut judged: Vec<DisputedTag> = evidence.lists[r]
+        .into_iter()
+        .zip(&evidence.judged)
+        .zip(&evidence.with_other_tags)
+        .zip(proposed)
+        .map(|(((picture, judged), with_other_tags), proposed)| {
+            let mut disputed: Vec<DisputedTag> = judged
+                .carried
                 .iter()
-                .zip(&evidence.with_other_tags[r])
-                .map(|(&c, &with_others)| {
-                    let share = evidence.shares[[r, c]];
-                    DisputedTag {
-                        tag: columns.tags()[c].clone(),
-                        neighbours_carrying: share,
-                        with_its_other_tags: with_others,
-                        support: mixed_support(share, with_others, mix.neighbours),
-                    }
+                .zip(&judged.shares)
+                .zip(with_other_tags)
+                .map(|((&c, &share), &with_others)| DisputedTag {
+                    tag: columns.tags()[c].clone(),
+                    neighbours_carrying: share,
+                    with_its_other_tags: with_others,
+                    support: mixed_support(share, with_others, mix.neighbours),
                 })
                 .collect();
-            judged.sort_by(|a, b| a.support.total_cmp(&b.support).then(a.tag.cmp(&b.tag)));
-            let doubt: Vec<f64> = judged.iter().map(|d| 1.0 - f64::from(d.support)).collect();
-            let proposed = tag_scores(columns.tags(), &probabilities.row(r).to_vec(), &item.tags)
-                .into_iter()
-                .filter(|s| !s.carried && s.probability >= PROPOSED_FROM)
-                .take(PROPOSED_MAX)
+            disputed.sort_by(|a, b| a.support.total_cmp(&b.support).then(a.tag.cmp(&b.tag)));
+            let doubt: Vec<f64> = disputed
+                .iter()
+                .map(|d| 1.0 - f64::from(d.support))
                 .collect();
             Dispute {
-                picture: item.rel_path.clone(),
+                picture,
                 score: review_score(&doubt),
-                disputed: judged
+                disputed: disputed
                     .into_iter()
                     .filter(|d| d.support < DISPUTED_BELOW)
                     .collect(),
@@ -257,22 +327,30 @@ fn review_score(doubts: &[f64]) -> f64 {
 mod tests {
     use super::*;
     use crate::tests::{item, strings};
+    use tagweave_collection::ItemRecord;
+
+    /// The evidence of pictures carrying `lists`, given their shares over every tag.
+    fn evidence(lists: &[Vec<usize>], shares: ArrayView2<f32>) -> Evidence {
+        let added = tags_added_at_random(lists, shares.ncols());
+        Evidence::gather(judge(lists, &added, shares), shares.ncols())
+    }
 
     /// The queue of `pictures` with the evidence mixed half and half.
     fn half_and_half_queue(
-        pictures: &[&ItemRecord],
+        pictures: &[ItemRecord],
         columns: &TagColumns,
         lists: &[Vec<usize>],
         shares: ArrayView2<f32>,
         probabilities: &ndarray::Array2<f32>,
     ) -> Vec<Dispute> {
-        let evidence = Evidence::gather(lists, shares, columns.len());
         let mix = EvidenceMix {
             neighbours: 0.5,
             other_tags: 0.5,
             added_tag_auc: None,
         };
-        rank_disputes(pictures, columns, probabilities.view(), &evidence, mix)
+        let proposed = proposals(lists, columns, probabilities.view());
+        let paths = pictures.iter().map(|p| p.rel_path.clone()).collect();
+        rank_disputes(paths, columns, proposed, &evidence(lists, shares), mix)
     }
 
     // Worked by hand. Columns boat (0), sea (1); "fog" is unknown to the model.
@@ -296,17 +374,15 @@ mod tests {
             item("b.jpg", &["boat", "sea"]),
             item("c.jpg", &["sea", "fog"]),
         ];
-        let judged: Vec<&ItemRecord> = pictures.iter().collect();
         let columns = TagColumns::from_items([strings(&["boat", "sea"]).as_slice()]);
         let lists = [vec![0], vec![0, 1], vec![1]];
         let shares = ndarray::array![[0.0f32, 0.9], [0.8, 0.02], [0.1, 0.6]];
         let probabilities = ndarray::array![[0.3f32, 0.7], [0.9, 0.4], [0.55, 0.8]];
-        let evidence = Evidence::gather(&lists, shares.view(), 2);
         assert_eq!(
-            evidence.with_other_tags,
+            evidence(&lists, shares.view()).with_other_tags,
             [vec![0.5], vec![0.25, 0.25], vec![0.5]]
         );
-        let queue = half_and_half_queue(&judged, &columns, &lists, shares.view(), &probabilities);
+        let queue = half_and_half_queue(&pictures, &columns, &lists, shares.view(), &probabilities);
         let order: Vec<&str> = queue.iter().map(|d| d.picture.as_str()).collect();
         assert_eq!(order, ["a.jpg", "b.jpg", "c.jpg"]);
         for (d, want) in queue.iter().zip([0.978_595, 0.928_138, 0.451_724]) {
@@ -342,7 +418,7 @@ mod tests {
             .map(|i| if i % 2 == 0 { vec![0, 1] } else { vec![2, 3] })
             .collect();
         let flat = ndarray::Array2::from_elem((6, 4), 0.5f32);
-        let mix = Evidence::gather(&lists, flat.view(), 4).choose_mix();
+        let mix = evidence(&lists, flat.view()).choose_mix();
         // every weight under 1 finds them all; the first tried (0.75) is kept
         assert_eq!(mix.neighbours, 0.75);
         assert_eq!(mix.added_tag_auc, Some(1.0));
@@ -350,13 +426,13 @@ mod tests {
         // (every picture carries the same two): the neighbours keep their full weight.
         let same: Vec<Vec<usize>> = (0..6).map(|_| vec![0, 1]).collect();
         let exact = ndarray::Array2::from_shape_fn((6, 4), |(_, c)| (c < 2) as u8 as f32);
-        let mix = Evidence::gather(&same, exact.view(), 4).choose_mix();
+        let mix = evidence(&same, exact.view()).choose_mix();
         assert_eq!(mix.neighbours, 1.0);
         assert_eq!(mix.added_tag_auc, Some(1.0));
         // A collection with one tag has nothing to add: neighbours, and no figure.
         let one: Vec<Vec<usize>> = (0..3).map(|_| vec![0]).collect();
         let ones = ndarray::Array2::from_elem((3, 1), 1.0f32);
-        let mix = Evidence::gather(&one, ones.view(), 1).choose_mix();
+        let mix = evidence(&one, ones.view()).choose_mix();
         assert_eq!((mix.neighbours, mix.added_tag_auc), (1.0, None));
     }
 
@@ -374,12 +450,11 @@ mod tests {
     #[test]
     fn at_most_three_tags_are_proposed() {
         let pictures = [item("a.jpg", &["d"])];
-        let judged: Vec<&ItemRecord> = pictures.iter().collect();
         let columns = TagColumns::from_items([strings(&["a", "b", "c", "d", "e"]).as_slice()]);
         let probabilities = ndarray::array![[0.9f32, 0.9, 0.9, 0.9, 0.49]];
         let shares = ndarray::array![[0.0f32, 0.0, 0.0, 1.0, 0.0]];
         let lists = [vec![3]];
-        let queue = half_and_half_queue(&judged, &columns, &lists, shares.view(), &probabilities);
+        let queue = half_and_half_queue(&pictures, &columns, &lists, shares.view(), &probabilities);
         let proposed: Vec<&str> = queue[0].proposed.iter().map(|s| s.tag.as_str()).collect();
         assert_eq!(proposed, ["a", "b", "c"]);
     }

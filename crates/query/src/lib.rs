@@ -229,11 +229,16 @@ impl Queries {
     }
 
     /// Works out what a first question would otherwise wait for (the code search, the
-    /// familiarity memory), which keeps it beside the store for later commands: for a
-    /// writer that just changed much (training).
+    /// familiarity memory, where each picture's features lie), which keeps it beside the
+    /// store for later commands: for a writer that just changed much (a scan, training).
+    /// Codes are only ever read all at once (the code search), so their locations are not
+    /// kept.
     pub fn prepare(&self) -> Result<()> {
         self.code_search()?;
         self.memory()?;
+        if let FeatureSource::Store(features) = &self.features {
+            features.keep_locations()?;
+        }
         Ok(())
     }
 
@@ -408,17 +413,29 @@ impl Queries {
     pub fn suggest_and_shares(&self, rows: &[usize]) -> Result<(Array2<f32>, Array2<f32>)> {
         let mut probabilities = Array2::zeros((rows.len(), self.columns.len()));
         let mut shares = Array2::zeros((rows.len(), self.columns.len()));
+        self.suggest_and_shares_by_batch(rows, |at, p, s| {
+            probabilities.slice_mut(s![at.clone(), ..]).assign(&p);
+            shares.slice_mut(s![at, ..]).assign(&s);
+            Ok(())
+        })?;
+        Ok((probabilities, shares))
+    }
+
+    /// [`Self::suggest_and_shares`] handed to `visit` a batch at a time with the
+    /// positions in `rows` it covers, for callers that keep only part of each answer.
+    pub fn suggest_and_shares_by_batch(
+        &self,
+        rows: &[usize],
+        mut visit: impl FnMut(std::ops::Range<usize>, ArrayView2<f32>, ArrayView2<f32>) -> Result<()>,
+    ) -> Result<()> {
         for (b, batch) in rows.chunks(READ_BATCH).enumerate() {
             let at = b * READ_BATCH..b * READ_BATCH + batch.len();
             let x = self.scaled_rows(batch)?;
-            probabilities
-                .slice_mut(s![at.clone(), ..])
-                .assign(&self.suggest_scaled(batch, x.view())?);
-            shares
-                .slice_mut(s![at, ..])
-                .assign(&self.shares_scaled(batch, x.view())?);
+            let probabilities = self.suggest_scaled(batch, x.view())?;
+            let shares = self.shares_scaled(batch, x.view())?;
+            visit(at, probabilities.view(), shares.view())?;
         }
-        Ok((probabilities, shares))
+        Ok(())
     }
 
     /// [`Self::suggest_rows`] given the rows' scaled features `x`.
@@ -478,16 +495,18 @@ impl Queries {
     }
 
     fn evidence_columns(&self, row: usize) -> Result<Vec<usize>> {
-        let mut columns: Vec<usize> = self
-            .items
-            .get(row)?
-            .tags
+        Ok(self.columns_of_tags(&self.items.get(row)?.tags))
+    }
+
+    /// The model's columns of `tags` (those it knows), ascending, each once.
+    fn columns_of_tags(&self, tags: &[String]) -> Vec<usize> {
+        let mut columns: Vec<usize> = tags
             .iter()
             .filter_map(|t| self.columns.index_of(t))
             .collect();
         columns.sort_unstable();
         columns.dedup();
-        Ok(columns)
+        columns
     }
 
     /// For indexed pictures (rows): the share of their most similar tagged pictures
@@ -902,12 +921,15 @@ fn tag_scores(vocabulary: &[String], probabilities: &[f32], carried: &[String]) 
             carried: carried.contains(tag),
         })
         .collect();
-    out.sort_by(|a, b| {
-        b.probability
-            .total_cmp(&a.probability)
-            .then(a.tag.cmp(&b.tag))
-    });
+    out.sort_by(by_probability_then_tag);
     out
+}
+
+/// Most probable first; ties by tag.
+fn by_probability_then_tag(a: &TagScore, b: &TagScore) -> std::cmp::Ordering {
+    b.probability
+        .total_cmp(&a.probability)
+        .then(a.tag.cmp(&b.tag))
 }
 
 /// The mean of `codes`, each `dim` values long; zeros when there are none.

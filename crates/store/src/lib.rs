@@ -4,11 +4,14 @@
 //! sidecars, so a format change or a damaged store is answered with "rebuild", never with
 //! a guess. One process at a time holds a store; the lock dies with the process.
 
+mod database;
 mod derived;
 mod error;
+mod facts;
 mod item_list;
 mod items;
 mod layout;
+mod location_table;
 mod lock;
 mod packing;
 mod reader;
@@ -17,7 +20,9 @@ mod table;
 mod vector_log;
 
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
+use database::{Database, LazyDatabase};
 use rayon::prelude::*;
 use serde::{de::DeserializeOwned, Serialize};
 use tagweave_collection::{ItemRecord, Vocabulary};
@@ -26,6 +31,7 @@ pub use derived::KeptAnswers;
 pub use error::StoreError;
 pub use items::Items;
 pub use layout::{CODES, EXTRACTOR_BLOB, FEATURES, MODEL_BLOB};
+use location_table::LocationTable;
 use lock::StoreLock;
 pub use reader::{HeldVectors, PackedVector, VectorReader};
 pub use search::{CodeIndex, CodeIndexBuilder, Hit, SearchMode, DEFAULT_CANDIDATES, MAX_DIM};
@@ -44,10 +50,6 @@ pub fn as_stored(kind: &str, values: &[f32]) -> Vec<f32> {
 /// trees holding where each lies.
 pub const FORMAT_VERSION: u32 = 3;
 
-/// sled's page cache. Its default (about 1 GiB) made loading 1,000,000 codes peak at 1.25 GB
-/// of RAM; with 64 MiB the peak was 542 MB and loading was faster (3.7 s against 6.8 s),
-/// measured with tools/code-search-bench.
-const PAGE_CACHE_BYTES: u64 = 64 << 20;
 /// The database's folder, and the folders of a compaction (see [`Store::compact_if_grown`]).
 const DB_DIR: &str = "db";
 const COMPACT_DIR: &str = "db.compact";
@@ -88,16 +90,11 @@ pub type Result<T> = std::result::Result<T, StoreError>;
 pub struct Store {
     dir: PathBuf,
     collection_root: PathBuf,
-    db: sled::Db,
-    meta: sled::Tree,
-    items: sled::Tree,
-    blobs: sled::Tree,
+    /// Opened when first needed (shared with the store's vector readers).
+    database: Arc<LazyDatabase>,
     /// Counts changes, so a derived file (the item list, a saved code index) read before
     /// a change is never written after it.
     changes: derived::Changes,
-    /// Set once the database reported an error: sled's flush then waits forever (seen
-    /// with a full disk), so nothing flushes it on drop.
-    failed: std::sync::atomic::AtomicBool,
     _lock: StoreLock,
 }
 
@@ -108,6 +105,12 @@ impl Store {
         let fresh = !has_database(dir);
         std::fs::create_dir_all(dir).map_err(|source| io_error(dir, dir, source))?;
         let mut store = Store::open_locked(dir, false)?;
+        if fresh {
+            let facts = facts::path_in(dir);
+            derived::remove_if_there(&facts).map_err(|source| io_error(dir, &facts, source))?;
+        } else if store.open_by_facts()? {
+            return Ok(store);
+        }
         if fresh || store.is_unfinished()? {
             let root_value = if is_default_location(dir, collection_root) {
                 ROOT_IS_PARENT.to_string()
@@ -119,8 +122,7 @@ impl Store {
             store.put_meta(META_FORMAT, &FORMAT_VERSION.to_be_bytes())?;
             store.flush()?;
         }
-        store.check_format()?;
-        store.collection_root = store.read_root()?;
+        store.check_format_and_root()?;
         Ok(store)
     }
 
@@ -136,14 +138,41 @@ impl Store {
             });
         }
         let mut store = Store::open_locked(dir, brief)?;
+        if store.open_by_facts()? {
+            return Ok(store);
+        }
         if store.is_unfinished()? {
             return Err(StoreError::NotAStore {
                 dir: dir.to_path_buf(),
             });
         }
-        store.check_format()?;
-        store.collection_root = store.read_root()?;
+        store.check_format_and_root()?;
         Ok(store)
+    }
+
+    /// Takes the format version and root from the facts file, when it is there and of
+    /// this format: then the database stays closed until something needs it.
+    fn open_by_facts(&mut self) -> Result<bool> {
+        match facts::read(&facts::path_in(&self.dir)) {
+            Some((FORMAT_VERSION, root)) => {
+                self.collection_root = self.resolve_root(&root)?;
+                Ok(true)
+            }
+            _ => Ok(false),
+        }
+    }
+
+    /// Checks the database's format version and reads its root, then keeps both in the
+    /// facts file for the next opening (best effort).
+    fn check_format_and_root(&mut self) -> Result<()> {
+        self.check_format()?;
+        let root = self.raw_root()?;
+        self.collection_root = self.resolve_root(&root)?;
+        let _ = derived::write_whole(
+            &facts::path_in(&self.dir),
+            &facts::encode(FORMAT_VERSION, &root),
+        );
+        Ok(())
     }
 
     /// Opens an existing store like [`Store::open`], waiting up to `patience` while its
@@ -178,7 +207,8 @@ impl Store {
     /// first flush): no format version and nothing else written. Such a store is created
     /// anew rather than refused as an unknown format.
     fn is_unfinished(&self) -> Result<bool> {
-        let versioned = self
+        let database = self.db()?;
+        let versioned = database
             .meta
             .contains_key(META_FORMAT)
             .map_err(|e| self.db_error(e))?;
@@ -186,7 +216,7 @@ impl Store {
         for kind in self.vector_kinds()? {
             no_vectors &= self.vector_tree(&kind)?.is_empty();
         }
-        Ok(!versioned && self.items.is_empty() && self.blobs.is_empty() && no_vectors)
+        Ok(!versioned && database.items.is_empty() && database.blobs.is_empty() && no_vectors)
     }
 
     /// The nearest `.tagweave` folder in `start` or any folder above it, the way git
@@ -221,20 +251,18 @@ impl Store {
     fn open_locked(dir: &Path, brief: bool) -> Result<Store> {
         let lock = StoreLock::acquire_for(dir, brief).map_err(|e| disk_full_named(dir, e))?;
         finish_compaction(dir).map_err(|source| io_error(dir, dir, source))?;
-        let db = open_database(&dir.join(DB_DIR)).map_err(|source| database_error(dir, source))?;
-        let (meta, items, blobs) =
-            store_trees(&db).map_err(|source| database_error(dir, source))?;
         Ok(Store {
             dir: dir.to_path_buf(),
             collection_root: PathBuf::new(),
-            meta,
-            items,
-            blobs,
+            database: Arc::new(LazyDatabase::new(dir, dir.join(DB_DIR))),
             changes: derived::Changes::default(),
-            failed: std::sync::atomic::AtomicBool::new(false),
-            db,
             _lock: lock,
         })
+    }
+
+    /// The database, opened now if no one needed it before.
+    fn db(&self) -> Result<&Database> {
+        self.database.get()
     }
 
     /// Rewrites the database compactly when its file grew past 1.5 × its size after the
@@ -247,7 +275,7 @@ impl Store {
     /// folder has none. The copy is swapped in by two renames; a swap cut short is finished
     /// or undone at the next open ([`finish_compaction`]).
     pub fn compact_if_grown(&mut self) -> Result<bool> {
-        let size = self.db.size_on_disk().map_err(|e| self.db_error(e))?;
+        let size = self.db()?.db.size_on_disk().map_err(|e| self.db_error(e))?;
         let last = self
             .meta_array(META_COMPACTED_SIZE)?
             .map(u64::from_be_bytes);
@@ -255,7 +283,7 @@ impl Store {
             return Ok(false);
         }
         self.compact_database()?;
-        let size = self.db.size_on_disk().map_err(|e| self.db_error(e))?;
+        let size = self.db()?.db.size_on_disk().map_err(|e| self.db_error(e))?;
         self.put_meta(META_COMPACTED_SIZE, &size.to_be_bytes())?;
         self.flush()?;
         Ok(true)
@@ -269,10 +297,11 @@ impl Store {
         if fresh_path.exists() {
             std::fs::remove_dir_all(&fresh_path).map_err(|e| io(&fresh_path, e))?;
         }
+        let db = &self.db()?.db;
         let copied = (|| -> sled::Result<()> {
-            let fresh = open_database(&fresh_path)?;
-            for name in self.db.tree_names() {
-                let (from, to) = (self.db.open_tree(&name)?, fresh.open_tree(&name)?);
+            let fresh = Database::open(&fresh_path)?.db;
+            for name in db.tree_names() {
+                let (from, to) = (db.open_tree(&name)?, fresh.open_tree(&name)?);
                 let mut batch = sled::Batch::default();
                 for (i, entry) in from.iter().enumerate() {
                     let (key, value) = entry?;
@@ -291,27 +320,20 @@ impl Store {
             return Err(self.db_error(error));
         }
         // Let go of the old database (sled closes its file with its last handle), swap the
-        // folders, and open the copy.
-        let placeholder = sled::Config::new()
-            .temporary(true)
-            .open()
-            .map_err(|e| self.db_error(e))?;
-        (self.meta, self.items, self.blobs) =
-            store_trees(&placeholder).map_err(|e| self.db_error(e))?;
-        drop(std::mem::replace(&mut self.db, placeholder));
-        let (db_path, old_path) = (self.dir.join(DB_DIR), self.dir.join(OLD_DIR));
+        // folders; the copy opens when next needed.
+        let db_path = self.dir.join(DB_DIR);
+        self.database = Arc::new(LazyDatabase::new(&self.dir, db_path.clone()));
+        let old_path = self.dir.join(OLD_DIR);
         std::fs::rename(&db_path, &old_path).map_err(|e| io(&db_path, e))?;
         std::fs::rename(&fresh_path, &db_path).map_err(|e| io(&fresh_path, e))?;
         std::fs::remove_dir_all(&old_path).map_err(|e| io(&old_path, e))?;
-        self.db = open_database(&db_path).map_err(|e| self.db_error(e))?;
-        (self.meta, self.items, self.blobs) =
-            store_trees(&self.db).map_err(|e| self.db_error(e))?;
         Ok(())
     }
 
     /// A meta value of `N` bytes (a number); `None` when missing or of another length.
     fn meta_array<const N: usize>(&self, key: &str) -> Result<Option<[u8; N]>> {
         Ok(self
+            .db()?
             .meta
             .get(key)
             .map_err(|e| self.db_error(e))?
@@ -330,13 +352,21 @@ impl Store {
         }
     }
 
-    fn read_root(&self) -> Result<PathBuf> {
+    /// The collection root as the database keeps it.
+    fn raw_root(&self) -> Result<String> {
         let raw = self
+            .db()?
             .meta
             .get(META_ROOT)
             .map_err(|e| self.db_error(e))?
             .ok_or_else(|| self.corrupt(META_ROOT, "missing"))?;
-        let text = std::str::from_utf8(&raw).map_err(|_| self.corrupt(META_ROOT, "not UTF-8"))?;
+        std::str::from_utf8(&raw)
+            .map(str::to_string)
+            .map_err(|_| self.corrupt(META_ROOT, "not UTF-8"))
+    }
+
+    /// The folder a root kept as `text` names.
+    fn resolve_root(&self, text: &str) -> Result<PathBuf> {
         if text == ROOT_IS_PARENT {
             let parent = absolute(&self.dir)?;
             Ok(parent.parent().map(Path::to_path_buf).unwrap_or(parent))
@@ -373,6 +403,7 @@ impl Store {
         }
         let seen = self.changes.seen();
         let stored: Vec<(sled::IVec, sled::IVec)> = self
+            .db()?
             .items
             .iter()
             .collect::<std::result::Result<_, _>>()
@@ -414,7 +445,8 @@ impl Store {
 
     /// One item by id.
     pub fn item(&self, id: &str) -> Result<Option<ItemRecord>> {
-        self.items
+        self.db()?
+            .items
             .get(id)
             .map_err(|e| self.db_error(e))?
             .map(|value| self.decode(id, &value))
@@ -422,8 +454,11 @@ impl Store {
     }
 
     /// Number of indexed items (sled counts by walking them all; the item list knows).
-    pub fn item_count(&self) -> usize {
-        item_list::count(&item_list::path_in(&self.dir)).unwrap_or_else(|| self.items.len())
+    pub fn item_count(&self) -> Result<usize> {
+        match item_list::count(&item_list::path_in(&self.dir)) {
+            Some(count) => Ok(count),
+            None => Ok(self.db()?.items.len()),
+        }
     }
 
     /// Writes a batch of new or refreshed items and removes the given ids, then flushes so
@@ -445,7 +480,7 @@ impl Store {
         // (recomputed by the next scan), never an item with vectors of other bytes.
         if !stale.is_empty() {
             let kinds = self.vector_kinds()?;
-            self.before_change(kinds.iter().map(|k| self.saved_search(k)).collect())?;
+            self.before_change(kinds.iter().flat_map(|k| self.derived_from(k)).collect())?;
             for kind in kinds {
                 let tree = self.vector_tree(&kind)?;
                 let mut vector_batch = sled::Batch::default();
@@ -469,7 +504,8 @@ impl Store {
         for id in removals {
             batch.remove(id.as_bytes());
         }
-        self.items
+        self.db()?
+            .items
             .apply_batch(batch)
             .map_err(|e| self.db_error(e))?;
         self.flush()
@@ -514,6 +550,7 @@ impl Store {
         }
         // Stores written before blobs became files keep them in the database.
         Ok(self
+            .db()?
             .blobs
             .get(name)
             .map_err(|e| self.db_error(e))?
@@ -535,6 +572,7 @@ impl Store {
         let file = self.blob_file(name);
         derived::write_whole(&file, bytes).map_err(|source| io_error(&self.dir, &file, source))?;
         if self
+            .db()?
             .blobs
             .remove(name)
             .map_err(|e| self.db_error(e))?
@@ -589,7 +627,10 @@ impl Store {
         self.before_change(Vec::new())?;
         // The database's copy first: a crash in between leaves the file, never an older
         // copy to come back.
-        self.blobs.remove(name).map_err(|e| self.db_error(e))?;
+        self.db()?
+            .blobs
+            .remove(name)
+            .map_err(|e| self.db_error(e))?;
         self.flush()?;
         let file = self.blob_file(name);
         derived::remove_if_there(&file).map_err(|source| io_error(&self.dir, &file, source))
@@ -601,7 +642,7 @@ impl Store {
     pub fn put_vectors(&self, kind: &str, rows: &[(String, Vec<f32>)]) -> Result<()> {
         let files = self.vector_files(kind)?;
         let tree = self.vector_tree(kind)?;
-        self.before_change(vec![self.saved_search(kind)])?;
+        self.before_change(self.derived_from(kind))?;
         let packed: Vec<Vec<u8>> = rows
             .iter()
             .map(|(_, values)| packing::pack(kind, values))
@@ -619,10 +660,9 @@ impl Store {
         self.set_live_bytes(kind, live)?;
         self.flush()?;
         if files.worth_compacting(live)? {
-            let live = files.compact(&tree).inspect_err(|_| {
-                self.failed
-                    .store(true, std::sync::atomic::Ordering::Relaxed)
-            })?;
+            let live = files
+                .compact(&tree)
+                .inspect_err(|_| self.database.mark_failed())?;
             self.set_live_bytes(kind, live)?;
             self.flush()?;
         }
@@ -636,9 +676,13 @@ impl Store {
 
     /// The vectors of `kind`, to read a few at a time while this store is open.
     pub fn vector_reader(&self, kind: &str) -> Result<VectorReader> {
+        let files = self.vector_files(kind)?;
+        let table = location_table::path_in(&self.dir, kind);
         Ok(VectorReader {
-            tree: self.vector_tree(kind)?,
-            files: self.vector_files(kind)?,
+            database: Arc::clone(&self.database),
+            table: LocationTable::open(&table, &files.state()?).map(Arc::new),
+            tree: std::sync::OnceLock::new(),
+            files,
             dir: self.dir.clone(),
             kind: kind.to_string(),
             changes: self.changes.clone(),
@@ -668,7 +712,7 @@ impl Store {
 
     /// Drops every vector of one kind (for example after relearning features).
     pub fn clear_vectors(&self, kind: &str) -> Result<()> {
-        self.before_change(vec![self.saved_search(kind)])?;
+        self.before_change(self.derived_from(kind))?;
         self.vector_tree(kind)?
             .clear()
             .map_err(|e| self.db_error(e))?;
@@ -680,9 +724,7 @@ impl Store {
     /// The tree holding where the vectors of `kind` lie (one per kind, so reading one
     /// kind never walks the others).
     fn vector_tree(&self, kind: &str) -> Result<sled::Tree> {
-        self.db
-            .open_tree(format!("{VECTOR_TREE_PREFIX}{kind}"))
-            .map_err(|e| self.db_error(e))
+        vector_tree(&self.database, kind)
     }
 
     fn vector_files(&self, kind: &str) -> Result<VectorFiles> {
@@ -734,13 +776,19 @@ impl Store {
             .map_err(|source| io_error(&self.dir, &self.dir, source))
     }
 
-    fn saved_search(&self, kind: &str) -> PathBuf {
-        search::saved_path(&self.dir, kind)
+    /// The derived files worked out from the vectors of `kind`: its saved code index and
+    /// its table of locations.
+    fn derived_from(&self, kind: &str) -> Vec<PathBuf> {
+        vec![
+            search::saved_path(&self.dir, kind),
+            location_table::path_in(&self.dir, kind),
+        ]
     }
 
     /// Every vector kind the store holds.
     fn vector_kinds(&self) -> Result<Vec<String>> {
         Ok(self
+            .db()?
             .db
             .tree_names()
             .into_iter()
@@ -764,6 +812,7 @@ impl Store {
 
     fn live_bytes(&self, kind: &str) -> Result<u64> {
         Ok(self
+            .db()?
             .meta
             .get(format!("{META_LIVE_PREFIX}{kind}"))
             .map_err(|e| self.db_error(e))?
@@ -772,7 +821,8 @@ impl Store {
     }
 
     fn set_live_bytes(&self, kind: &str, live: u64) -> Result<()> {
-        self.meta
+        self.db()?
+            .meta
             .insert(format!("{META_LIVE_PREFIX}{kind}"), &live.to_be_bytes())
             .map(|_| ())
             .map_err(|e| self.db_error(e))
@@ -780,11 +830,19 @@ impl Store {
 
     /// Makes everything written so far durable.
     pub fn flush(&self) -> Result<()> {
-        self.db.flush().map(|_| ()).map_err(|e| self.db_error(e))
+        match self.database.if_open() {
+            Some(database) => database
+                .db
+                .flush()
+                .map(|_| ())
+                .map_err(|e| self.db_error(e)),
+            None => Ok(()),
+        }
     }
 
     fn put_meta(&mut self, key: &str, value: &[u8]) -> Result<()> {
-        self.meta
+        self.db()?
+            .meta
             .insert(key, value)
             .map(|_| ())
             .map_err(|e| self.db_error(e))
@@ -795,9 +853,7 @@ impl Store {
     }
 
     fn db_error(&self, source: sled::Error) -> StoreError {
-        self.failed
-            .store(true, std::sync::atomic::Ordering::Relaxed);
-        database_error(&self.dir, source)
+        self.database.error(source)
     }
 
     fn corrupt(&self, key: &str, detail: &str) -> StoreError {
@@ -806,19 +862,6 @@ impl Store {
             key: key.to_string(),
             detail: detail.to_string(),
         }
-    }
-}
-
-impl Drop for Store {
-    fn drop(&mut self) {
-        if self.failed.load(std::sync::atomic::Ordering::Relaxed) {
-            // sled flushes when its last handle goes and, after an I/O error, waits for
-            // that flush forever: keep one handle, so the process can end with its error.
-            std::mem::forget(self.db.clone());
-            return;
-        }
-        // Best effort: every writer already flushed; this covers readers' bookkeeping.
-        let _ = self.db.flush();
     }
 }
 
@@ -840,21 +883,14 @@ fn has_database(dir: &Path) -> bool {
     dir.join(DB_DIR).exists() || dir.join(COMPACT_DIR).exists()
 }
 
-fn open_database(path: &Path) -> sled::Result<sled::Db> {
-    sled::Config::new()
-        .path(path)
-        .mode(sled::Mode::LowSpace)
-        .cache_capacity(PAGE_CACHE_BYTES)
-        .open()
-}
-
-/// The trees every store has: meta, items, blobs.
-fn store_trees(db: &sled::Db) -> sled::Result<(sled::Tree, sled::Tree, sled::Tree)> {
-    Ok((
-        db.open_tree("meta")?,
-        db.open_tree("items")?,
-        db.open_tree("blobs")?,
-    ))
+/// The tree holding where the vectors of `kind` lie (one per kind, so reading one kind
+/// never walks the others).
+fn vector_tree(database: &LazyDatabase, kind: &str) -> Result<sled::Tree> {
+    database
+        .get()?
+        .db
+        .open_tree(format!("{VECTOR_TREE_PREFIX}{kind}"))
+        .map_err(|e| database.error(e))
 }
 
 /// Finishes or undoes a compaction cut short (see [`Store::compact_if_grown`]): a copy

@@ -2,9 +2,12 @@
 //! costs the memory of those few, not of the whole collection.
 
 use std::path::{Path, PathBuf};
+use std::sync::{Arc, OnceLock};
 
 use rayon::prelude::*;
 
+use crate::database::LazyDatabase;
+use crate::location_table::{self, LocationTable};
 use crate::vector_log::{Location, VectorFiles};
 use crate::{packing, Result, StoreError};
 
@@ -13,8 +16,13 @@ use crate::{packing, Result, StoreError};
 /// (the review page's) keeps [`PackedVector`]s instead.
 #[derive(Clone)]
 pub struct VectorReader {
-    /// Where each item's vector lies in `files`.
-    pub(crate) tree: sled::Tree,
+    /// The store's database, whose tree of the kind says where each item's vector lies in
+    /// `files` (opened only when the table below cannot answer).
+    pub(crate) database: Arc<LazyDatabase>,
+    /// The same as a derived file, when it is there and true.
+    pub(crate) table: Option<Arc<LocationTable>>,
+    /// The database's tree of the kind, once opened.
+    pub(crate) tree: OnceLock<sled::Tree>,
     pub(crate) files: VectorFiles,
     pub(crate) dir: PathBuf,
     pub(crate) kind: String,
@@ -33,12 +41,18 @@ impl VectorReader {
     /// Every vector of the kind as `(id, values)`, in id order, read as it goes.
     pub fn iter(&self) -> impl Iterator<Item = Result<(String, Vec<f32>)>> + 'static {
         let reader = self.clone();
-        self.tree.iter().map(move |entry| {
-            let (key, value) = entry.map_err(|source| reader.db_error(source))?;
-            let id = String::from_utf8_lossy(&key).into_owned();
-            let values = reader.read_at(&value, &id)?.values(&reader.dir, &id)?;
-            Ok((id, values))
-        })
+        let (entries, failed) = match self.tree() {
+            Ok(tree) => (Some(tree.iter()), None),
+            Err(e) => (None, Some(Err(e))),
+        };
+        failed
+            .into_iter()
+            .chain(entries.into_iter().flatten().map(move |entry| {
+                let (key, value) = entry.map_err(|source| reader.db_error(source))?;
+                let id = String::from_utf8_lossy(&key).into_owned();
+                let values = reader.read_at(&value, &id)?.values(&reader.dir, &id)?;
+                Ok((id, values))
+            }))
     }
 
     /// Every vector of the kind as the store keeps it, `(id, vector)` in id order, handed
@@ -57,7 +71,7 @@ impl VectorReader {
             located.clear();
             take(read)
         };
-        for entry in self.tree.iter() {
+        for entry in self.tree()?.iter() {
             let (key, location) = entry.map_err(|source| self.db_error(source))?;
             located.push((String::from_utf8_lossy(&key).into_owned(), location));
             if located.len() == batch {
@@ -77,13 +91,7 @@ impl VectorReader {
     pub fn hold(&self, ids: &[&str]) -> Result<HeldVectors> {
         let locations = ids
             .par_iter()
-            .map(|id| {
-                let held = self
-                    .tree
-                    .get(id.as_bytes())
-                    .map_err(|source| self.db_error(source))?;
-                held.map(|bytes| self.location(&bytes, id)).transpose()
-            })
+            .map(|id| self.location_of(id))
             .collect::<Result<Vec<_>>>()?;
         self.files.open_all()?;
         Ok(HeldVectors {
@@ -95,18 +103,61 @@ impl VectorReader {
 
     /// Whether an item has a vector of the kind (without reading it).
     pub fn has(&self, id: &str) -> Result<bool> {
-        self.tree
-            .contains_key(id.as_bytes())
-            .map_err(|source| self.db_error(source))
+        Ok(self.location_of(id)?.is_some())
     }
 
     /// One item's vector as the store keeps it (compact); `None` when it has none yet.
     pub fn get_packed(&self, id: &str) -> Result<Option<PackedVector>> {
-        let held = self
-            .tree
+        self.location_of(id)?
+            .map(|location| Ok(PackedVector(self.files.read(location, id)?)))
+            .transpose()
+    }
+
+    /// Where an item's vector lies: from the table of locations when it is there, else
+    /// from the database.
+    fn location_of(&self, id: &str) -> Result<Option<Location>> {
+        if let Some(table) = &self.table {
+            return table.find(id.as_bytes()).map_err(|e| StoreError::Corrupt {
+                dir: self.dir.clone(),
+                key: location_table::path_in(&self.dir, &self.kind)
+                    .display()
+                    .to_string(),
+                detail: format!("{e} (delete the file: it is made again)"),
+            });
+        }
+        self.tree()?
             .get(id.as_bytes())
-            .map_err(|source| self.db_error(source))?;
-        held.map(|location| self.read_at(&location, id)).transpose()
+            .map_err(|source| self.db_error(source))?
+            .map(|bytes| self.location(&bytes, id))
+            .transpose()
+    }
+
+    /// Writes the table of locations of the kind for the next reader, when it is not
+    /// there: a question about one picture then opens no database.
+    pub fn keep_locations(&self) -> Result<()> {
+        if self.table.is_some() {
+            return Ok(());
+        }
+        let seen = self.changes.seen();
+        let files = self.files.state()?;
+        let mut entries = Vec::new();
+        for entry in self.tree()?.iter() {
+            let (key, value) = entry.map_err(|source| self.db_error(source))?;
+            let id = String::from_utf8_lossy(&key);
+            entries.push((key.to_vec(), self.location(&value, &id)?.to_bytes()));
+        }
+        let path = location_table::path_in(&self.dir, &self.kind);
+        self.changes
+            .write_if_unchanged(seen, &path, &location_table::encode(&files, &entries));
+        Ok(())
+    }
+
+    fn tree(&self) -> Result<sled::Tree> {
+        if let Some(tree) = self.tree.get() {
+            return Ok(tree.clone());
+        }
+        let tree = crate::vector_tree(&self.database, &self.kind)?;
+        Ok(self.tree.get_or_init(|| tree).clone())
     }
 
     /// The vector whose stored location is `location`.
@@ -124,7 +175,7 @@ impl VectorReader {
     }
 
     fn db_error(&self, source: sled::Error) -> StoreError {
-        crate::database_error(&self.dir, source)
+        self.database.error(source)
     }
 }
 

@@ -37,7 +37,7 @@ fn items_survive_reopening_and_removal_drops_vectors() {
         assert_eq!(store.item(&a.id).unwrap(), Some(a));
     }
     let store = Store::open(&dir).unwrap();
-    assert_eq!(store.item_count(), 2);
+    assert_eq!(store.item_count().unwrap(), 2);
     let a_id = tagweave_collection::item_id("a.png");
     assert_eq!(
         store.vector("features", &a_id).unwrap(),
@@ -48,7 +48,7 @@ fn items_survive_reopening_and_removal_drops_vectors() {
     store
         .update_items(&[], std::slice::from_ref(&a_id))
         .unwrap();
-    assert_eq!(store.item_count(), 1);
+    assert_eq!(store.item_count().unwrap(), 1);
     assert_eq!(store.vector("features", &a_id).unwrap(), None);
 }
 
@@ -109,9 +109,17 @@ fn another_format_version_asks_for_a_rebuild() {
     let (temp, dir) = collection();
     {
         let store = Store::open_or_create(&dir, temp.path()).unwrap();
-        store.meta.insert(META_FORMAT, &0u32.to_be_bytes()).unwrap();
+        store
+            .db()
+            .unwrap()
+            .meta
+            .insert(META_FORMAT, &0u32.to_be_bytes())
+            .unwrap();
         store.flush().unwrap();
     }
+    // As a store made before the facts file was kept, or whose facts say another format:
+    // the database decides.
+    std::fs::write(facts::path_in(&dir), facts::encode(0, "..")).unwrap();
     let message = match Store::open(&dir) {
         Err(error @ StoreError::FormatMismatch { .. }) => error.to_string(),
         Err(other) => panic!("expected a format mismatch, got {other}"),
@@ -211,7 +219,7 @@ fn a_creation_cut_short_before_its_first_flush_is_finished_not_refused() {
     let store = Store::open_or_create(&dir, temp.path()).unwrap();
     store.update_items(&[item("a.png", &["x"])], &[]).unwrap();
     drop(store);
-    assert_eq!(Store::open(&dir).unwrap().item_count(), 1);
+    assert_eq!(Store::open(&dir).unwrap().item_count().unwrap(), 1);
 }
 
 #[test]
@@ -220,9 +228,10 @@ fn a_store_without_a_version_but_with_data_is_still_refused() {
     {
         let store = Store::open_or_create(&dir, temp.path()).unwrap();
         store.update_items(&[item("a.png", &["x"])], &[]).unwrap();
-        store.meta.remove(META_FORMAT).unwrap();
+        store.db().unwrap().meta.remove(META_FORMAT).unwrap();
         store.flush().unwrap();
     }
+    std::fs::remove_file(facts::path_in(&dir)).unwrap();
     for result in [
         Store::open(&dir).map(drop),
         Store::open_or_create(&dir, temp.path()).map(drop),
@@ -555,7 +564,7 @@ fn the_item_list_is_written_by_a_reader_and_never_outlives_a_change() {
         "the list reads the same"
     );
     assert_eq!(item_list::count(&list), Some(2));
-    assert_eq!(store.item_count(), 2);
+    assert_eq!(store.item_count().unwrap(), 2);
 
     a.tags.push("boats".into());
     store.update_items(std::slice::from_ref(&a), &[]).unwrap();
@@ -844,7 +853,8 @@ fn blobs_are_files_and_those_an_older_store_kept_in_the_database_still_read() {
     let (temp, dir) = collection();
     let store = Store::open_or_create(&dir, temp.path()).unwrap();
     let file = dir.join(BLOB_DIR).join("notes.bin");
-    store.blobs.insert("notes", &b"[\"old\"]"[..]).unwrap();
+    let blobs = &store.db().unwrap().blobs;
+    blobs.insert("notes", &b"[\"old\"]"[..]).unwrap();
     assert_eq!(
         store.blob::<Vec<String>>("notes").unwrap(),
         Some(vec!["old".to_string()]),
@@ -852,11 +862,7 @@ fn blobs_are_files_and_those_an_older_store_kept_in_the_database_still_read() {
     );
     store.put_blob("notes", &vec!["new".to_string()]).unwrap();
     assert!(file.exists());
-    assert_eq!(
-        store.blobs.get("notes").unwrap(),
-        None,
-        "the older copy goes"
-    );
+    assert_eq!(blobs.get("notes").unwrap(), None, "the older copy goes");
     drop(store);
     let store = Store::open(&dir).unwrap();
     assert_eq!(
@@ -866,4 +872,52 @@ fn blobs_are_files_and_those_an_older_store_kept_in_the_database_still_read() {
     store.remove_blob("notes").unwrap();
     assert!(!file.exists());
     assert_eq!(store.blob::<Vec<String>>("notes").unwrap(), None);
+}
+
+#[test]
+fn a_question_the_derived_files_answer_never_opens_the_database() {
+    let (temp, dir) = collection();
+    let (store, records) = store_with_some_of_everything(&dir, temp.path());
+    let reader = store.vector_reader("features").unwrap();
+    reader.keep_locations().unwrap();
+    assert_eq!(store.items_to_ask().unwrap().len(), records.len());
+    drop((reader, store));
+
+    {
+        let store = Store::open(&dir).unwrap();
+        assert_eq!(store.collection_root(), temp.path().canonicalize().unwrap());
+        let items = store.items_to_ask().unwrap();
+        let reader = store.vector_reader("features").unwrap();
+        for row in [0, 150, 299] {
+            let item = items.get(row).unwrap();
+            let i = records.iter().position(|r| r.id == item.id).unwrap();
+            assert_eq!(reader.get(&item.id).unwrap(), Some(vec![i as f32; 16]));
+        }
+        assert_eq!(reader.get("no-such-id").unwrap(), None);
+        assert_eq!(
+            store.blob::<Vec<String>>("notes").unwrap(),
+            Some(vec!["kept".to_string()])
+        );
+        assert!(store.database.if_open().is_none(), "sled was opened");
+    }
+    {
+        // A change deletes the table first; the next reader asks the database.
+        let store = Store::open(&dir).unwrap();
+        let changed = vec![(records[0].id.clone(), vec![-1.0; 16])];
+        store.put_vectors("features", &changed).unwrap();
+        assert!(!location_table::path_in(&dir, "features").exists());
+        let reader = store.vector_reader("features").unwrap();
+        assert!(reader.table.is_none());
+        assert_eq!(reader.get(&records[0].id).unwrap(), Some(vec![-1.0; 16]));
+        reader.keep_locations().unwrap();
+    }
+    // Vector files changed by a program that does not know the table (bytes appended):
+    // the table is not used.
+    let store = Store::open(&dir).unwrap();
+    let files = store.vector_files("features").unwrap();
+    assert!(store.vector_reader("features").unwrap().table.is_some());
+    files.append([[0u8; 4].as_slice()]).unwrap();
+    let reader = store.vector_reader("features").unwrap();
+    assert!(reader.table.is_none());
+    assert_eq!(reader.get(&records[0].id).unwrap(), Some(vec![-1.0; 16]));
 }

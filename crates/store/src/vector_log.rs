@@ -117,16 +117,24 @@ impl VectorFiles {
         Ok(found)
     }
 
+    /// Every file of the kind as (generation, length), lowest generation first: what a
+    /// derived table of locations was written for.
+    pub(crate) fn state(&self) -> Result<Vec<(u32, u64)>> {
+        self.generations()?
+            .into_iter()
+            .map(|generation| {
+                let path = self.path_of(generation);
+                let len = std::fs::metadata(&path)
+                    .map_err(|source| self.io_error(&path, source))?
+                    .len();
+                Ok((generation, len))
+            })
+            .collect()
+    }
+
     /// Total bytes of every file of the kind, garbage included.
     pub(crate) fn bytes_on_disk(&self) -> Result<u64> {
-        let mut total = 0;
-        for generation in self.generations()? {
-            let path = self.path_of(generation);
-            total += std::fs::metadata(&path)
-                .map_err(|source| self.io_error(&path, source))?
-                .len();
-        }
-        Ok(total)
+        Ok(self.state()?.iter().map(|&(_, len)| len).sum())
     }
 
     /// Appends `vectors` to the newest file and makes them durable; their locations, in

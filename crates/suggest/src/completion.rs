@@ -211,10 +211,11 @@ pub struct TagCounts {
 }
 
 impl TagCounts {
-    pub fn count(tags: &[Vec<usize>], n_tags: usize) -> Self {
+    pub fn count<L: AsRef<[usize]>>(tags: &[L], n_tags: usize) -> Self {
         let mut together = Array2::zeros((n_tags, n_tags));
         let mut carrying = Array1::zeros(n_tags);
         for list in tags {
+            let list = list.as_ref();
             for &r in list {
                 carrying[r] += 1.0;
                 list.iter().for_each(|&t| together[[r, t]] += 1.0);

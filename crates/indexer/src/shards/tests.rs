@@ -128,7 +128,7 @@ fn a_damaged_or_foreign_file_is_refused_whole_and_a_second_merge_changes_nothing
     let error = merge_one(&flipped).unwrap_err().to_string();
     assert!(error.contains("flipped.parquet"), "{error}");
     // nothing of either was written, not even the extractor
-    assert_eq!(store.item_count(), 0);
+    assert_eq!(store.item_count().unwrap(), 0);
     assert_eq!(store.blob_bytes(EXTRACTOR_BLOB).unwrap(), None);
 
     let first = merge_one(&out).unwrap();
@@ -201,7 +201,7 @@ fn codes_need_the_stores_model() {
     assert!(matches!(error, IndexError::NoModel { .. }), "{error}");
     assert!(error.to_string().contains("codes.parquet"), "{error}");
     assert_eq!(
-        store.item_count(),
+        store.item_count().unwrap(),
         0,
         "the features file was not merged either"
     );

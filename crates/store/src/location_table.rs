@@ -1,0 +1,213 @@
+//! Where every vector of one kind lies, by id, in one file beside the database, so a
+//! question about a few pictures finds their vectors without opening sled (`database`).
+//! Like every derived file (`derived`) it exists only while it is true; it also names the
+//! vector files as they were when it was written (generation and length), and is not used
+//! once they differ, whoever changed them.
+//!
+//! Layout, little-endian: the magic; `files` (u64), then `files` × (u32 generation, u64
+//! length); `count` (u64); `count` locations (16 bytes each, as the database keeps them);
+//! `count` u64 ends of the ids in the id bytes; the id bytes, ids in ascending byte order.
+
+use std::fs::File;
+use std::os::unix::fs::FileExt;
+use std::path::{Path, PathBuf};
+
+use crate::vector_log::Location;
+
+const MAGIC: &[u8; 8] = b"twlocat1";
+const LOCATION: u64 = 16;
+
+/// The table of vectors of `kind` in the store at `store_dir`.
+pub(crate) fn path_in(store_dir: &Path, kind: &str) -> PathBuf {
+    store_dir.join(format!("locations-{kind}.bin"))
+}
+
+/// The file's bytes for `entries` (id, location as kept), in ascending id order, of vector
+/// files in the state `files` (generation, length).
+pub(crate) fn encode(files: &[(u32, u64)], entries: &[(Vec<u8>, [u8; 16])]) -> Vec<u8> {
+    let ids: usize = entries.iter().map(|(id, _)| id.len()).sum();
+    let mut out = Vec::with_capacity(32 + files.len() * 12 + entries.len() * 24 + ids);
+    out.extend_from_slice(MAGIC);
+    out.extend_from_slice(&(files.len() as u64).to_le_bytes());
+    for (generation, len) in files {
+        out.extend_from_slice(&generation.to_le_bytes());
+        out.extend_from_slice(&len.to_le_bytes());
+    }
+    out.extend_from_slice(&(entries.len() as u64).to_le_bytes());
+    for (_, location) in entries {
+        out.extend_from_slice(location);
+    }
+    let mut end = 0u64;
+    for (id, _) in entries {
+        end += id.len() as u64;
+        out.extend_from_slice(&end.to_le_bytes());
+    }
+    for (id, _) in entries {
+        out.extend_from_slice(id);
+    }
+    out
+}
+
+/// An open table, read by binary search a few bytes at a time.
+pub(crate) struct LocationTable {
+    file: File,
+    count: u64,
+    locations_at: u64,
+}
+
+impl LocationTable {
+    /// The table at `path` if it is there, whole, and written for vector files in the
+    /// state `files`; otherwise `None` (the database is asked instead).
+    pub(crate) fn open(path: &Path, files: &[(u32, u64)]) -> Option<LocationTable> {
+        let file = File::open(path).ok()?;
+        let len = file.metadata().ok()?.len();
+        let number = |at: u64| -> Option<u64> {
+            let mut bytes = [0u8; 8];
+            file.read_exact_at(&mut bytes, at).ok()?;
+            Some(u64::from_le_bytes(bytes))
+        };
+        let mut magic = [0u8; 8];
+        file.read_exact_at(&mut magic, 0).ok()?;
+        let kept_files = number(8)?;
+        if &magic != MAGIC || kept_files != files.len() as u64 {
+            return None;
+        }
+        for (i, &(generation, size)) in files.iter().enumerate() {
+            let mut bytes = [0u8; 12];
+            file.read_exact_at(&mut bytes, 16 + i as u64 * 12).ok()?;
+            let kept = (
+                u32::from_le_bytes(bytes[..4].try_into().ok()?),
+                u64::from_le_bytes(bytes[4..].try_into().ok()?),
+            );
+            if kept != (generation, size) {
+                return None;
+            }
+        }
+        let count_at = 16 + kept_files * 12;
+        let count = number(count_at)?;
+        let ends_at = (count_at + 8).checked_add(count.checked_mul(LOCATION)?)?;
+        let ids_len = match count {
+            0 => 0,
+            n => number(ends_at + (n - 1) * 8)?,
+        };
+        let table = LocationTable {
+            count,
+            locations_at: count_at + 8,
+            file,
+        };
+        (table.ids_at().checked_add(ids_len) == Some(len)).then_some(table)
+    }
+
+    fn ends_at(&self) -> u64 {
+        self.locations_at + self.count * LOCATION
+    }
+
+    fn ids_at(&self) -> u64 {
+        self.ends_at() + self.count * 8
+    }
+
+    /// Where the vector of `id` lies; `None` when the table holds none for it, or the
+    /// table turned out damaged (`Err`: its reading failed).
+    pub(crate) fn find(&self, id: &[u8]) -> std::io::Result<Option<Location>> {
+        let (mut low, mut high) = (0, self.count);
+        while low < high {
+            let middle = low + (high - low) / 2;
+            match self.id(middle)?.as_slice().cmp(id) {
+                std::cmp::Ordering::Less => low = middle + 1,
+                std::cmp::Ordering::Greater => high = middle,
+                std::cmp::Ordering::Equal => {
+                    let mut bytes = [0u8; 16];
+                    self.file
+                        .read_exact_at(&mut bytes, self.locations_at + middle * LOCATION)?;
+                    return Ok(Location::from_bytes(&bytes));
+                }
+            }
+        }
+        Ok(None)
+    }
+
+    /// The id of entry `i`.
+    fn id(&self, i: u64) -> std::io::Result<Vec<u8>> {
+        let (start, end) = if i == 0 {
+            let mut end = [0u8; 8];
+            self.file.read_exact_at(&mut end, self.ends_at())?;
+            (0, u64::from_le_bytes(end))
+        } else {
+            let mut ends = [0u8; 16];
+            self.file
+                .read_exact_at(&mut ends, self.ends_at() + (i - 1) * 8)?;
+            (
+                u64::from_le_bytes(ends[..8].try_into().unwrap_or_default()),
+                u64::from_le_bytes(ends[8..].try_into().unwrap_or_default()),
+            )
+        };
+        let len = end
+            .checked_sub(start)
+            .filter(|&n| n <= 1 << 16)
+            .ok_or_else(|| {
+                std::io::Error::new(std::io::ErrorKind::InvalidData, "ids out of order")
+            })?;
+        let mut id = vec![0u8; len as usize];
+        self.file.read_exact_at(&mut id, self.ids_at() + start)?;
+        Ok(id)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn location(generation: u32, offset: u64, len: u32) -> Location {
+        Location::from_bytes(
+            &[
+                generation.to_be_bytes().as_slice(),
+                &offset.to_be_bytes(),
+                &len.to_be_bytes(),
+            ]
+            .concat(),
+        )
+        .expect("16 bytes")
+    }
+
+    #[test]
+    fn every_id_is_found_and_no_other_and_a_changed_file_state_is_refused() {
+        let folder = tempfile::tempdir().expect("temporary folder");
+        let path = path_in(folder.path(), "code");
+        // Ids of differing lengths in byte order, as sled keeps its keys.
+        let ids: Vec<Vec<u8>> = ["a", "ab", "b", "ba0", "c", "zz"]
+            .iter()
+            .map(|s| s.as_bytes().to_vec())
+            .collect();
+        let entries: Vec<(Vec<u8>, [u8; 16])> = ids
+            .iter()
+            .enumerate()
+            .map(|(i, id)| (id.clone(), location(1, i as u64 * 10, 10).to_bytes()))
+            .collect();
+        let files = [(1, 60)];
+        std::fs::write(&path, encode(&files, &entries)).expect("write");
+        let table = LocationTable::open(&path, &files).expect("a whole table");
+        for (i, id) in ids.iter().enumerate() {
+            let found = table.find(id).expect("read");
+            assert_eq!(found, Some(location(1, i as u64 * 10, 10)), "{id:?}");
+        }
+        for absent in ["", "0", "aa", "b0", "bb", "zzz"] {
+            assert_eq!(
+                table.find(absent.as_bytes()).expect("read"),
+                None,
+                "{absent}"
+            );
+        }
+        // Vector files grown or of another generation since: not used.
+        assert!(LocationTable::open(&path, &[(1, 70)]).is_none());
+        assert!(LocationTable::open(&path, &[(2, 60)]).is_none());
+        assert!(LocationTable::open(&path, &[]).is_none());
+        // Cut short: not used.
+        let bytes = std::fs::read(&path).expect("read");
+        std::fs::write(&path, &bytes[..bytes.len() - 1]).expect("write");
+        assert!(LocationTable::open(&path, &files).is_none());
+        // Empty table of no files.
+        std::fs::write(&path, encode(&[], &[])).expect("write");
+        let empty = LocationTable::open(&path, &[]).expect("an empty table");
+        assert_eq!(empty.find(b"a").expect("read"), None);
+    }
+}
