@@ -60,7 +60,8 @@ fn copy_all(from: &Path, to: &Path) {
 }
 
 /// Rewrites the store's `format_version` record behind tagweave's back, as an older or
-/// newer tagweave would have left it.
+/// newer tagweave would have left it: without the facts file this tagweave keeps of the
+/// current format (older ones never wrote one; one of another format is not believed).
 fn set_format_version(store_dir: &Path, version: u32) {
     let db = sled::open(store_dir.join("db")).unwrap();
     db.open_tree("meta")
@@ -68,6 +69,9 @@ fn set_format_version(store_dir: &Path, version: u32) {
         .insert("format_version", &version.to_be_bytes())
         .unwrap();
     db.flush().unwrap();
+    let facts = store_dir.join("facts.bin");
+    assert!(facts.exists(), "the scan before kept the facts file");
+    std::fs::remove_file(facts).unwrap();
 }
 
 fn folder_size(dir: &Path) -> u64 {
