@@ -3,6 +3,7 @@
 //! hashes). Like the item list it exists only while it is true: every change to the codes
 //! deletes it first, and the next load writes it again.
 
+use std::io::Read;
 use std::path::{Path, PathBuf};
 
 use super::{CodeIndex, IdTable};
@@ -46,17 +47,31 @@ pub(crate) fn encode(index: &CodeIndex) -> Vec<u8> {
     out
 }
 
-/// Reads the bytes of a saved index front to back.
-struct Cursor<'a>(&'a [u8]);
+/// Reads a saved index front to back, each part straight into its own buffer: reading the
+/// whole file first held a million-picture index twice (627 MB for `find`) and copied it
+/// once more.
+struct Cursor {
+    file: std::io::BufReader<std::fs::File>,
+    /// Bytes not read yet: no part longer than this is believed (a damaged length).
+    left: u64,
+}
 
-impl<'a> Cursor<'a> {
-    fn take(&mut self, n: usize) -> Option<&'a [u8]> {
-        if self.0.len() < n {
-            return None;
-        }
-        let (head, rest) = self.0.split_at(n);
-        self.0 = rest;
-        Some(head)
+impl Cursor {
+    fn open(path: &Path) -> Option<Cursor> {
+        let file = std::fs::File::open(path).ok()?;
+        let left = file.metadata().ok()?.len();
+        Some(Cursor {
+            file: std::io::BufReader::with_capacity(1 << 16, file),
+            left,
+        })
+    }
+
+    fn take(&mut self, n: usize) -> Option<Vec<u8>> {
+        let len = u64::try_from(n).ok().filter(|&len| len <= self.left)?;
+        let mut out = vec![0u8; n];
+        self.file.read_exact(&mut out).ok()?;
+        self.left -= len;
+        Some(out)
     }
 
     fn u64(&mut self) -> Option<u64> {
@@ -76,20 +91,26 @@ impl<'a> Cursor<'a> {
                 .collect(),
         )
     }
+
+    fn is_done(&self) -> bool {
+        self.left == 0
+    }
 }
 
 /// The index saved at `path` if it is whole and was hashed against `thresholds`; `None`
 /// otherwise (the codes are then read from the store).
 pub(crate) fn read(path: &Path, thresholds: &[f32]) -> Option<CodeIndex> {
-    let bytes = std::fs::read(path).ok()?;
-    let mut at = Cursor(bytes.strip_prefix(MAGIC.as_slice())?);
+    let mut at = Cursor::open(path)?;
+    if at.take(MAGIC.len())? != MAGIC.as_slice() {
+        return None;
+    }
     let dim = at.usize()?;
     let count = at.usize()?;
     if dim != thresholds.len() || at.f32s(dim)?.as_slice() != thresholds {
         return None;
     }
     let text_len = at.usize()?;
-    let text = String::from_utf8(at.take(text_len)?.to_vec()).ok()?;
+    let text = String::from_utf8(at.take(text_len)?).ok()?;
     let width = match at.u64()? {
         u64::MAX => None,
         w => Some(usize::try_from(w).ok()?),
@@ -100,14 +121,14 @@ pub(crate) fn read(path: &Path, thresholds: &[f32]) -> Option<CodeIndex> {
         .collect::<Option<Vec<usize>>>()?;
     let sorted = at.take(1)?[0] == 1;
     let words = dim.div_ceil(64);
-    let codes = at.take(count.checked_mul(dim)?)?.to_vec();
+    let codes = at.take(count.checked_mul(dim)?)?;
     let inv_norms = at.f32s(count)?;
     let hash_bytes = at.take(count.checked_mul(words)?.checked_mul(8)?)?;
     let hashes = hash_bytes
         .chunks_exact(8)
         .map(|c| u64::from_le_bytes(c.try_into().unwrap_or_default()))
         .collect();
-    let whole = at.0.is_empty()
+    let whole = at.is_done()
         && match width {
             Some(w) => text.len() == w.checked_mul(count)? && ends.is_empty(),
             None => {
