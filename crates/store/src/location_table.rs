@@ -50,9 +50,34 @@ pub(crate) fn encode(files: &[(u32, u64)], entries: &[(Vec<u8>, [u8; 16])]) -> V
 
 /// An open table, read by binary search a few bytes at a time.
 pub(crate) struct LocationTable {
-    file: File,
+    bytes: Bytes,
     count: u64,
     locations_at: u64,
+}
+
+/// Where a table's bytes are read from: its file (a question about a few pictures), or
+/// memory (one about every picture: a million searches through the file took 20 s).
+enum Bytes {
+    File(File),
+    Held(Vec<u8>),
+}
+
+impl Bytes {
+    fn read_exact_at(&self, out: &mut [u8], at: u64) -> std::io::Result<()> {
+        match self {
+            Bytes::File(file) => file.read_exact_at(out, at),
+            Bytes::Held(held) => {
+                let part = usize::try_from(at)
+                    .ok()
+                    .and_then(|at| held.get(at..at.checked_add(out.len())?))
+                    .ok_or_else(|| {
+                        std::io::Error::new(std::io::ErrorKind::UnexpectedEof, "table cut short")
+                    })?;
+                out.copy_from_slice(part);
+                Ok(())
+            }
+        }
+    }
 }
 
 impl LocationTable {
@@ -85,17 +110,40 @@ impl LocationTable {
         }
         let count_at = 16 + kept_files * 12;
         let count = number(count_at)?;
-        let ends_at = (count_at + 8).checked_add(count.checked_mul(LOCATION)?)?;
-        let ids_len = match count {
-            0 => 0,
-            n => number(ends_at + (n - 1) * 8)?,
-        };
+        // Counts that could not fit the file are damage (and would overflow below).
+        if count > len / (LOCATION + 8) {
+            return None;
+        }
         let table = LocationTable {
             count,
             locations_at: count_at + 8,
-            file,
+            bytes: Bytes::File(file),
         };
+        let ids_len = table.id_bytes().ok()?;
         (table.ids_at().checked_add(ids_len) == Some(len)).then_some(table)
+    }
+
+    /// The table read into memory, for many searches.
+    pub(crate) fn held(&self) -> std::io::Result<LocationTable> {
+        let len = self.ids_at() + self.id_bytes()?;
+        let mut bytes = vec![0u8; usize::try_from(len).map_err(std::io::Error::other)?];
+        self.bytes.read_exact_at(&mut bytes, 0)?;
+        Ok(LocationTable {
+            bytes: Bytes::Held(bytes),
+            count: self.count,
+            locations_at: self.locations_at,
+        })
+    }
+
+    /// Length of the ids' bytes (the last id's end).
+    fn id_bytes(&self) -> std::io::Result<u64> {
+        if self.count == 0 {
+            return Ok(0);
+        }
+        let mut end = [0u8; 8];
+        self.bytes
+            .read_exact_at(&mut end, self.ends_at() + (self.count - 1) * 8)?;
+        Ok(u64::from_le_bytes(end))
     }
 
     fn ends_at(&self) -> u64 {
@@ -117,7 +165,7 @@ impl LocationTable {
                 std::cmp::Ordering::Greater => high = middle,
                 std::cmp::Ordering::Equal => {
                     let mut bytes = [0u8; 16];
-                    self.file
+                    self.bytes
                         .read_exact_at(&mut bytes, self.locations_at + middle * LOCATION)?;
                     return Ok(Location::from_bytes(&bytes));
                 }
@@ -130,11 +178,11 @@ impl LocationTable {
     fn id(&self, i: u64) -> std::io::Result<Vec<u8>> {
         let (start, end) = if i == 0 {
             let mut end = [0u8; 8];
-            self.file.read_exact_at(&mut end, self.ends_at())?;
+            self.bytes.read_exact_at(&mut end, self.ends_at())?;
             (0, u64::from_le_bytes(end))
         } else {
             let mut ends = [0u8; 16];
-            self.file
+            self.bytes
                 .read_exact_at(&mut ends, self.ends_at() + (i - 1) * 8)?;
             (
                 u64::from_le_bytes(ends[..8].try_into().unwrap_or_default()),
@@ -148,7 +196,7 @@ impl LocationTable {
                 std::io::Error::new(std::io::ErrorKind::InvalidData, "ids out of order")
             })?;
         let mut id = vec![0u8; len as usize];
-        self.file.read_exact_at(&mut id, self.ids_at() + start)?;
+        self.bytes.read_exact_at(&mut id, self.ids_at() + start)?;
         Ok(id)
     }
 }
@@ -196,6 +244,14 @@ mod tests {
                 None,
                 "{absent}"
             );
+        }
+        let held = table.held().expect("read whole");
+        for id in ids
+            .iter()
+            .map(Vec::as_slice)
+            .chain([b"aa".as_slice(), b"zzz"])
+        {
+            assert_eq!(held.find(id).expect("read"), table.find(id).expect("read"));
         }
         // Vector files grown or of another generation since: not used.
         assert!(LocationTable::open(&path, &[(1, 70)]).is_none());

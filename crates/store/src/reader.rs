@@ -89,9 +89,14 @@ impl VectorReader {
     /// they were when taken: the files are only appended to, and a file that a compaction
     /// or a rebuild deletes stays readable through a handle opened before.
     pub fn hold(&self, ids: &[&str]) -> Result<HeldVectors> {
+        let mut reader = self.clone();
+        if let Some(table) = &self.table {
+            let held = table.held().map_err(|e| self.damaged_table(e))?;
+            reader.table = Some(Arc::new(held));
+        }
         let locations = ids
             .par_iter()
-            .map(|id| self.location_of(id))
+            .map(|id| reader.location_of(id))
             .collect::<Result<Vec<_>>>()?;
         self.files.open_all()?;
         Ok(HeldVectors {
@@ -117,13 +122,7 @@ impl VectorReader {
     /// from the database.
     fn location_of(&self, id: &str) -> Result<Option<Location>> {
         if let Some(table) = &self.table {
-            return table.find(id.as_bytes()).map_err(|e| StoreError::Corrupt {
-                dir: self.dir.clone(),
-                key: location_table::path_in(&self.dir, &self.kind)
-                    .display()
-                    .to_string(),
-                detail: format!("{e} (delete the file: it is made again)"),
-            });
+            return table.find(id.as_bytes()).map_err(|e| self.damaged_table(e));
         }
         self.tree()?
             .get(id.as_bytes())
@@ -150,6 +149,16 @@ impl VectorReader {
         self.changes
             .write_if_unchanged(seen, &path, &location_table::encode(&files, &entries));
         Ok(())
+    }
+
+    fn damaged_table(&self, error: std::io::Error) -> StoreError {
+        StoreError::Corrupt {
+            dir: self.dir.clone(),
+            key: location_table::path_in(&self.dir, &self.kind)
+                .display()
+                .to_string(),
+            detail: format!("{error} (delete the file: it is made again)"),
+        }
     }
 
     fn tree(&self) -> Result<sled::Tree> {
