@@ -64,9 +64,10 @@ pub(crate) fn update(
         }
     };
 
+    let described = store.vector_reader(FEATURES)?;
     let mut missing = Vec::new();
     for item in items {
-        if store.vector(FEATURES, &item.id)?.is_none() {
+        if described.get(&item.id)?.is_none() {
             missing.push(item);
         }
     }

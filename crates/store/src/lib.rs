@@ -689,15 +689,6 @@ impl Store {
         })
     }
 
-    /// Whether the store holds exactly `values` as the vector of `kind` for `id`, as it
-    /// would keep them (packed: a vector that packs to the stored bytes is the same).
-    pub fn holds_vector(&self, kind: &str, id: &str, values: &[f32]) -> Result<bool> {
-        Ok(self
-            .vector_reader(kind)?
-            .get_packed(id)?
-            .is_some_and(|held| held.bytes() == packing::pack(kind, values).as_slice()))
-    }
-
     /// Every stored vector of one kind as `(id, values)`, in id order. Streams: a million
     /// codes are never held twice, and no other kind is read.
     pub fn vectors_of_kind(

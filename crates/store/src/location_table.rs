@@ -78,6 +78,12 @@ impl Bytes {
             }
         }
     }
+
+    fn u64_at(&self, at: u64) -> std::io::Result<u64> {
+        let mut bytes = [0u8; 8];
+        self.read_exact_at(&mut bytes, at)?;
+        Ok(u64::from_le_bytes(bytes))
+    }
 }
 
 impl LocationTable {
@@ -86,30 +92,24 @@ impl LocationTable {
     pub(crate) fn open(path: &Path, files: &[(u32, u64)]) -> Option<LocationTable> {
         let file = File::open(path).ok()?;
         let len = file.metadata().ok()?.len();
-        let number = |at: u64| -> Option<u64> {
-            let mut bytes = [0u8; 8];
-            file.read_exact_at(&mut bytes, at).ok()?;
-            Some(u64::from_le_bytes(bytes))
-        };
+        let bytes = Bytes::File(file);
         let mut magic = [0u8; 8];
-        file.read_exact_at(&mut magic, 0).ok()?;
-        let kept_files = number(8)?;
+        bytes.read_exact_at(&mut magic, 0).ok()?;
+        let kept_files = bytes.u64_at(8).ok()?;
         if &magic != MAGIC || kept_files != files.len() as u64 {
             return None;
         }
         for (i, &(generation, size)) in files.iter().enumerate() {
-            let mut bytes = [0u8; 12];
-            file.read_exact_at(&mut bytes, 16 + i as u64 * 12).ok()?;
-            let kept = (
-                u32::from_le_bytes(bytes[..4].try_into().ok()?),
-                u64::from_le_bytes(bytes[4..].try_into().ok()?),
-            );
-            if kept != (generation, size) {
+            let mut kept_generation = [0u8; 4];
+            let at = 16 + i as u64 * 12;
+            bytes.read_exact_at(&mut kept_generation, at).ok()?;
+            let kept_size = bytes.u64_at(at + 4).ok()?;
+            if (u32::from_le_bytes(kept_generation), kept_size) != (generation, size) {
                 return None;
             }
         }
         let count_at = 16 + kept_files * 12;
-        let count = number(count_at)?;
+        let count = bytes.u64_at(count_at).ok()?;
         // Counts that could not fit the file are damage (and would overflow below).
         if count > len / (LOCATION + 8) {
             return None;
@@ -117,7 +117,7 @@ impl LocationTable {
         let table = LocationTable {
             count,
             locations_at: count_at + 8,
-            bytes: Bytes::File(file),
+            bytes,
         };
         let ids_len = table.id_bytes().ok()?;
         (table.ids_at().checked_add(ids_len) == Some(len)).then_some(table)
@@ -137,13 +137,15 @@ impl LocationTable {
 
     /// Length of the ids' bytes (the last id's end).
     fn id_bytes(&self) -> std::io::Result<u64> {
-        if self.count == 0 {
-            return Ok(0);
+        match self.count {
+            0 => Ok(0),
+            n => self.id_end(n - 1),
         }
-        let mut end = [0u8; 8];
-        self.bytes
-            .read_exact_at(&mut end, self.ends_at() + (self.count - 1) * 8)?;
-        Ok(u64::from_le_bytes(end))
+    }
+
+    /// Where the id of entry `i` ends in the id bytes.
+    fn id_end(&self, i: u64) -> std::io::Result<u64> {
+        self.bytes.u64_at(self.ends_at() + i * 8)
     }
 
     fn ends_at(&self) -> u64 {
@@ -176,20 +178,9 @@ impl LocationTable {
 
     /// The id of entry `i`.
     fn id(&self, i: u64) -> std::io::Result<Vec<u8>> {
-        let (start, end) = if i == 0 {
-            let mut end = [0u8; 8];
-            self.bytes.read_exact_at(&mut end, self.ends_at())?;
-            (0, u64::from_le_bytes(end))
-        } else {
-            let mut ends = [0u8; 16];
-            self.bytes
-                .read_exact_at(&mut ends, self.ends_at() + (i - 1) * 8)?;
-            (
-                u64::from_le_bytes(ends[..8].try_into().unwrap_or_default()),
-                u64::from_le_bytes(ends[8..].try_into().unwrap_or_default()),
-            )
-        };
-        let len = end
+        let start = if i == 0 { 0 } else { self.id_end(i - 1)? };
+        let len = self
+            .id_end(i)?
             .checked_sub(start)
             .filter(|&n| n <= 1 << 16)
             .ok_or_else(|| {

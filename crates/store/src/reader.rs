@@ -106,6 +106,14 @@ impl VectorReader {
         })
     }
 
+    /// Whether the store holds exactly `values` as this kind's vector for `id`, as it
+    /// would keep them (packed: a vector that packs to the stored bytes is the same).
+    pub fn holds(&self, id: &str, values: &[f32]) -> Result<bool> {
+        Ok(self
+            .get_packed(id)?
+            .is_some_and(|held| held.bytes() == packing::pack(&self.kind, values).as_slice()))
+    }
+
     /// Whether an item has a vector of the kind (without reading it).
     pub fn has(&self, id: &str) -> Result<bool> {
         Ok(self.location_of(id)?.is_some())

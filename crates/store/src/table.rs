@@ -26,8 +26,9 @@ impl FeatureTable {
         let mut kept = Vec::with_capacity(items.len());
         let mut values = Vec::new();
         let mut dimension = None;
+        let features = store.vector_reader(FEATURES)?;
         for item in items {
-            let Some(row) = store.vector(FEATURES, &item.id)? else {
+            let Some(row) = features.get(&item.id)? else {
                 continue;
             };
             if *dimension.get_or_insert(row.len()) != row.len() {

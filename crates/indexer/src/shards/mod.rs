@@ -736,10 +736,11 @@ fn merge_features(
 ) -> Result<(), IndexError> {
     let mut items = Vec::new();
     let mut vectors = Vec::new();
+    let held_features = store.vector_reader(FEATURES)?;
     for row in rows {
         let (item, features) = read_feature_row(path, row)?;
         let held = store.item(&item.id)?;
-        if held.as_ref() == Some(&item) && store.holds_vector(FEATURES, &item.id, &features)? {
+        if held.as_ref() == Some(&item) && held_features.holds(&item.id, &features)? {
             counts.unchanged += 1;
             continue;
         }
@@ -761,16 +762,16 @@ fn merge_codes(
     counts: &mut MergedFile,
 ) -> Result<(), IndexError> {
     let mut codes = Vec::new();
+    let (features, held_codes) = (store.vector_reader(FEATURES)?, store.vector_reader(CODES)?);
     for row in rows {
         let (id, content_hash, code) = read_code_row(path, row)?;
         let held = store.item(&id)?;
-        if held.is_none_or(|item| item.content_hash != content_hash)
-            || store.vector(FEATURES, &id)?.is_none()
+        if held.is_none_or(|item| item.content_hash != content_hash) || features.get(&id)?.is_none()
         {
             counts.not_in_store += 1;
             continue;
         }
-        if store.holds_vector(CODES, &id, &code)? {
+        if held_codes.holds(&id, &code)? {
             counts.unchanged += 1;
             continue;
         }
